@@ -1,0 +1,198 @@
+//! The command line: clap definitions (their `///` lines are the help text) and the commands that
+//! glue the library together. Errors here carry context for people (anyhow); `main` maps them to
+//! exit codes.
+
+use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Spec};
+use crate::config::{self, Config};
+use crate::csvload::{self, CsvColumns, CsvOptions};
+use crate::render;
+use anyhow::Context;
+use clap::{Args, Parser, Subcommand};
+use std::path::PathBuf;
+
+/// headroom: tells whether a control loop that misses its spec needs retuning, or whether its
+/// actuator makes the spec impossible.
+#[derive(Debug, Parser)]
+#[command(name = "headroom", version, about, long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Analyse a CSV export of one loop offline: score every setpoint change, identify the
+    /// process, and tell tuning-limited from actuator-limited.
+    Analyze(Box<AnalyzeArgs>),
+    /// Measure this machine: analysis speed beside the reference libraries, in one run.
+    Bench(crate::bench::BenchArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct AnalyzeArgs {
+    /// The CSV file (header row; time in seconds or RFC 3339).
+    pub file: PathBuf,
+    /// Print JSON instead of the table.
+    #[arg(long)]
+    pub json: bool,
+
+    /// Name of the time column.
+    #[arg(long, default_value = "time", value_name = "NAME")]
+    pub time_col: String,
+    /// Name of the setpoint column.
+    #[arg(long, default_value = "sp", value_name = "NAME")]
+    pub sp_col: String,
+    /// Name of the process-variable column.
+    #[arg(long, default_value = "pv", value_name = "NAME")]
+    pub pv_col: String,
+    /// Name of the controller-output column.
+    #[arg(long, default_value = "op", value_name = "NAME")]
+    pub op_col: String,
+    /// Name of an optional mode column; windows end where the loop leaves automatic.
+    #[arg(long, value_name = "NAME")]
+    pub mode_col: Option<String>,
+    /// Mode values that mean automatic (comma-separated; any non-zero number also does).
+    #[arg(long, value_delimiter = ',', value_name = "LIST")]
+    pub auto_values: Option<Vec<String>>,
+
+    /// Take the OP range and spec from this config file (with --loop).
+    #[arg(long, value_name = "FILE", requires = "loop_tag")]
+    pub config: Option<PathBuf>,
+    /// The loop's tag in the config file, e.g. TIC-101.
+    #[arg(long = "loop", value_name = "TAG", requires = "config")]
+    pub loop_tag: Option<String>,
+
+    /// Lower OP limit (default 0).
+    #[arg(long, allow_negative_numbers = true, value_name = "OP")]
+    pub op_min: Option<f64>,
+    /// Upper OP limit (default 100).
+    #[arg(long, allow_negative_numbers = true, value_name = "OP")]
+    pub op_max: Option<f64>,
+    /// Settling band, % of the setpoint change (default 2).
+    #[arg(long, value_name = "PCT")]
+    pub settle_band_pct: Option<f64>,
+    /// Spec: the PV must settle within this many seconds (required without --config).
+    #[arg(long, value_name = "SECONDS")]
+    pub settle_within_s: Option<f64>,
+    /// Spec: largest allowed overshoot, % of the change.
+    #[arg(long, value_name = "PCT")]
+    pub max_overshoot_pct: Option<f64>,
+    /// SP moves up to this size are jitter, not setpoint changes (default 0.1 % of the largest SP).
+    #[arg(long, value_name = "SP")]
+    pub sp_deadband: Option<f64>,
+    /// Silence between samples counted as a data gap (default 10 sample intervals).
+    #[arg(long, value_name = "SECONDS")]
+    pub max_gap_s: Option<f64>,
+    /// Name to show for the loop (default: the --loop tag or the file name).
+    #[arg(long, value_name = "TAG")]
+    pub tag: Option<String>,
+}
+
+/// An input problem the user can fix: reported without a backtrace, exit code 2.
+#[derive(Debug, thiserror::Error)]
+#[error("{0}")]
+pub struct UsageError(pub String);
+
+impl AnalyzeArgs {
+    /// Resolves flags and config into one analysis setup; flags win over the config file.
+    pub fn setup(&self) -> anyhow::Result<LoopSetup> {
+        let mut setup = match (&self.config, &self.loop_tag) {
+            (Some(path), Some(tag)) => {
+                let cfg = Config::load(path).map_err(|e| UsageError(e.to_string()))?;
+                cfg.loop_setup(tag, path)
+                    .map_err(|e| UsageError(e.to_string()))?
+            }
+            _ => {
+                let within = self.settle_within_s.ok_or_else(|| {
+                    UsageError(
+                        "the spec's settling time is needed: give --settle-within-s SECONDS, \
+                         or --config FILE --loop TAG"
+                            .into(),
+                    )
+                })?;
+                LoopSetup {
+                    tag: self
+                        .file
+                        .file_stem()
+                        .map_or("loop".into(), |s| s.to_string_lossy().into_owned()),
+                    op: OpRange {
+                        min: 0.0,
+                        max: 100.0,
+                    },
+                    spec: Spec {
+                        settle_band_pct: 2.0,
+                        settle_within_s: within,
+                        max_overshoot_pct: None,
+                    },
+                    options: AnalysisOptions::default(),
+                }
+            }
+        };
+        if let Some(v) = self.op_min {
+            setup.op.min = v;
+        }
+        if let Some(v) = self.op_max {
+            setup.op.max = v;
+        }
+        if let Some(v) = self.settle_band_pct {
+            setup.spec.settle_band_pct = v;
+        }
+        if let Some(v) = self.settle_within_s {
+            setup.spec.settle_within_s = v;
+        }
+        if let Some(v) = self.max_overshoot_pct {
+            setup.spec.max_overshoot_pct = Some(v);
+        }
+        if let Some(v) = self.sp_deadband {
+            setup.options.sp_deadband = Some(v);
+        }
+        if let Some(v) = self.max_gap_s {
+            setup.options.max_gap_s = Some(v);
+        }
+        if let Some(t) = &self.tag {
+            setup.tag = t.clone();
+        }
+        if !(setup.op.min.is_finite() && setup.op.max.is_finite() && setup.op.min < setup.op.max) {
+            return Err(UsageError(format!(
+                "--op-min ({}) must be below --op-max ({})",
+                setup.op.min, setup.op.max
+            ))
+            .into());
+        }
+        config::validate_spec(&setup.spec).map_err(UsageError)?;
+        Ok(setup)
+    }
+
+    fn csv_options(&self) -> CsvOptions {
+        let mut o = CsvOptions {
+            columns: CsvColumns {
+                time: self.time_col.clone(),
+                sp: self.sp_col.clone(),
+                pv: self.pv_col.clone(),
+                op: self.op_col.clone(),
+                mode: self.mode_col.clone(),
+            },
+            ..CsvOptions::default()
+        };
+        if let Some(v) = &self.auto_values {
+            o.auto_values = v.clone();
+        }
+        o
+    }
+}
+
+/// `headroom analyze`: load, analyse, print.
+pub fn analyze(args: &AnalyzeArgs, out: &mut dyn std::io::Write) -> anyhow::Result<()> {
+    let setup = args.setup()?;
+    let file = std::fs::File::open(&args.file)
+        .with_context(|| format!("cannot open {}", args.file.display()))?;
+    let loaded = csvload::load_csv(std::io::BufReader::new(file), &args.csv_options())
+        .map_err(|e| UsageError(format!("{}: {e}", args.file.display())))?;
+    let report = analysis::analyze_loop(&loaded.series, &setup);
+    if args.json {
+        render::json(&report, &loaded.report, out)?;
+    } else {
+        render::text(&report, &loaded.report, out)?;
+    }
+    Ok(())
+}

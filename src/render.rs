@@ -1,0 +1,219 @@
+//! Output formats for people (a plain-text table) and for programs (JSON). Only this module
+//! and the reports know how results look; the analysis core returns values.
+
+use crate::analysis::assess::{Action, LoopReport, Verdict};
+use crate::csvload::LoadReport;
+use std::io::Write;
+
+/// JSON: the loop report with the field names the design fixes, plus how the file was read.
+/// When the file's time was RFC 3339, each episode also gets `start_time` (RFC 3339, UTC).
+pub fn json(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
+    let mut v = serde_json::to_value(report)?;
+    if let Some(origin) = load.time_origin
+        && let Some(eps) = v.get_mut("episodes").and_then(|e| e.as_array_mut())
+    {
+        for (e, r) in eps.iter_mut().zip(&report.episodes) {
+            let at = absolute(origin, r.start_s);
+            e["start_time"] = serde_json::Value::String(at);
+        }
+    }
+    v["input"] = serde_json::to_value(load)?;
+    serde_json::to_writer_pretty(&mut *out, &v)?;
+    writeln!(out)?;
+    Ok(())
+}
+
+fn absolute(origin: jiff::Timestamp, offset_s: f64) -> String {
+    let span = jiff::SignedDuration::from_secs_f64(offset_s);
+    origin
+        .checked_add(span)
+        .map_or_else(|_| format!("{offset_s} s"), |t| t.to_string())
+}
+
+/// Short, plain word for a verdict in the table.
+pub fn verdict_word(v: Verdict) -> &'static str {
+    match v {
+        Verdict::Met => "met",
+        Verdict::TuningLimited => "TUNING",
+        Verdict::ActuatorLimited => "ACTUATOR",
+        Verdict::Unreachable => "UNREACHABLE",
+        Verdict::Inconclusive => "(inconclusive)",
+    }
+}
+
+fn opt_s(v: Option<f64>) -> String {
+    v.map_or("—".into(), |x| format!("{x:.0} s"))
+}
+
+/// Text: a header with the spec and the data, one row per episode, then model, tally,
+/// recommendation and the caution.
+pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
+    let spec = &report.spec;
+    let overshoot = spec
+        .max_overshoot_pct
+        .map_or(String::new(), |o| format!(", overshoot at most {o} %"));
+    writeln!(
+        out,
+        "Loop {}   spec: within ±{} % of each change in {} s{}   OP range {} … {}",
+        report.tag,
+        spec.settle_band_pct,
+        spec.settle_within_s,
+        overshoot,
+        report.op_range.min,
+        report.op_range.max
+    )?;
+    let d = &report.data;
+    writeln!(
+        out,
+        "Data: {} samples over {}, every {} s (median); PV noise σ ≈ {:.3}; {} data gap(s)",
+        d.samples,
+        human_duration(d.duration_s),
+        trim(d.median_sample_s),
+        d.pv_noise_sd,
+        d.gaps
+    )?;
+    for note in load.notes() {
+        writeln!(out, "  input: {note}")?;
+    }
+    let skipped = [
+        (d.changes_in_manual, "in manual"),
+        (d.changes_in_gaps, "inside data gaps"),
+        (d.returned_excursions, "that returned before holding"),
+    ];
+    for (n, why) in skipped {
+        if n > 0 {
+            writeln!(out, "  not scored: {n} setpoint change(s) {why}")?;
+        }
+    }
+    writeln!(out)?;
+
+    let header = [
+        "#",
+        "start",
+        "SP from → to",
+        "settled",
+        "overshoot",
+        "OP sat.",
+        "fastest",
+        "verdict",
+    ];
+    let mut rows: Vec<[String; 8]> = Vec::new();
+    for (i, e) in report.episodes.iter().enumerate() {
+        let start = match load.time_origin {
+            Some(o) => absolute(o, e.start_s),
+            None => format!("{} s", trim(e.start_s)),
+        };
+        rows.push([
+            (i + 1).to_string(),
+            start,
+            format!("{} → {}", trim(e.sp_from), trim(e.sp_to)),
+            opt_s(e.settling_time_s),
+            format!("{:.1} %", e.overshoot_pct),
+            format!("{:.0} %", 100.0 * e.saturation_duty),
+            opt_s(e.min_settling_time_s),
+            verdict_word(e.verdict).to_string(),
+        ]);
+    }
+    if rows.is_empty() {
+        writeln!(out, "No setpoint changes found in the data.")?;
+    } else {
+        let mut widths = header.map(|h| h.chars().count());
+        for r in &rows {
+            for (w, c) in widths.iter_mut().zip(r) {
+                *w = (*w).max(c.chars().count());
+            }
+        }
+        let line = |cells: &[String]| -> String {
+            let mut s = String::new();
+            for (i, (c, w)) in cells.iter().zip(widths).enumerate() {
+                let pad = w - c.chars().count();
+                // Numbers right-aligned, words left-aligned.
+                if matches!(i, 0 | 3 | 4 | 5 | 6) {
+                    s.push_str(&" ".repeat(pad));
+                    s.push_str(c);
+                } else {
+                    s.push_str(c);
+                    s.push_str(&" ".repeat(pad));
+                }
+                s.push_str("  ");
+            }
+            s.trim_end().to_string()
+        };
+        writeln!(out, "{}", line(&header.map(String::from)))?;
+        for r in &rows {
+            writeln!(out, "{}", line(r))?;
+        }
+        writeln!(out)?;
+        writeln!(
+            out,
+            "settled = time until the PV stays inside the band; fastest = quickest settling the OP \
+             limit allows (t*)."
+        )?;
+        let odd: Vec<String> = report
+            .episodes
+            .iter()
+            .enumerate()
+            .filter(|(_, e)| e.verdict == Verdict::Inconclusive)
+            .map(|(i, e)| format!("  #{}: {}", i + 1, e.reason))
+            .collect();
+        if !odd.is_empty() {
+            writeln!(out, "Inconclusive:")?;
+            for l in odd {
+                writeln!(out, "{l}")?;
+            }
+        }
+    }
+    writeln!(out)?;
+    match (&report.model, &report.model_refusal) {
+        (Some(m), _) => writeln!(
+            out,
+            "Process model (first order + dead time): gain {:.4} PV/OP, time constant {:.1} s, \
+             dead time {:.1} s; explains {:.1} % of PV variation ({} changes)",
+            m.gain,
+            m.time_constant_s,
+            m.dead_time_s,
+            100.0 * m.fit_r2,
+            m.episodes_used
+        )?,
+        (None, Some(why)) => writeln!(out, "Process model: none — {why}")?,
+        (None, None) => writeln!(out, "Process model: none")?,
+    }
+    let c = &report.counts;
+    writeln!(
+        out,
+        "Verdicts: {} met, {} tuning-limited, {} actuator-limited, {} unreachable, {} inconclusive",
+        c.met, c.tuning_limited, c.actuator_limited, c.unreachable, c.inconclusive
+    )?;
+    let r = &report.recommendation;
+    let word = match r.action {
+        Action::None => "no change",
+        Action::Retune => "retune",
+        Action::Renegotiate => "renegotiate the spec",
+        Action::Upgrade => "upgrade the actuator",
+        Action::Undecided => "undecided",
+    };
+    writeln!(out)?;
+    writeln!(out, "Recommendation: {word}")?;
+    writeln!(out, "  {}", r.summary)?;
+    writeln!(out, "  {}", r.caution)?;
+    Ok(())
+}
+
+/// A number without trailing zeros.
+fn trim(x: f64) -> String {
+    let s = format!("{x:.3}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" { "0".into() } else { s.into() }
+}
+
+fn human_duration(s: f64) -> String {
+    if s >= 2.0 * 86_400.0 {
+        format!("{:.1} days", s / 86_400.0)
+    } else if s >= 2.0 * 3600.0 {
+        format!("{:.1} h", s / 3600.0)
+    } else if s >= 120.0 {
+        format!("{:.1} min", s / 60.0)
+    } else {
+        format!("{s:.1} s")
+    }
+}
