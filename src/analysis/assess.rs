@@ -645,19 +645,38 @@ fn recommend(
         })
         .collect();
     let typical_step = signed_median(relevant.iter().map(|e| e.sp_to - e.sp_from));
-    let typical_u0 = median(relevant.iter().map(|e| e.op_start));
+    // The operating point of the changes in the typical direction.
+    let typical_u0 = median(
+        relevant
+            .iter()
+            .filter(|e| (e.sp_to - e.sp_from).signum() == typical_step.signum())
+            .map(|e| e.op_start),
+    );
 
     if !actuator_side {
-        let pi = tuning::suggest(&f, typical_step, typical_u0, setup.op, band, sample_s);
+        let pi = tuning::suggest(
+            &f,
+            typical_step,
+            typical_u0,
+            setup.op,
+            band,
+            sample_s,
+            spec.settle_within_s,
+        );
         let expected = pi
             .expected_settling_time_s
             .map_or("does not settle".to_string(), |s| format!("{s:.0} s"));
+        let saturation_note = if pi.initial_move_fits_headroom {
+            ""
+        } else {
+            " The OP will saturate briefly after each change: the controller needs anti-windup."
+        };
         let mut r = done(
             Action::Retune,
             format!(
                 "{} of {} conclusive changes missed the spec although the actuator had room. \
                  Suggested PI (SIMC, τc = {:.0} s): Kc = {:.4}, τI = {:.0} s; expected settling \
-                 for a {:+.3} change: {} (spec {:.0} s).",
+                 for a {:+.3} change: {} (spec {:.0} s).{}",
                 c.tuning_limited,
                 conclusive,
                 pi.closed_loop_time_constant_s,
@@ -665,7 +684,8 @@ fn recommend(
                 pi.integral_time_s,
                 typical_step,
                 expected,
-                spec.settle_within_s
+                spec.settle_within_s,
+                saturation_note
             ),
         );
         r.retune = Some(pi);

@@ -268,4 +268,119 @@ mod tests {
         assert!((m.saturation_duty - 0.75).abs() < 1e-12);
         assert_eq!(m.peak_op, 100.0);
     }
+
+    mod properties {
+        use super::super::*;
+        use proptest::prelude::*;
+
+        /// A noisy second-order-like response sampled irregularly, from `from` to `to`.
+        fn response(
+            from: f64,
+            to: f64,
+            zeta: f64,
+            wn: f64,
+            jitter: &[f64],
+        ) -> (Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>) {
+            let mut t = Vec::new();
+            let mut s = 0.0;
+            for j in jitter {
+                t.push(s);
+                s += 0.05 + j;
+            }
+            let wd = wn * (1.0 - zeta * zeta).sqrt();
+            let phi = (1.0 - zeta * zeta).sqrt().atan2(zeta);
+            let pv: Vec<f64> = t
+                .iter()
+                .map(|&x| {
+                    let unit = 1.0
+                        - (-zeta * wn * x).exp() / (1.0 - zeta * zeta).sqrt()
+                            * (wd * x + phi).sin();
+                    from + (to - from) * unit
+                })
+                .collect();
+            let sp = vec![to; t.len()];
+            let op: Vec<f64> = pv.iter().map(|y| 50.0 + (to - y)).collect();
+            (t, sp, pv, op)
+        }
+
+        fn score(t: &[f64], sp: &[f64], pv: &[f64], op: &[f64], from: f64, to: f64) -> StepMetrics {
+            step_metrics(
+                Response {
+                    time_s: t,
+                    sp,
+                    pv,
+                    op,
+                },
+                from,
+                to,
+                0.02,
+                OpRange {
+                    min: 0.0,
+                    max: 100.0,
+                },
+                0.005,
+                1.0,
+            )
+            .unwrap()
+        }
+
+        fn close(a: Option<f64>, b: Option<f64>, tol: f64) -> bool {
+            match (a, b) {
+                (Some(x), Some(y)) => (x - y).abs() <= tol * (1.0 + x.abs()),
+                (None, None) => true,
+                _ => false,
+            }
+        }
+
+        proptest! {
+            #[test]
+            fn metrics_do_not_depend_on_where_time_starts(
+                shift in -1e6f64..1e6,
+                zeta in 0.2f64..1.0,
+                jitter in proptest::collection::vec(0.0f64..0.05, 50..400),
+            ) {
+                let (t, sp, pv, op) = response(20.0, 30.0, zeta, 1.0, &jitter);
+                let shifted: Vec<f64> = t.iter().map(|x| x + shift).collect();
+                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = score(&shifted, &sp, &pv, &op, 20.0, 30.0);
+                prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-6));
+                prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
+                prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-9);
+                prop_assert!((a.iae_per_delta_s - b.iae_per_delta_s).abs() < 1e-6 * (1.0 + a.iae_per_delta_s));
+            }
+
+            #[test]
+            fn metrics_scale_with_the_pv(
+                scale in 0.001f64..1000.0,
+                offset in -500f64..500.0,
+                zeta in 0.2f64..1.0,
+                jitter in proptest::collection::vec(0.0f64..0.05, 50..400),
+            ) {
+                // Percentages and times are unchanged when PV, SP and Δ are scaled together.
+                let (t, sp, pv, op) = response(20.0, 30.0, zeta, 1.0, &jitter);
+                let map = |v: &[f64]| -> Vec<f64> { v.iter().map(|y| offset + scale * y).collect() };
+                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = score(&t, &map(&sp), &map(&pv), &op, offset + scale * 20.0, offset + scale * 30.0);
+                prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-9));
+                prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
+                prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-6 * (1.0 + a.overshoot_pct));
+                prop_assert!((a.iae_per_delta_s - b.iae_per_delta_s).abs() < 1e-6 * (1.0 + a.iae_per_delta_s));
+            }
+
+            #[test]
+            fn a_downward_change_scores_like_its_mirror_image(
+                zeta in 0.2f64..1.0,
+                wn in 0.2f64..3.0,
+                jitter in proptest::collection::vec(0.0f64..0.05, 50..400),
+            ) {
+                let (t, sp, pv, op) = response(20.0, 30.0, zeta, wn, &jitter);
+                let mirror = |v: &[f64]| -> Vec<f64> { v.iter().map(|y| 50.0 - y).collect() };
+                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = score(&t, &mirror(&sp), &mirror(&pv), &op, 30.0, 20.0);
+                prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-9));
+                prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
+                prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-6 * (1.0 + a.overshoot_pct));
+            }
+        }
+    }
 }

@@ -21,6 +21,9 @@ pub struct PiSuggestion {
     /// with the OP limits; `None` when the simulated response does not settle.
     pub expected_settling_time_s: Option<f64>,
     pub expected_overshoot_pct: f64,
+    /// Whether the controller's initial OP move Kc·|Δ| fits the headroom; when it does not, the
+    /// OP saturates briefly after a change and the controller needs anti-windup.
+    pub initial_move_fits_headroom: bool,
 }
 
 /// SIMC PI for an FOPDT: Kc = (1/K)·τ/(τc + θ), τI = min(τ, 4(τc + θ)).
@@ -44,6 +47,13 @@ pub fn tau_c_for_headroom(m: &Fopdt, delta: f64, h: f64, floor_s: f64) -> f64 {
 
 /// Suggests PI settings for a typical change `delta` from operating point `u0`, and predicts the
 /// response on the model with the actuator range. `sample_s` is the loop's sample interval.
+///
+/// τc starts where the controller's initial OP move fits the headroom (never below θ). If the
+/// response predicted with those settings misses `spec_s`, τc is tightened step by step towards θ
+/// and the largest τc that meets the spec is taken: the OP then saturates briefly after a change,
+/// which a controller with anti-windup handles (the prediction includes the clamp). If even τc = θ
+/// misses, that fastest robust setting is returned with its predicted settling time.
+#[allow(clippy::too_many_arguments)]
 pub fn suggest(
     m: &Fopdt,
     delta: f64,
@@ -51,19 +61,40 @@ pub fn suggest(
     op: OpRange,
     band: f64,
     sample_s: f64,
+    spec_s: f64,
 ) -> PiSuggestion {
     let dir = super::feasibility::op_direction(m.gain, delta);
     let h = super::feasibility::headroom(u0, dir, op.min, op.max);
-    let tau_c = tau_c_for_headroom(m, delta, h, sample_s.max(1e-6));
-    let (kc, ti) = simc_pi(m, tau_c);
-    let (settle, overshoot) = predict(m, kc, ti, delta, u0, op, band, sample_s);
-    PiSuggestion {
-        gain: kc,
-        integral_time_s: ti,
-        closed_loop_time_constant_s: tau_c,
-        expected_settling_time_s: settle,
-        expected_overshoot_pct: overshoot,
+    let floor = m.dead_time_s.max(sample_s.max(1e-6));
+    let fitted = tau_c_for_headroom(m, delta, h, floor);
+    let evaluate = |tau_c: f64| -> PiSuggestion {
+        let (kc, ti) = simc_pi(m, tau_c);
+        let (settle, overshoot) = predict(m, kc, ti, delta, u0, op, band, sample_s);
+        PiSuggestion {
+            gain: kc,
+            integral_time_s: ti,
+            closed_loop_time_constant_s: tau_c,
+            expected_settling_time_s: settle,
+            expected_overshoot_pct: overshoot,
+            initial_move_fits_headroom: (kc * delta).abs() <= h * (1.0 + 1e-9),
+        }
+    };
+    let meets = |s: &PiSuggestion| s.expected_settling_time_s.is_some_and(|t| t <= spec_s);
+    let first = evaluate(fitted);
+    if meets(&first) || fitted <= floor {
+        return first;
     }
+    const STEPS: usize = 12;
+    let mut fastest = first;
+    for k in 1..=STEPS {
+        let tau_c = fitted * (floor / fitted).powf(k as f64 / STEPS as f64);
+        let s = evaluate(tau_c);
+        if meets(&s) {
+            return s;
+        }
+        fastest = s;
+    }
+    fastest
 }
 
 /// Simulates a setpoint change on the model under the given PI with the OP limits and scores it.
@@ -211,8 +242,31 @@ mod tests {
             },
             0.02,
             1.0,
+            1e6,
         );
         assert!(s.gain < 0.0);
         assert!(s.expected_settling_time_s.is_some());
+        assert!(s.initial_move_fits_headroom);
+    }
+
+    #[test]
+    fn tau_c_is_tightened_below_the_headroom_fit_when_that_misses_the_spec() {
+        let m = Fopdt {
+            gain: 0.55,
+            time_constant_s: 600.0,
+            dead_time_s: 35.0,
+        };
+        let op = OpRange {
+            min: 0.0,
+            max: 100.0,
+        };
+        let relaxed = suggest(&m, 5.0, 80.0, op, 0.02, 10.0, 1e6);
+        assert!(relaxed.initial_move_fits_headroom, "{relaxed:?}");
+        let spec = 0.8 * relaxed.expected_settling_time_s.unwrap();
+        let tight = suggest(&m, 5.0, 80.0, op, 0.02, 10.0, spec);
+        assert!(tight.closed_loop_time_constant_s < relaxed.closed_loop_time_constant_s);
+        assert!(tight.closed_loop_time_constant_s >= m.dead_time_s);
+        assert!(tight.expected_settling_time_s.unwrap() <= spec, "{tight:?}");
+        assert!(!tight.initial_move_fits_headroom, "{tight:?}");
     }
 }

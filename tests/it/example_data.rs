@@ -1,0 +1,117 @@
+//! The example export shipped in config/: a day of loop TIC-101 at the Wrenmoor pilot plant (an
+//! invented plant). The file is made by the simulator; this test keeps it in step with the
+//! generator (set HEADROOM_REGENERATE=1 to rewrite it) and checks that it shows what it is there
+//! to show: a loop whose misses are partly tuning and partly the steam valve.
+
+use crate::helpers::headroom_bin;
+use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use std::fmt::Write;
+use std::path::PathBuf;
+
+const FILE: &str = "config/example-tic-101.csv";
+
+/// Reactor R-1 jacket temperature: steam valve TV-101 (0–100 %) heats a 150 L water-filled jacket.
+/// Invented numbers chosen to look like a small jacketed vessel: about 0.55 °C per % of valve,
+/// a 10-minute time constant and 40 s of dead time; the controller is tuned on the slow side.
+fn generate() -> String {
+    let mut sim = LoopSim::new(LoopSimConfig {
+        process: Process {
+            gain: 0.55,
+            time_constant_s: 600.0,
+            second_time_constant_s: 0.0,
+            dead_time_s: 40.0,
+            bias: 20.0,
+        },
+        controller: PiController {
+            gain: 3.0,
+            integral_time_s: 600.0,
+            op_min: 0.0,
+            op_max: 100.0,
+        },
+        step_s: 1.0,
+        noise_sd: 0.03,
+        seed: 101,
+        initial_sp: 50.0,
+    });
+    let schedule = [
+        (1800.0, 55.0),
+        (9000.0, 60.0),
+        (16200.0, 52.0),
+        (23400.0, 70.0),
+        (30600.0, 62.0),
+        (37800.0, 50.0),
+        (45000.0, 58.0),
+        (52200.0, 76.0),
+        (59400.0, 60.0),
+        (66600.0, 65.0),
+        (73800.0, 50.0),
+        (81000.0, 56.0),
+    ];
+    let samples = sim.run(&schedule, 86_400.0, 10.0);
+    let origin: jiff::Timestamp = "2026-11-23T00:00:00Z".parse().unwrap();
+    let mut out = String::from("time,sp,pv,op\n");
+    for s in samples {
+        let t = origin
+            .checked_add(jiff::SignedDuration::from_secs(s.time_s.round() as i64))
+            .unwrap();
+        writeln!(out, "{t},{},{:.3},{:.2}", s.sp, s.pv, s.op).unwrap();
+    }
+    out
+}
+
+fn path() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join(FILE)
+}
+
+#[test]
+fn the_example_export_is_what_the_generator_makes() {
+    let want = generate();
+    if std::env::var_os("HEADROOM_REGENERATE").is_some() {
+        std::fs::write(path(), &want).unwrap();
+    }
+    let have = std::fs::read_to_string(path()).expect("config/example-tic-101.csv is missing");
+    assert!(
+        have == want,
+        "{FILE} is out of date: run with HEADROOM_REGENERATE=1"
+    );
+}
+
+#[test]
+fn the_example_shows_both_tuning_and_actuator_limits() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let out = std::process::Command::new(headroom_bin())
+        .current_dir(root)
+        .args([
+            "analyze",
+            FILE,
+            "--config",
+            "config/headroom.toml",
+            "--loop",
+            "TIC-101",
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let count = |k: &str| v["counts"][k].as_u64().unwrap();
+    assert_eq!(v["episodes"].as_array().unwrap().len(), 12);
+    assert!(count("tuning_limited") >= 2, "{}", v["counts"]);
+    assert!(
+        count("actuator_limited") + count("unreachable") >= 2,
+        "{}",
+        v["counts"]
+    );
+    // The 58 → 76 °C change asks for more than the valve can give from its operating point.
+    let big = v["episodes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|e| e["sp_to"] == 76.0)
+        .unwrap();
+    assert_eq!(big["verdict"], "unreachable");
+}
