@@ -1,9 +1,354 @@
-//! `headroom bench`: measures this machine. Filled in below.
+//! `headroom bench`: measures this machine, each figure beside the ceiling or reference it is
+//! compared with, in one run. A benchmark measures; it asserts nothing — the figures go in the
+//! README's performance section.
+//!
+//! Measured now:
+//! - analysis of a week of one loop at 1 Hz (604,800 samples, about 100 setpoint changes), from
+//!   a loaded series to verdicts, and from the CSV file to verdicts, against the 0.2 s target;
+//! - per-episode scoring + identification beside python-control `step_info` + scipy `curve_fit`
+//!   of an FOPDT model on the same episode files (run through `tests/reference/bench_python.py`).
+
+use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Series, Spec};
+use crate::csvload::{self, CsvOptions};
+use anyhow::Context;
 use clap::Args;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
 
 #[derive(Debug, Args)]
-pub struct BenchArgs {}
+pub struct BenchArgs {
+    /// Python interpreter with numpy, scipy and control for the side-by-side comparison
+    /// (default: target/pyenv/bin/python if present, else python3).
+    #[arg(long, value_name = "PATH")]
+    pub python: Option<PathBuf>,
+    /// Episodes for the per-episode comparison.
+    #[arg(long, default_value_t = 200)]
+    pub episodes: usize,
+    /// Repetitions of each timing; the median is reported.
+    #[arg(long, default_value_t = 5)]
+    pub repeat: usize,
+}
 
-pub fn run(_args: &BenchArgs, _out: &mut dyn std::io::Write) -> anyhow::Result<()> {
-    anyhow::bail!("not yet")
+/// The target for a week of one loop at 1 Hz, end to end.
+const WEEK_TARGET_S: f64 = 0.2;
+/// The speed-up over the Python reference libraries that the per-episode work must reach.
+const SPEEDUP_TARGET: f64 = 100.0;
+
+pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
+    let repeat = args.repeat.max(1);
+    writeln!(out, "headroom bench — {} CPU(s) available", cpus())?;
+    writeln!(out)?;
+
+    // 1. A week of one loop at 1 Hz.
+    let (series, setup) = week_of_one_loop();
+    let changes = analysis::analyze_loop(&series, &setup).episodes.len();
+    let core = median_time(repeat, || {
+        std::hint::black_box(analysis::analyze_loop(&series, &setup));
+    });
+    let dir = tempfile_dir()?;
+    let csv = dir.join("week.csv");
+    write_csv(&series, &csv)?;
+    let from_csv = median_time(repeat, || {
+        let f = std::fs::File::open(&csv).expect("bench file");
+        let loaded = csvload::load_csv(std::io::BufReader::new(f), &CsvOptions::default())
+            .expect("bench file loads");
+        std::hint::black_box(analysis::analyze_loop(&loaded.series, &setup));
+    });
+    writeln!(
+        out,
+        "week of one loop at 1 Hz ({} samples, {} setpoint changes)",
+        series.len(),
+        changes
+    )?;
+    row(out, "  series → verdicts", core, WEEK_TARGET_S, "target")?;
+    row(
+        out,
+        "  CSV file → verdicts",
+        from_csv,
+        WEEK_TARGET_S,
+        "target",
+    )?;
+    writeln!(out)?;
+
+    // 2. Per episode, beside the Python reference libraries.
+    let script = script_path();
+    let python = args.python.clone().unwrap_or_else(default_python);
+    let episodes_dir = dir.join("episodes");
+    writeln!(
+        out,
+        "per episode: scoring + identification ({} episodes) beside python-control step_info + \
+         scipy curve_fit",
+        args.episodes
+    )?;
+    match python_side(&python, &script, &episodes_dir, args.episodes) {
+        Ok(py) => {
+            let ours = ours_per_episode(&episodes_dir, repeat)?;
+            writeln!(out, "  headroom            {:>10.3} ms/episode", 1e3 * ours)?;
+            writeln!(
+                out,
+                "  Python reference    {:>10.3} ms/episode ({})",
+                1e3 * py.seconds_per_episode,
+                py.versions
+            )?;
+            let ratio = py.seconds_per_episode / ours;
+            writeln!(
+                out,
+                "  speed-up            {:>10.0}×   target ≥ {SPEEDUP_TARGET:.0}× — {}",
+                ratio,
+                if ratio >= SPEEDUP_TARGET {
+                    "met"
+                } else {
+                    "MISSED"
+                }
+            )?;
+        }
+        Err(e) => writeln!(out, "  Python side not measured: {e:#}")?,
+    }
+    writeln!(out)?;
+    if let Some(kb) = peak_rss_kb() {
+        writeln!(
+            out,
+            "peak resident memory of this run: {:.1} MB",
+            kb as f64 / 1024.0
+        )?;
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+    Ok(())
+}
+
+fn row(
+    out: &mut dyn Write,
+    what: &str,
+    secs: f64,
+    ceiling: f64,
+    word: &str,
+) -> std::io::Result<()> {
+    writeln!(
+        out,
+        "{what:<24}{:>10.1} ms   {word} < {:.0} ms — {} ({:.0} % of it)",
+        1e3 * secs,
+        1e3 * ceiling,
+        if secs < ceiling { "met" } else { "MISSED" },
+        100.0 * secs / ceiling
+    )
+}
+
+/// Median wall time of `n` runs of `f`, in seconds.
+fn median_time(n: usize, mut f: impl FnMut()) -> f64 {
+    let mut times: Vec<f64> = (0..n)
+        .map(|_| {
+            let t = Instant::now();
+            f();
+            t.elapsed().as_secs_f64()
+        })
+        .collect();
+    times.sort_by(f64::total_cmp);
+    times[times.len() / 2]
+}
+
+/// A simulated week of a heating loop at 1 Hz with a setpoint change about every 100 minutes,
+/// alternating sizes so every verdict kind can occur.
+pub fn week_of_one_loop() -> (Series, LoopSetup) {
+    let mut sim = LoopSim::new(LoopSimConfig {
+        process: Process {
+            gain: 0.8,
+            time_constant_s: 300.0,
+            second_time_constant_s: 0.0,
+            dead_time_s: 30.0,
+            bias: 20.0,
+        },
+        controller: PiController {
+            gain: 4.0,
+            integral_time_s: 300.0,
+            op_min: 0.0,
+            op_max: 100.0,
+        },
+        step_s: 0.5,
+        noise_sd: 0.02,
+        seed: 604_800,
+        initial_sp: 50.0,
+    });
+    let sizes = [5.0, -3.0, 8.0, -10.0, 25.0, -25.0, 4.0, -4.0];
+    let mut sp = 50.0;
+    let schedule: Vec<(f64, f64)> = (0..100)
+        .map(|i| {
+            sp += sizes[i % sizes.len()];
+            (3000.0 + 6000.0 * i as f64, sp)
+        })
+        .collect();
+    let s = sim.run(&schedule, 604_799.0, 1.0);
+    let series = Series::new(
+        s.iter().map(|x| x.time_s).collect(),
+        s.iter().map(|x| x.sp).collect(),
+        s.iter().map(|x| x.pv).collect(),
+        s.iter().map(|x| x.op).collect(),
+        None,
+    )
+    .expect("simulated series is valid");
+    let setup = LoopSetup {
+        tag: "TIC-900".into(),
+        op: OpRange {
+            min: 0.0,
+            max: 100.0,
+        },
+        spec: Spec {
+            settle_band_pct: 2.0,
+            settle_within_s: 600.0,
+            max_overshoot_pct: Some(10.0),
+        },
+        options: AnalysisOptions::default(),
+    };
+    (series, setup)
+}
+
+fn write_csv(s: &Series, path: &Path) -> anyhow::Result<()> {
+    let f =
+        std::fs::File::create(path).with_context(|| format!("cannot write {}", path.display()))?;
+    let mut w = std::io::BufWriter::new(f);
+    writeln!(w, "time,sp,pv,op")?;
+    for i in 0..s.len() {
+        writeln!(
+            w,
+            "{},{},{:.4},{:.3}",
+            s.time_s()[i],
+            s.sp()[i],
+            s.pv()[i],
+            s.op()[i]
+        )?;
+    }
+    w.flush()?;
+    Ok(())
+}
+
+struct PythonResult {
+    seconds_per_episode: f64,
+    versions: String,
+}
+
+fn python_side(python: &Path, script: &Path, dir: &Path, n: usize) -> anyhow::Result<PythonResult> {
+    let output = std::process::Command::new(python)
+        .arg(script)
+        .args(["--generate", &n.to_string(), "--out"])
+        .arg(dir)
+        .args(["--csv-dir"])
+        .arg(dir)
+        .arg("--json")
+        .output()
+        .with_context(|| format!("cannot run {}", python.display()))?;
+    if !output.status.success() {
+        anyhow::bail!(
+            "{} {} failed: {}",
+            python.display(),
+            script.display(),
+            String::from_utf8_lossy(&output.stderr).trim()
+        );
+    }
+    let text = String::from_utf8_lossy(&output.stdout);
+    let line = text
+        .lines()
+        .rev()
+        .find(|l| l.trim_start().starts_with('{'))
+        .context("the Python side printed no JSON")?;
+    let v: serde_json::Value = serde_json::from_str(line)?;
+    let per = v["seconds_per_episode"]
+        .as_f64()
+        .context("no seconds_per_episode from the Python side")?;
+    let versions = ["python", "numpy", "scipy", "control"]
+        .iter()
+        .filter_map(|k| v[*k].as_str().map(|s| format!("{k} {s}")))
+        .collect::<Vec<_>>()
+        .join(", ");
+    Ok(PythonResult {
+        seconds_per_episode: per,
+        versions,
+    })
+}
+
+/// Our time per episode on the files the Python side generated and timed: loading excluded, as
+/// on the Python side; each file is analysed with its own limits and spec from the manifest.
+fn ours_per_episode(dir: &Path, repeat: usize) -> anyhow::Result<f64> {
+    let manifest: serde_json::Value = serde_json::from_slice(
+        &std::fs::read(dir.join("manifest.json"))
+            .context("no manifest.json from the Python side")?,
+    )?;
+    let mut work = Vec::new();
+    for m in manifest.as_array().context("manifest is not a list")? {
+        let file = dir.join(m["file"].as_str().context("manifest entry without file")?);
+        let f = std::fs::File::open(&file)?;
+        let loaded = csvload::load_csv(std::io::BufReader::new(f), &CsvOptions::default())
+            .map_err(|e| anyhow::anyhow!("{}: {e}", file.display()))?;
+        let num = |k: &str| {
+            m[k].as_f64()
+                .with_context(|| format!("manifest entry without {k}"))
+        };
+        let setup = LoopSetup {
+            tag: "bench".into(),
+            op: OpRange {
+                min: num("op_min")?,
+                max: num("op_max")?,
+            },
+            spec: Spec {
+                settle_band_pct: num("settle_band_pct")?,
+                settle_within_s: num("settle_within_s")?,
+                max_overshoot_pct: None,
+            },
+            options: AnalysisOptions::default(),
+        };
+        work.push((loaded.series, setup));
+    }
+    anyhow::ensure!(!work.is_empty(), "no episodes to time");
+    // Scoring, identification and verdicts: the work the Python side does. The loop
+    // recommendation (which simulates suggested tunings) runs once per loop, not per episode.
+    let total = median_time(repeat, || {
+        for (s, setup) in &work {
+            std::hint::black_box(analysis::assess::assess(s, setup));
+        }
+    });
+    Ok(total / work.len() as f64)
+}
+
+fn script_path() -> PathBuf {
+    let local = PathBuf::from("tests/reference/bench_python.py");
+    if local.exists() {
+        local
+    } else {
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/bench_python.py")
+    }
+}
+
+fn default_python() -> PathBuf {
+    for root in [
+        PathBuf::from("."),
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")),
+    ] {
+        let p = root.join("target/pyenv/bin/python");
+        if p.exists() {
+            return p;
+        }
+    }
+    PathBuf::from("python3")
+}
+
+fn tempfile_dir() -> anyhow::Result<PathBuf> {
+    let dir = std::env::temp_dir().join(format!("headroom-bench-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).with_context(|| format!("cannot create {}", dir.display()))?;
+    Ok(dir)
+}
+
+fn cpus() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
+
+/// Peak resident set size of this process (Linux), in kB.
+fn peak_rss_kb() -> Option<u64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    status
+        .lines()
+        .find(|l| l.starts_with("VmHWM:"))?
+        .split_whitespace()
+        .nth(1)?
+        .parse()
+        .ok()
 }

@@ -168,7 +168,7 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
         (Some(m), _) => writeln!(
             out,
             "Process model (first order + dead time): gain {:.4} PV/OP, time constant {:.1} s, \
-             dead time {:.1} s; explains {:.1} % of PV variation ({} changes)",
+             dead time {:.1} s; explains {:.2} % of PV variation ({} changes)",
             m.gain,
             m.time_constant_s,
             m.dead_time_s,

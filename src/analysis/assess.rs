@@ -204,8 +204,38 @@ pub struct LoopReport {
     pub recommendation: Recommendation,
 }
 
-/// Analyses one loop's data end to end.
+/// Episodes, model and data facts of one loop: everything but the recommendation.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Assessment {
+    pub episodes: Vec<EpisodeResult>,
+    pub model: Result<Model, Refusal>,
+    pub data: DataSummary,
+}
+
+/// Analyses one loop's data end to end: [`assess`] then [`recommend`].
 pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
+    let a = assess(series, setup);
+    let recommendation = recommend(
+        &a.episodes,
+        a.model.as_ref().ok(),
+        setup,
+        a.data.median_sample_s,
+    );
+    LoopReport {
+        tag: setup.tag.clone(),
+        model: a.model.as_ref().ok().copied(),
+        model_refusal: a.model.as_ref().err().map(Refusal::to_string),
+        spec: setup.spec,
+        op_range: setup.op,
+        data: a.data,
+        counts: VerdictCounts::of(&a.episodes),
+        episodes: a.episodes,
+        recommendation,
+    }
+}
+
+/// Scores every setpoint change, identifies the process and gives each change its verdict.
+pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
     let opts = &setup.options;
     let t = series.time_s();
     let n = series.len();
@@ -253,13 +283,9 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         .iter()
         .map(|s| judge(series, s, setup, band, model.as_ref().ok()))
         .collect();
-    let recommendation = recommend(&episodes, model.as_ref().ok(), setup, band, median_dt);
-    LoopReport {
-        tag: setup.tag.clone(),
-        model: model.as_ref().ok().copied(),
-        model_refusal: model.as_ref().err().map(Refusal::to_string),
-        spec: setup.spec,
-        op_range: setup.op,
+    Assessment {
+        episodes,
+        model,
         data: DataSummary {
             samples: n,
             duration_s: if n > 0 { t[n - 1] - t[0] } else { 0.0 },
@@ -271,9 +297,6 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
             changes_in_gaps: seg.changes_in_gaps,
             returned_excursions: seg.returned_excursions,
         },
-        counts: VerdictCounts::of(&episodes),
-        episodes,
-        recommendation,
     }
 }
 
@@ -589,13 +612,15 @@ fn capacity_ratio(required_limit: f64, dir: f64, op: OpRange) -> f64 {
     (required_limit - other).abs() / (limit - other).abs()
 }
 
-fn recommend(
+/// The loop's recommendation from its judged episodes: none, retune (SIMC settings), or, when
+/// the actuator is what misses the spec, upgrade or renegotiate with the numbers for both.
+pub fn recommend(
     episodes: &[EpisodeResult],
     model: Option<&Model>,
     setup: &LoopSetup,
-    band: f64,
     sample_s: f64,
 ) -> Recommendation {
+    let band = setup.spec.settle_band_pct / 100.0;
     let c = VerdictCounts::of(episodes);
     let conclusive = episodes.len() - c.inconclusive;
     let actuator_misses = c.unreachable + c.actuator_limited;
@@ -689,6 +714,24 @@ fn recommend(
             ),
         );
         r.retune = Some(pi);
+        if actuator_misses > 0 {
+            // The minority of misses that retuning cannot fix, with the step size that would.
+            let big: Vec<&EpisodeResult> = episodes
+                .iter()
+                .filter(|e| matches!(e.verdict, Verdict::Unreachable | Verdict::ActuatorLimited))
+                .collect();
+            let u0 = median(big.iter().map(|e| e.op_start));
+            let step = signed_median(big.iter().map(|e| e.sp_to - e.sp_from));
+            let dir = feasibility::op_direction(f.gain, step);
+            let h = feasibility::headroom(u0, dir, setup.op.min, setup.op.max);
+            let largest = feasibility::largest_compliant_step(&f, h, band, spec.settle_within_s);
+            r.summary.push_str(&format!(
+                " Separately, {actuator_misses} change(s) asked more than the actuator can give{}.",
+                largest.map_or(String::new(), |d| format!(
+                    "; from OP {u0:.1}, changes up to {d:.3} can meet the spec"
+                ))
+            ));
+        }
         return r;
     }
 
@@ -768,6 +811,13 @@ fn recommend(
         )
     };
     r.actuator = Some(evidence);
+    if c.tuning_limited > 0 {
+        r.summary.push_str(&format!(
+            " Separately, {} change(s) missed although the actuator had room: retuning would help \
+             those.",
+            c.tuning_limited
+        ));
+    }
     r
 }
 

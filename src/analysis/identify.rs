@@ -8,7 +8,8 @@
 //! giving a unit-gain simulated response s. The PV is then fitted as `c_e + K·s + z_e·a^k` —
 //! one shared gain, and per episode an offset and a free initial transient (a = e^(−h/τ)) —
 //! which is linear in (K, c_e, z_e) and solved in closed form. The sum of squared errors is
-//! minimised over (ln τ, θ) by a coarse grid and then Nelder–Mead.
+//! minimised over (ln τ, θ): an ARX regression with a dead-time scan seeds the search, a few
+//! probes guard against a poor seed, and Nelder–Mead polishes the best.
 //!
 //! Why output error rather than an ARX regression: with measurement noise on the PV the ARX
 //! regressor y[k] is noisy and biases τ low; simulating from the OP alone keeps the noise out of
@@ -104,7 +105,7 @@ pub struct IdentifySettings {
 impl Default for IdentifySettings {
     fn default() -> Self {
         IdentifySettings {
-            max_points_per_episode: 400,
+            max_points_per_episode: 200,
             max_episodes: 60,
             min_r2: 0.6,
         }
@@ -231,34 +232,56 @@ pub fn identify(
     }
     .max(min_h);
 
-    let cost = |ln_tau: f64, theta: f64| -> f64 {
+    // The search runs first on a thinned copy (at most COARSE_POINTS per episode), then polishes
+    // on the full data from the coarse optimum: most cost evaluations are then cheap ones.
+    const COARSE_POINTS: usize = 60;
+    let coarse: Vec<Prepared> = prepared.iter().map(|p| p.thinned(COARSE_POINTS)).collect();
+    let cost_on = |data: &[Prepared], ln_tau: f64, theta: f64| -> f64 {
         let tau = ln_tau.clamp(tau_lo.ln(), tau_hi.ln()).exp();
         let theta = theta.clamp(0.0, theta_hi);
-        fit_linear(&prepared, tau, theta).sse
+        fit_linear(data, tau, theta).sse
     };
+    let cost = |ln_tau: f64, theta: f64| cost_on(&coarse, ln_tau, theta);
 
-    // Coarse grid over (ln τ, θ), then Nelder–Mead from the three best grid points: the valley
-    // of the cost is narrow along θ when the data are informative.
-    const GRID_TAU: usize = 32;
-    const GRID_THETA: usize = 24;
+    // Seed: an ARX regression with a scan over the dead time gives (τ, θ) in one cheap pass per
+    // candidate delay. PV noise biases it, so it only seeds the output-error search: a few probes
+    // around the seed and across the search box guard against a poor one, and Nelder–Mead
+    // polishes the best probe.
     let (l0, l1) = (tau_lo.ln(), tau_hi.ln());
-    let mut grid: Vec<(f64, f64, f64)> = Vec::with_capacity(GRID_TAU * GRID_THETA);
-    for i in 0..GRID_TAU {
-        let lt = l0 + (l1 - l0) * i as f64 / (GRID_TAU - 1) as f64;
-        for j in 0..GRID_THETA {
-            let th = theta_hi * j as f64 / (GRID_THETA - 1) as f64;
-            grid.push((cost(lt, th), lt, th));
+    let (tau_seed, theta_seed) =
+        arx_seed(&coarse, theta_hi).unwrap_or(((l0 + l1) / 2.0, 0.2 * theta_hi));
+    let lt_seed = tau_seed.clamp(tau_lo, tau_hi).ln();
+    let mut probes: Vec<(f64, f64)> = Vec::with_capacity(24);
+    for ft in [0.5f64, 1.0, 2.0] {
+        for th in [0.5 * theta_seed, theta_seed, 1.5 * theta_seed + min_h] {
+            probes.push((lt_seed + ft.ln(), th));
         }
     }
-    grid.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let step_lt = (l1 - l0) / (GRID_TAU - 1) as f64;
-    let step_th = (theta_hi / (GRID_THETA - 1) as f64).max(min_h);
-    let (lt, th) = grid
+    for fl in [0.2, 0.5, 0.8] {
+        for fth in [0.1, 0.5] {
+            probes.push((l0 + fl * (l1 - l0), fth * theta_hi));
+        }
+    }
+    let (_, lt_best, th_best) = probes
         .iter()
-        .take(3)
-        .map(|&(_, lt, th)| nelder_mead(|p| cost(p[0], p[1]), [lt, th], [step_lt, step_th], 200))
-        .min_by(|a, b| cost(a.0, a.1).total_cmp(&cost(b.0, b.1)))
-        .unwrap_or((l0, 0.0));
+        .map(|&(lt, th)| (cost(lt, th), lt, th))
+        .min_by(|a, b| a.0.total_cmp(&b.0))
+        .unwrap_or((0.0, lt_seed, theta_seed));
+    let coarse_h = coarse.iter().map(|p| p.h).fold(f64::INFINITY, f64::min);
+    let (lt, th) = nelder_mead(
+        |p| cost(p[0], p[1]),
+        [lt_best, th_best],
+        [0.3, (0.25 * th_best).max(coarse_h)],
+        [3e-3, 0.05 * coarse_h],
+        100,
+    );
+    let (lt, th) = nelder_mead(
+        |p| cost_on(&prepared, p[0], p[1]),
+        [lt, th],
+        [0.05, (0.1 * th).max(min_h)],
+        [1e-3, 0.01 * min_h],
+        60,
+    );
     let tau = lt.clamp(l0, l1).exp();
     let theta = th.clamp(0.0, theta_hi);
     let fit = fit_linear(&prepared, tau, theta);
@@ -286,22 +309,122 @@ pub fn identify(
     })
 }
 
+/// Seeds the search with an ARX fit y[k+1] = a·y[k] + b·u[k−d] + c per episode, scanning the
+/// dead time over up to 24 candidates in [0, `theta_hi`] and keeping the one with the least total
+/// squared error. Returns (τ, θ) with τ the median of −h/ln a over the episodes, or `None` when
+/// no candidate gives a usable pole (0 < a < 1).
+fn arx_seed(segments: &[Prepared], theta_hi: f64) -> Option<(f64, f64)> {
+    let min_h = segments.iter().map(|p| p.h).fold(f64::INFINITY, f64::min);
+    let candidates = ((theta_hi / min_h).ceil() as usize).clamp(1, 24);
+    let mut best: Option<(f64, f64, Vec<f64>)> = None;
+    for j in 0..=candidates {
+        let theta = theta_hi * j as f64 / candidates as f64;
+        let mut sse = 0.0;
+        let mut taus = Vec::with_capacity(segments.len());
+        for seg in segments {
+            let d = (theta / seg.h).round() as usize;
+            let n = seg.y.len();
+            // Normal equations of [y, u, 1].
+            let mut m = [[0.0f64; 3]; 3];
+            let mut r = [0.0f64; 3];
+            let mut yy1 = 0.0;
+            for k in 0..n.saturating_sub(1) {
+                let x = [seg.y[k], seg.u[k.saturating_sub(d)], 1.0];
+                let y1 = seg.y[k + 1];
+                for a in 0..3 {
+                    for b in 0..3 {
+                        m[a][b] += x[a] * x[b];
+                    }
+                    r[a] += x[a] * y1;
+                }
+                yy1 += y1 * y1;
+            }
+            let Some(p) = solve3(m, r) else { continue };
+            sse += (yy1 - (p[0] * r[0] + p[1] * r[1] + p[2] * r[2])).max(0.0);
+            if p[0] > 0.0 && p[0] < 1.0 {
+                taus.push(-seg.h / p[0].ln());
+            }
+        }
+        if !taus.is_empty() && best.as_ref().is_none_or(|b| sse < b.0) {
+            best = Some((sse, theta, taus));
+        }
+    }
+    let (_, theta, mut taus) = best?;
+    Some((median_in_place(&mut taus), theta))
+}
+
+/// Solves a 3×3 linear system by Gaussian elimination with partial pivoting.
+fn solve3(mut m: [[f64; 3]; 3], mut r: [f64; 3]) -> Option<[f64; 3]> {
+    for c in 0..3 {
+        let p = (c..3).max_by(|&a, &b| m[a][c].abs().total_cmp(&m[b][c].abs()))?;
+        if m[p][c].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(c, p);
+        r.swap(c, p);
+        let pivot = m[c];
+        for i in c + 1..3 {
+            let f = m[i][c] / pivot[c];
+            for (mij, pj) in m[i].iter_mut().zip(pivot).skip(c) {
+                *mij -= f * pj;
+            }
+            r[i] -= f * r[c];
+        }
+    }
+    let mut x = [0.0; 3];
+    for i in (0..3).rev() {
+        let s: f64 = (i + 1..3).map(|j| m[i][j] * x[j]).sum();
+        x[i] = (r[i] - s) / m[i][i];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}
+
 /// A segment with its PV centred and OP shifted, which leaves the fit unchanged (the offsets are
 /// free parameters) but keeps the sums well conditioned.
 struct Prepared {
     h: f64,
     u: Vec<f64>,
     y: Vec<f64>,
+    /// Σy and Σy², which the fit needs at every (τ, θ).
+    sum_y: f64,
+    sum_yy: f64,
 }
 
 impl Prepared {
+    /// A copy with every `f`-th point so that at most `max_points` remain.
+    fn thinned(&self, max_points: usize) -> Prepared {
+        let f = self.y.len().div_ceil(max_points.max(1)).max(1);
+        if f == 1 {
+            return Prepared::from_parts(self.h, self.u.clone(), self.y.clone());
+        }
+        // The OP is averaged over each coarse hold interval; the PV is taken at the start of the
+        // interval, as the model's state is: averaging it too would move it half an interval
+        // later and bias the dead time low.
+        let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+        Prepared::from_parts(
+            self.h * f as f64,
+            self.u.chunks(f).map(mean).collect(),
+            self.y.iter().step_by(f).copied().collect(),
+        )
+    }
+
     fn new(s: &IdSegment) -> Prepared {
         let y_mean = s.pv.iter().sum::<f64>() / s.pv.len() as f64;
         let u0 = s.op[0];
+        Prepared::from_parts(
+            s.step_s,
+            s.op.iter().map(|u| u - u0).collect(),
+            s.pv.iter().map(|y| y - y_mean).collect(),
+        )
+    }
+
+    fn from_parts(h: f64, u: Vec<f64>, y: Vec<f64>) -> Prepared {
         Prepared {
-            h: s.step_s,
-            u: s.op.iter().map(|u| u - u0).collect(),
-            y: s.pv.iter().map(|y| y - y_mean).collect(),
+            h,
+            sum_y: y.iter().sum(),
+            sum_yy: y.iter().map(|v| v * v).sum(),
+            u,
+            y,
         }
     }
 }
@@ -314,6 +437,11 @@ struct LinearFit {
 
 /// For fixed (τ, θ), fits the shared gain and the per-episode offset and initial transient in
 /// closed form, and returns the residual sum of squares.
+///
+/// This is the innermost loop of the identification, so it is written for speed: sums that do not
+/// depend on (τ, θ) are kept in [`Prepared`], the geometric sums of the transient are in closed
+/// form, and the simulation runs in two branch-free phases (before and after the dead time has
+/// passed the start of the data).
 fn fit_linear(segments: &[Prepared], tau: f64, theta: f64) -> LinearFit {
     let mut sy_s = 0.0; // Σ <s⊥, y⊥>
     let mut ss_s = 0.0; // Σ <s⊥, s⊥>
@@ -321,37 +449,54 @@ fn fit_linear(segments: &[Prepared], tau: f64, theta: f64) -> LinearFit {
     let mut sst = 0.0;
     for seg in segments {
         let h = seg.h;
+        let n = seg.y.len();
         let a = (-h / tau).exp();
-        let d = (theta / h).floor();
-        let f = theta / h - d;
-        let d = d as usize;
+        let dd = (theta / h).floor();
+        let f = theta / h - dd;
+        let d = dd as usize;
         let a1 = (-f * h / tau).exp();
         let a2 = (-(1.0 - f) * h / tau).exp();
         let (wa, wb) = (a2 * (1.0 - a1), 1.0 - a2);
         let u = &seg.u;
-        let at = |k: isize| -> f64 { if k < 0 { u[0] } else { u[k as usize] } };
-        let n = seg.y.len();
-        let (mut s1, mut sg, mut sgg) = (0.0, 0.0, 0.0);
-        let (mut ss, mut ssg, mut sss) = (0.0, 0.0, 0.0);
-        let (mut sy, mut syg, mut ssy, mut syy) = (0.0, 0.0, 0.0, 0.0);
+        let y = &seg.y;
+        let (mut ss, mut ssg, mut sss, mut syg, mut ssy) = (0.0, 0.0, 0.0, 0.0, 0.0);
         let mut s = u[0];
         let mut g = 1.0;
-        for k in 0..n {
-            let y = seg.y[k];
-            s1 += 1.0;
-            sg += g;
-            sgg += g * g;
+        // Phase 1: the delayed input is still the first value.
+        let head = (d + 1).min(n);
+        for &yk in &y[..head] {
             ss += s;
-            ssg += s * g;
             sss += s * s;
-            sy += y;
-            syg += y * g;
-            ssy += s * y;
-            syy += y * y;
-            let kk = k as isize - d as isize;
-            s = a * s + wa * at(kk - 1) + wb * at(kk);
+            ssg += s * g;
+            ssy += s * yk;
+            syg += yk * g;
+            s = a * s + (wa + wb) * u[0];
             g *= a;
         }
+        // Phase 2: k > d, the input is u[k−d−1] for a fraction f of the step, then u[k−d].
+        if head < n {
+            let ya = &y[head..];
+            let ua = &u[..n - head];
+            let ub = &u[1..n - head + 1];
+            for ((&yk, &uak), &ubk) in ya.iter().zip(ua).zip(ub) {
+                ss += s;
+                sss += s * s;
+                ssg += s * g;
+                ssy += s * yk;
+                syg += yk * g;
+                s = a * s + wa * uak + wb * ubk;
+                g *= a;
+            }
+        }
+        let s1 = n as f64;
+        let an = a.powi(n as i32);
+        let sg = if a < 1.0 { (1.0 - an) / (1.0 - a) } else { s1 };
+        let sgg = if a < 1.0 {
+            (1.0 - an * an) / (1.0 - a * a)
+        } else {
+            s1
+        };
+        let (sy, syy) = (seg.sum_y, seg.sum_yy);
         // Project out span{1, g}; fall back to {1} when g is nearly constant.
         let det = s1 * sgg - sg * sg;
         let proj = |bv: (f64, f64), bw: (f64, f64)| -> f64 {
@@ -377,6 +522,7 @@ fn nelder_mead(
     f: impl Fn([f64; 2]) -> f64,
     x0: [f64; 2],
     step: [f64; 2],
+    tol: [f64; 2],
     max_iter: usize,
 ) -> (f64, f64) {
     let mut pts = [x0, [x0[0] + step[0], x0[1]], [x0[0], x0[1] + step[1]]];
@@ -385,7 +531,8 @@ fn nelder_mead(
         let mut idx = [0, 1, 2];
         idx.sort_by(|&a, &b| vals[a].total_cmp(&vals[b]));
         let (b, m, w) = (idx[0], idx[1], idx[2]);
-        if (vals[w] - vals[b]).abs() <= 1e-12 * vals[b].abs().max(1e-300) {
+        let small = (0..2).all(|d| pts.iter().all(|p| (p[d] - pts[b][d]).abs() <= tol[d]));
+        if small || (vals[w] - vals[b]).abs() <= 1e-12 * vals[b].abs().max(1e-300) {
             break;
         }
         let c = [(pts[b][0] + pts[m][0]) / 2.0, (pts[b][1] + pts[m][1]) / 2.0];

@@ -109,8 +109,10 @@ pub fn predict(
     band: f64,
     sample_s: f64,
 ) -> (Option<f64>, f64) {
+    // A thousand steps across the slowest time scale keep the discretisation error of the
+    // prediction near 0.1 % of the change, far below what the model's own accuracy allows.
     let slowest = m.time_constant_s + m.dead_time_s + ti;
-    let step = (slowest / 4000.0).min(sample_s.max(1e-6)).max(1e-4);
+    let step = (slowest / 1000.0).min(sample_s.max(1e-6)).max(1e-4);
     let y0 = m.gain * u0;
     let mut sim = LoopSim::new(LoopSimConfig {
         process: Process {
@@ -131,7 +133,7 @@ pub fn predict(
         seed: 0,
         initial_sp: y0,
     });
-    let duration = 20.0 * slowest;
+    let duration = 12.0 * slowest;
     let samples = sim.run(&[(0.0, y0 + delta)], duration, sample_s.max(step));
     let t: Vec<f64> = samples.iter().map(|s| s.time_s).collect();
     let sp: Vec<f64> = samples.iter().map(|s| s.sp).collect();
