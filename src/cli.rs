@@ -26,6 +26,91 @@ pub enum Command {
     Analyze(Box<AnalyzeArgs>),
     /// Measure this machine: analysis speed beside the reference libraries, in one run.
     Bench(crate::bench::BenchArgs),
+    /// Run the daemon: collect SP, PV and OP, store them, score every setpoint change live, and
+    /// raise alerts. Stops gracefully on Ctrl-C or SIGTERM.
+    Run(RunArgs),
+    /// Validate a configuration file and print what it would watch.
+    CheckConfig(CheckConfigArgs),
+    /// Each loop's status: last samples, last episode, model, open alerts.
+    Loops(StoreArgs),
+    /// Scored setpoint changes from the store.
+    Episodes(EpisodesArgs),
+    /// Alerts from the store; acknowledge one with --ack.
+    Alerts(AlertsArgs),
+    /// Write a loop's stored samples as a CSV export that `analyze` reads.
+    Export(ExportArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    /// The configuration file.
+    #[arg(long, value_name = "FILE")]
+    pub config: PathBuf,
+    /// Log format: text for people, json for log collectors. Filter with RUST_LOG.
+    #[arg(long, default_value = "text", value_parser = ["text", "json"])]
+    pub log_format: String,
+}
+
+#[derive(Debug, Args)]
+pub struct CheckConfigArgs {
+    /// The configuration file (or give it with --config).
+    #[arg(value_name = "FILE", required_unless_present = "config")]
+    pub file: Option<PathBuf>,
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+}
+
+/// Where the store is: the config's store path, or a database file directly.
+#[derive(Debug, Args)]
+pub struct StoreArgs {
+    /// Read the store path from this configuration file.
+    #[arg(long, value_name = "FILE", conflicts_with = "db")]
+    pub config: Option<PathBuf>,
+    /// The SQLite store file.
+    #[arg(long, value_name = "FILE")]
+    pub db: Option<PathBuf>,
+    /// Print JSON.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct EpisodesArgs {
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// Only this loop.
+    #[arg(long = "loop", value_name = "TAG")]
+    pub loop_tag: Option<String>,
+    /// Only changes from this time on: RFC 3339, or an age such as 90m, 24h, 7d.
+    #[arg(long, value_name = "TIME")]
+    pub since: Option<String>,
+}
+
+#[derive(Debug, Args)]
+pub struct AlertsArgs {
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// Only open alerts.
+    #[arg(long)]
+    pub open: bool,
+    /// Acknowledge the alert with this id.
+    #[arg(long, value_name = "ID")]
+    pub ack: Option<i64>,
+}
+
+#[derive(Debug, Args)]
+pub struct ExportArgs {
+    #[command(flatten)]
+    pub store: StoreArgs,
+    /// The loop to export.
+    #[arg(long = "loop", value_name = "TAG")]
+    pub loop_tag: String,
+    /// From this time (RFC 3339 or an age such as 24h); default: the first sample.
+    #[arg(long, value_name = "TIME")]
+    pub from: Option<String>,
+    /// Up to this time (RFC 3339); default: the last sample.
+    #[arg(long, value_name = "TIME")]
+    pub to: Option<String>,
 }
 
 #[derive(Debug, Args)]
@@ -195,4 +280,47 @@ pub fn analyze(args: &AnalyzeArgs, out: &mut dyn std::io::Write) -> anyhow::Resu
         render::text(&report, &loaded.report, out)?;
     }
     Ok(())
+}
+
+/// `headroom check-config`: validate and describe.
+pub fn check_config(args: &CheckConfigArgs, out: &mut dyn std::io::Write) -> anyhow::Result<()> {
+    let path = args
+        .file
+        .as_ref()
+        .or(args.config.as_ref())
+        .ok_or_else(|| UsageError("give the configuration file".into()))?;
+    let cfg = Config::load(path).map_err(|e| UsageError(e.to_string()))?;
+    write!(out, "{}", cfg.describe(path))?;
+    writeln!(out, "{}: valid", path.display())?;
+    Ok(())
+}
+
+/// `headroom run`: the daemon until SIGINT or SIGTERM.
+pub async fn run(args: &RunArgs) -> anyhow::Result<()> {
+    let cfg = Config::load(&args.config).map_err(|e| UsageError(e.to_string()))?;
+    tracing::debug!(config = %args.config.display(), "configuration loaded");
+    let daemon = crate::daemon::Daemon::build(&cfg, &args.config).await?;
+    daemon.run(shutdown_signal()).await
+}
+
+/// Completes on Ctrl-C or SIGTERM.
+pub async fn shutdown_signal() {
+    let ctrl_c = async {
+        let _ = tokio::signal::ctrl_c().await;
+    };
+    #[cfg(unix)]
+    let term = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(_) => std::future::pending::<()>().await,
+        }
+    };
+    #[cfg(not(unix))]
+    let term = std::future::pending::<()>();
+    tokio::select! {
+        _ = ctrl_c => tracing::info!("interrupt received"),
+        _ = term => tracing::info!("SIGTERM received"),
+    }
 }

@@ -1,7 +1,8 @@
 //! The `headroom` binary: parses arguments, runs the command, maps the outcome to an exit code.
 //!
-//! Exit codes: 0 success; 1 a failure while running; 2 a problem with the input or the command
-//! line (bad flags, unreadable or malformed files, config mistakes) that the user can fix.
+//! Exit codes: 0 success; 1 a failure while running; 2 a problem with the input, the
+//! configuration or the command line (bad flags, unreadable or malformed files) that the user
+//! can fix.
 
 use clap::Parser;
 use headroom::cli::{self, Cli, Command, UsageError};
@@ -14,6 +15,23 @@ fn main() -> ExitCode {
     let result = match &cli.command {
         Command::Analyze(args) => cli::analyze(args, &mut out),
         Command::Bench(args) => headroom::bench::run(args, &mut out),
+        Command::CheckConfig(args) => cli::check_config(args, &mut out),
+        Command::Run(args) => {
+            init_logging(&args.log_format);
+            runtime().and_then(|rt| rt.block_on(cli::run(args)))
+        }
+        Command::Loops(args) => {
+            runtime().and_then(|rt| rt.block_on(headroom::queries::loops(args, &mut out)))
+        }
+        Command::Episodes(args) => {
+            runtime().and_then(|rt| rt.block_on(headroom::queries::episodes(args, &mut out)))
+        }
+        Command::Alerts(args) => {
+            runtime().and_then(|rt| rt.block_on(headroom::queries::alerts(args, &mut out)))
+        }
+        Command::Export(args) => {
+            runtime().and_then(|rt| rt.block_on(headroom::queries::export(args, &mut out)))
+        }
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
@@ -26,6 +44,28 @@ fn main() -> ExitCode {
             eprintln!("error: {e:#}");
             ExitCode::from(1)
         }
+    }
+}
+
+fn runtime() -> anyhow::Result<tokio::runtime::Runtime> {
+    Ok(tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()?)
+}
+
+/// Logs to stderr, filtered by RUST_LOG (default `info`), as text or JSON lines.
+fn init_logging(format: &str) {
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info"));
+    use std::io::IsTerminal;
+    let builder = tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_ansi(std::io::stderr().is_terminal())
+        .with_writer(std::io::stderr);
+    if format == "json" {
+        builder.json().init();
+    } else {
+        builder.init();
     }
 }
 

@@ -236,52 +236,26 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
 
 /// Scores every setpoint change, identifies the process and gives each change its verdict.
 pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
-    let opts = &setup.options;
     let t = series.time_s();
     let n = series.len();
-    let mut dts: Vec<f64> = t.windows(2).map(|w| w[1] - w[0]).collect();
-    let median_dt = identify::median_in_place(&mut dts);
-    let noise = pv_noise_sd(series.pv());
-    let max_abs_sp = series.sp().iter().fold(0.0_f64, |m, v| m.max(v.abs()));
-    let deadband = opts.sp_deadband.unwrap_or((1e-3 * max_abs_sp).max(1e-9));
-    let seg_settings = SegmentSettings {
-        deadband,
-        sp_hold_s: opts.sp_hold_s.unwrap_or(3.0 * median_dt),
-        max_gap_s: opts.max_gap_s.unwrap_or(10.0 * median_dt),
-        horizon_s: opts.horizon_factor * setup.spec.settle_within_s,
-    };
+    let seg_settings = segment_settings(series, setup);
     let seg = segment::segment(series, &seg_settings);
-    let band = setup.spec.settle_band_pct / 100.0;
-    let margin = opts.saturation_margin_pct / 100.0;
 
     // Model-free scores first; they also bound the data used for identification.
     let scored: Vec<Scored> = seg
         .windows
         .iter()
-        .filter_map(|w| score_window(series, w, setup, band, margin, noise, median_dt))
+        .filter_map(|w| score_window(series, w, setup))
         .collect();
-
-    let segments: Vec<IdSegment> = scored
+    let pool: Vec<PoolEntry> = scored
         .iter()
-        .filter_map(|s| id_segment(series, s, setup))
+        .filter_map(|s| PoolEntry::new(series, s, setup))
         .collect();
-    let max_dead_time = scored
-        .iter()
-        .filter(|s| 0.1 * s.w.delta().abs() > 4.0 * noise)
-        .filter_map(|s| s.m.t10_s)
-        .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.min(t))))
-        .map(|t| 1.2 * t);
-    let model = identify::identify(
-        &segments,
-        noise,
-        setup.op.span(),
-        max_dead_time,
-        &opts.identify,
-    );
+    let model = identify_pool(&pool, setup);
 
     let episodes: Vec<EpisodeResult> = scored
         .iter()
-        .map(|s| judge(series, s, setup, band, model.as_ref().ok()))
+        .map(|s| judge(series, s, setup, model.as_ref().ok()))
         .collect();
     Assessment {
         episodes,
@@ -289,10 +263,10 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
         data: DataSummary {
             samples: n,
             duration_s: if n > 0 { t[n - 1] - t[0] } else { 0.0 },
-            median_sample_s: median_dt,
+            median_sample_s: median_interval(t),
             gaps: seg.gaps,
-            pv_noise_sd: noise,
-            sp_deadband: deadband,
+            pv_noise_sd: pv_noise_sd(series.pv()),
+            sp_deadband: seg_settings.deadband,
             changes_in_manual: seg.changes_in_manual,
             changes_in_gaps: seg.changes_in_gaps,
             returned_excursions: seg.returned_excursions,
@@ -300,27 +274,98 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
     }
 }
 
-/// A window with its model-free metrics.
-struct Scored {
-    w: EpisodeWindow,
-    m: metrics::StepMetrics,
-    op_start: f64,
-    /// Samples averaged (centred) before scoring; 1 when the PV is quiet enough as it is.
-    filter_len: usize,
-    /// PV noise left after that averaging.
-    residual_noise: f64,
+/// Median interval between samples, 0 for fewer than two samples.
+pub(crate) fn median_interval(t: &[f64]) -> f64 {
+    let mut dts: Vec<f64> = t.windows(2).map(|w| w[1] - w[0]).collect();
+    identify::median_in_place(&mut dts)
 }
 
-fn score_window(
+/// Segmentation settings: what the setup gives, else derived — the SP deadband from the largest
+/// |SP| in the data, hold and gap limits from the loop's expected sample period (or, without
+/// one, the median sample interval of the data).
+pub(crate) fn segment_settings(series: &Series, setup: &LoopSetup) -> SegmentSettings {
+    let opts = &setup.options;
+    let max_abs_sp = series.sp().iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+    let period = opts
+        .expected_period_s
+        .unwrap_or_else(|| median_interval(series.time_s()));
+    SegmentSettings {
+        deadband: opts.sp_deadband.unwrap_or((1e-3 * max_abs_sp).max(1e-9)),
+        sp_hold_s: opts.sp_hold_s.unwrap_or(3.0 * period),
+        max_gap_s: opts.max_gap_s.unwrap_or(10.0 * period),
+        horizon_s: opts.horizon_factor * setup.spec.settle_within_s,
+    }
+}
+
+/// One episode's contribution to identification, with what bounds the search.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct PoolEntry {
+    pub(crate) segment: IdSegment,
+    /// When the PV first covered 10 % of the change (relative to the change), if it did.
+    pub(crate) t10_s: Option<f64>,
+    pub(crate) noise: f64,
+    pub(crate) delta: f64,
+}
+
+impl PoolEntry {
+    pub(crate) fn new(series: &Series, s: &Scored, setup: &LoopSetup) -> Option<PoolEntry> {
+        Some(PoolEntry {
+            segment: id_segment(series, s, setup)?,
+            t10_s: s.m.t10_s,
+            noise: s.noise,
+            delta: s.w.delta(),
+        })
+    }
+}
+
+/// Identifies the loop's model from a pool of episodes.
+pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<Model, Refusal> {
+    let mut noises: Vec<f64> = pool.iter().map(|p| p.noise).collect();
+    let noise = identify::median_in_place(&mut noises);
+    // The PV cannot respond before the dead time: the earliest 10 % crossing of a change well
+    // above the noise bounds the dead-time search.
+    let max_dead_time = pool
+        .iter()
+        .filter(|p| 0.1 * p.delta.abs() > 4.0 * p.noise)
+        .filter_map(|p| p.t10_s)
+        .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.min(t))))
+        .map(|t| 1.2 * t);
+    let segments: Vec<IdSegment> = pool.iter().map(|p| p.segment.clone()).collect();
+    identify::identify(
+        &segments,
+        noise,
+        setup.op.span(),
+        max_dead_time,
+        &setup.options.identify,
+    )
+}
+
+/// A window with its model-free metrics.
+pub(crate) struct Scored {
+    pub(crate) w: EpisodeWindow,
+    pub(crate) m: metrics::StepMetrics,
+    pub(crate) op_start: f64,
+    /// PV noise estimated from this window and the samples just before it.
+    pub(crate) noise: f64,
+    /// Samples averaged (centred) before scoring; 1 when the PV is quiet enough as it is.
+    pub(crate) filter_len: usize,
+    /// PV noise left after that averaging.
+    pub(crate) residual_noise: f64,
+}
+
+/// Scores one window model-free. Everything it uses comes from the window itself and at most
+/// 50 samples before it, so the live tracker and the offline analysis score a window alike.
+pub(crate) fn score_window(
     series: &Series,
     w: &EpisodeWindow,
     setup: &LoopSetup,
-    band: f64,
-    margin: f64,
-    noise: f64,
-    median_dt: f64,
 ) -> Option<Scored> {
+    let band = setup.spec.settle_band_pct / 100.0;
+    let margin = setup.options.saturation_margin_pct / 100.0;
     let r = w.start..w.end;
+    let noise_from = w.pre_start.max(w.start.saturating_sub(50));
+    let noise = pv_noise_sd(&series.pv()[noise_from..w.end]);
+    let median_dt = median_interval(&series.time_s()[r.clone()]);
     let op = series.op();
     let pre_from = w.pre_start.max(w.start.saturating_sub(10));
     let op_start = if pre_from < w.start {
@@ -357,6 +402,7 @@ fn score_window(
         w: *w,
         m,
         op_start,
+        noise,
         filter_len,
         residual_noise: noise / (filter_len as f64).sqrt(),
     })
@@ -402,7 +448,7 @@ fn centred_mean(x: &[f64], len: usize) -> Vec<f64> {
 
 /// The stretch of one episode used for identification: some undisturbed data before the change,
 /// and after it up to a few settling times (or the whole window if it never settled).
-fn id_segment(series: &Series, s: &Scored, setup: &LoopSetup) -> Option<IdSegment> {
+pub(crate) fn id_segment(series: &Series, s: &Scored, setup: &LoopSetup) -> Option<IdSegment> {
     let t = series.time_s();
     let t0 = t[s.w.start];
     let post_cap = match s.m.settling_time_s {
@@ -427,14 +473,14 @@ fn id_segment(series: &Series, s: &Scored, setup: &LoopSetup) -> Option<IdSegmen
     )
 }
 
-fn judge(
+pub(crate) fn judge(
     series: &Series,
     s: &Scored,
     setup: &LoopSetup,
-    band: f64,
     model: Option<&Model>,
 ) -> EpisodeResult {
-    let noise = s.residual_noise * (s.filter_len as f64).sqrt();
+    let band = setup.spec.settle_band_pct / 100.0;
+    let noise = s.noise;
     let t = series.time_s();
     let w = &s.w;
     let m = &s.m;

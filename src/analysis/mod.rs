@@ -10,6 +10,7 @@
 pub mod assess;
 pub mod feasibility;
 pub mod identify;
+pub mod live;
 pub mod metrics;
 pub mod segment;
 mod series;
@@ -39,10 +40,13 @@ pub struct Spec {
 pub struct AnalysisOptions {
     /// SP moves no larger than this (SP units) are jitter. Default: 0.1 % of the largest |SP|.
     pub sp_deadband: Option<f64>,
-    /// How long the SP must hold still to end a move (s). Default: 3 median sample intervals.
+    /// How long the SP must hold still to end a move (s). Default: 3 sample periods.
     pub sp_hold_s: Option<f64>,
-    /// Silence between samples that counts as a data gap (s). Default: 10 median intervals.
+    /// Silence between samples that counts as a data gap (s). Default: 10 sample periods.
     pub max_gap_s: Option<f64>,
+    /// How often samples are expected (s); the default hold and gap limits are multiples of it.
+    /// Without it, the median sample interval of the data is used.
+    pub expected_period_s: Option<f64>,
     /// Episode windows are cut at this multiple of the spec time after the change.
     pub horizon_factor: f64,
     /// OP within this percentage of the OP span from a limit counts as saturated.
@@ -59,6 +63,7 @@ impl Default for AnalysisOptions {
             sp_deadband: None,
             sp_hold_s: None,
             max_gap_s: None,
+            expected_period_s: None,
             horizon_factor: 10.0,
             saturation_margin_pct: 0.5,
             upgrade_ratio_limit: 2.0,

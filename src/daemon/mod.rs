@@ -1,0 +1,288 @@
+//! The daemon (`headroom run`): the one place that wires the tasks together.
+//!
+//! ```text
+//!  MQTT task ──Ingest──> writer task ──> store (SQLite)
+//!     ^                     │  └──> live trackers (pure analysis core) ──> episodes, models, alerts
+//!     └─────Outbound────────┘        (acknowledgements after commit; alert and status messages)
+//! ```
+//!
+//! Shutdown: `stop` turns true → the MQTT task stops forwarding messages and drops its ingest
+//! sender → the writer commits what it holds, hands over the last acknowledgements and ends →
+//! the MQTT task sends them, disconnects and ends → the store is closed. Messages that arrived
+//! after the stop are not acknowledged, so the broker redelivers them to the next run.
+
+pub mod mqtt;
+pub mod writer;
+
+use crate::analysis::LoopSetup;
+use crate::config::Config;
+use crate::sample::{Sample, Signal};
+use crate::store::Store;
+use anyhow::Context;
+use std::collections::HashMap;
+use std::future::Future;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+use tokio::sync::{mpsc, watch};
+
+/// Messages from the sources to the writer.
+#[derive(Debug)]
+pub enum Ingest {
+    /// Decoded samples, and the MQTT message to acknowledge once they are committed.
+    Samples {
+        samples: Vec<Sample>,
+        ack: Option<rumqttc::Publish>,
+    },
+    /// Input that was refused, for the counters and the log.
+    Rejected {
+        reason: &'static str,
+        source: String,
+        detail: String,
+    },
+}
+
+/// Messages from the writer to the MQTT task.
+#[derive(Debug)]
+pub enum Outbound {
+    /// Acknowledge this message: its samples are committed.
+    Ack(rumqttc::Publish),
+    /// Publish on one of the daemon's own topics.
+    Publish { topic: String, payload: Vec<u8> },
+}
+
+/// Messages queued from the sources to the writer. When full, the sources wait: the MQTT task
+/// stops reading, and the broker holds the rest (QoS 1). Nothing is dropped.
+const INGEST_CAPACITY: usize = 1_024;
+/// Acknowledgements and publishes queued from the writer to the MQTT task. When full, the
+/// writer waits.
+const OUTBOUND_CAPACITY: usize = 8_192;
+
+/// Logs at most once per `every`, counting what it held back in between.
+#[derive(Debug)]
+pub struct RateLimitedLog {
+    every: Duration,
+    last: Option<Instant>,
+    suppressed: u64,
+}
+
+impl RateLimitedLog {
+    pub fn new(every: Duration) -> RateLimitedLog {
+        RateLimitedLog {
+            every,
+            last: None,
+            suppressed: 0,
+        }
+    }
+
+    /// `Some(number held back since the last line)` when a line may be logged now.
+    pub fn allow(&mut self) -> Option<u64> {
+        if self.last.is_none_or(|l| l.elapsed() >= self.every) {
+            self.last = Some(Instant::now());
+            Some(std::mem::take(&mut self.suppressed))
+        } else {
+            self.suppressed += 1;
+            None
+        }
+    }
+}
+
+/// A daemon ready to run: the store is open and everything is resolved from the configuration.
+pub struct Daemon {
+    store: Store,
+    mqtt: Option<mqtt::MqttParams>,
+    loops: HashMap<Arc<str>, writer::LoopRuntime>,
+    settings: writer::WriterSettings,
+}
+
+impl Daemon {
+    /// Opens the store and resolves the configuration; fails with a message naming what is wrong.
+    pub async fn build(config: &Config, config_path: &Path) -> anyhow::Result<Daemon> {
+        let store_path: PathBuf = config.store_path(config_path);
+        let store = Store::open(&store_path)
+            .await
+            .with_context(|| format!("cannot open the store at {}", store_path.display()))?;
+        let mqtt = match &config.mqtt {
+            Some(m) => Some(resolve_mqtt(config, m)?),
+            None => None,
+        };
+        let mut loops = HashMap::new();
+        for (tag, l) in config.loops.iter().filter(|(_, l)| l.is_watched()) {
+            let setup: LoopSetup = l
+                .setup(tag)
+                .map_err(|e| anyhow::anyhow!("loop {tag}: {e}"))?;
+            let expected: Vec<Signal> = l.sources().map(|(s, _)| s).collect();
+            let period = l.expected_period_s.unwrap_or(1.0);
+            let mut rt = writer::LoopRuntime::new(setup, expected, period, l.stale_after_periods);
+            resume(&store, tag, &mut rt)
+                .await
+                .with_context(|| format!("cannot resume loop {tag} from the store"))?;
+            loops.insert(Arc::from(tag.as_str()), rt);
+        }
+        let settings = writer::WriterSettings {
+            alert_topic: config.mqtt.as_ref().map(|m| m.alert_topic.clone()),
+            status_topic: config.mqtt.as_ref().and_then(|m| m.status_topic.clone()),
+            raw_retention_ms: Some(i64::from(config.store.raw_retention_days) * 86_400_000),
+        };
+        Ok(Daemon {
+            store,
+            mqtt,
+            loops,
+            settings,
+        })
+    }
+
+    pub fn store(&self) -> &Store {
+        &self.store
+    }
+
+    /// Runs until `shutdown` completes, then stops gracefully (see the module docs).
+    pub async fn run(self, shutdown: impl Future<Output = ()>) -> anyhow::Result<()> {
+        let (stop_tx, stop_rx) = watch::channel(false);
+        let (ingest_tx, ingest_rx) = mpsc::channel(INGEST_CAPACITY);
+        let (out_tx, out_rx) = mpsc::channel(OUTBOUND_CAPACITY);
+        let store = self.store.clone();
+        let writer = writer::Writer::new(self.store, self.loops, out_tx, self.settings);
+        let writer = tokio::spawn(writer.run(ingest_rx));
+        let source = match self.mqtt {
+            Some(params) => Some(tokio::spawn(mqtt::run(params, ingest_tx, out_rx, stop_rx))),
+            None => {
+                drop(ingest_tx);
+                None
+            }
+        };
+        tracing::info!(store = %store.path().display(), "headroom is running");
+        let mut writer = writer;
+        let early = tokio::select! {
+            _ = shutdown => None,
+            res = &mut writer => Some(res),
+        };
+        let outcome = match early {
+            None => {
+                tracing::info!("stopping: committing what has arrived");
+                let _ = stop_tx.send(true);
+                writer.await.context("the writer task failed")?
+            }
+            Some(res) => {
+                // The writer ended on its own: the store cannot be written. Stop the sources.
+                let _ = stop_tx.send(true);
+                res.context("the writer task failed")?
+            }
+        };
+        if let Some(s) = source {
+            s.await.context("the MQTT task failed")?;
+        }
+        store.close().await;
+        let counters = outcome.with_context(|| {
+            format!("the store at {} cannot be written", store.path().display())
+        })?;
+        tracing::info!(
+            samples = counters.samples_committed,
+            acknowledged = counters.messages_acknowledged,
+            "stopped"
+        );
+        Ok(())
+    }
+}
+
+/// Feeds a loop's tracker what the store holds from before a restart: the rows of the last
+/// evaluation horizon and a quarter (what any open episode can need), the newest final episode
+/// and the newest model.
+async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyhow::Result<()> {
+    let setup = rt.tracker.setup().clone();
+    let look_back_ms =
+        (1.25 * setup.options.horizon_factor * setup.spec.settle_within_s * 1000.0) as i64;
+    let newest = store
+        .loops_overview()
+        .await?
+        .into_iter()
+        .find(|r| r.loop_tag == tag)
+        .and_then(|r| r.last_sample_ms.get(&Signal::Pv).copied());
+    let Some(newest) = newest else { return Ok(()) };
+    let from = newest - look_back_ms;
+    let mut series = Vec::new();
+    for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
+        let lo = if s == Signal::Pv { from } else { i64::MIN };
+        let rows = store.samples(tag, s, lo, newest).await?;
+        series.push(
+            rows.into_iter()
+                .map(|(t, v)| (t as f64 / 1000.0, v))
+                .collect::<Vec<_>>(),
+        );
+    }
+    let rows = crate::analysis::live::align(&series[0], &series[1], &series[2], &series[3]);
+    let final_until = store
+        .episodes(Some(tag), None)
+        .await?
+        .iter()
+        .filter(|e| e.is_final)
+        .map(|e| e.start_ms as f64 / 1000.0)
+        .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.max(t))));
+    let model = store
+        .latest_models()
+        .await?
+        .into_iter()
+        .find(|m| m.loop_tag == tag)
+        .map(|m| m.model());
+    tracing::info!(loop_tag = tag, rows = rows.len(), "resumed from the store");
+    rt.tracker.resume(&rows, final_until, model);
+    Ok(())
+}
+
+/// Turns the MQTT section into connection parameters (reads the password, builds TLS).
+fn resolve_mqtt(
+    config: &Config,
+    m: &crate::config::MqttSettings,
+) -> anyhow::Result<mqtt::MqttParams> {
+    let tls = if m.tls {
+        Some(Arc::new(tls_config(m.ca_file.as_deref())?))
+    } else {
+        None
+    };
+    let password = m
+        .password()
+        .context("cannot read the MQTT password")?
+        .map(|s| s.expose().to_string());
+    Ok(mqtt::MqttParams {
+        host: m.host.clone(),
+        port: m.port,
+        tls,
+        client_id: m.client_id.clone(),
+        username: m.username.clone(),
+        password,
+        keep_alive: m.keep_alive(),
+        subscriptions: config.subscriptions(),
+        limits: crate::ingest::decode::Limits::from_settings(m),
+        topics: Arc::new(crate::ingest::decode::TopicMap::new(config)),
+    })
+}
+
+/// TLS with the given CA file, or the system's root certificates.
+fn tls_config(ca_file: Option<&Path>) -> anyhow::Result<rustls::ClientConfig> {
+    use rustls::pki_types::CertificateDer;
+    use rustls::pki_types::pem::PemObject;
+    let _ = rustls::crypto::ring::default_provider().install_default();
+    let mut roots = rustls::RootCertStore::empty();
+    match ca_file {
+        Some(path) => {
+            for cert in CertificateDer::pem_file_iter(path)
+                .with_context(|| format!("cannot read the CA file {}", path.display()))?
+            {
+                let cert =
+                    cert.with_context(|| format!("bad certificate in {}", path.display()))?;
+                roots
+                    .add(cert)
+                    .with_context(|| format!("unusable certificate in {}", path.display()))?;
+            }
+        }
+        None => {
+            let found = rustls_native_certs::load_native_certs();
+            for cert in found.certs {
+                let _ = roots.add(cert);
+            }
+        }
+    }
+    Ok(rustls::ClientConfig::builder()
+        .with_root_certificates(roots)
+        .with_no_client_auth())
+}

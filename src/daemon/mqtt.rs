@@ -1,0 +1,220 @@
+//! The MQTT source: one task owns the broker connection. It subscribes (again after every
+//! connection that did not resume the session), decodes each message into samples, hands them to
+//! the writer, and acknowledges a QoS 1 message only when the writer reports its samples
+//! committed — so a crash loses nothing the broker has not kept. It also publishes the daemon's
+//! own alert and status messages; it never publishes anywhere else.
+
+use super::{Ingest, Outbound, RateLimitedLog};
+use crate::ingest::decode::{self, Limits, TopicMap};
+use rumqttc::{AsyncClient, ConnectReturnCode, Event, MqttOptions, Packet, QoS, Transport};
+use std::collections::VecDeque;
+use std::sync::Arc;
+use std::time::Duration;
+use tokio::sync::{mpsc, watch};
+
+/// Requests queued between this task's client handle and its event loop. The task only ever
+/// uses the non-blocking `try_` calls on it, keeping what does not fit for the next turn, so a
+/// full queue delays acknowledgements but never deadlocks the task that drains it.
+const REQUEST_QUEUE: usize = 1_000;
+
+/// Reconnection waits: from 0.2 s, doubling, at most 5 s; back to 0.2 s after a connection.
+const BACKOFF_FIRST: Duration = Duration::from_millis(200);
+const BACKOFF_MAX: Duration = Duration::from_secs(5);
+
+/// How long shutdown waits for the last acknowledgements to leave before disconnecting anyway.
+const SHUTDOWN_FLUSH: Duration = Duration::from_secs(3);
+
+/// Everything needed to connect and subscribe, resolved from the configuration.
+#[derive(Clone)]
+pub struct MqttParams {
+    pub host: String,
+    pub port: u16,
+    /// TLS client configuration for `mqtts://`; `None` for plain TCP.
+    pub tls: Option<Arc<rustls::ClientConfig>>,
+    pub client_id: String,
+    pub username: Option<String>,
+    pub password: Option<String>,
+    pub keep_alive: Duration,
+    pub subscriptions: Vec<String>,
+    pub limits: Limits,
+    pub topics: Arc<TopicMap>,
+}
+
+impl std::fmt::Debug for MqttParams {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("MqttParams")
+            .field("host", &self.host)
+            .field("port", &self.port)
+            .field("tls", &self.tls.is_some())
+            .field("client_id", &self.client_id)
+            .field("username", &self.username)
+            .field("password", &self.password.as_ref().map(|_| "***"))
+            .finish_non_exhaustive()
+    }
+}
+
+fn options(p: &MqttParams) -> MqttOptions {
+    let mut o = MqttOptions::new(&p.client_id, &p.host, p.port);
+    o.set_keep_alive(p.keep_alive.max(Duration::from_secs(1)));
+    // A persistent session: the broker keeps our subscriptions and queues QoS 1 messages while
+    // we are away, and redelivers what we had not acknowledged.
+    o.set_clean_session(false);
+    o.set_manual_acks(true);
+    let incoming = (p.limits.max_payload_bytes + 64 * 1024).max(256 * 1024);
+    o.set_max_packet_size(incoming, 256 * 1024);
+    if let (Some(u), Some(pw)) = (&p.username, &p.password) {
+        o.set_credentials(u, pw);
+    } else if let Some(u) = &p.username {
+        o.set_credentials(u, "");
+    }
+    if let Some(tls) = &p.tls {
+        o.set_transport(Transport::tls_with_config(
+            rumqttc::TlsConfiguration::Rustls(tls.clone()),
+        ));
+    }
+    o
+}
+
+/// Runs the MQTT source until `stop` turns true and the writer has finished (its outbound
+/// sender dropped), then sends the last acknowledgements and disconnects.
+pub async fn run(
+    params: MqttParams,
+    ingest: mpsc::Sender<Ingest>,
+    mut outbound: mpsc::Receiver<Outbound>,
+    mut stop: watch::Receiver<bool>,
+) {
+    let (client, mut eventloop) = AsyncClient::new(options(&params), REQUEST_QUEUE);
+    let mut ingest = Some(ingest);
+    let mut pending: VecDeque<Outbound> = VecDeque::new();
+    let mut backoff = BACKOFF_FIRST;
+    let mut errors = RateLimitedLog::new(Duration::from_secs(30));
+    let mut connected = false;
+    let mut writer_done = false;
+    let mut flush_deadline: Option<tokio::time::Instant> = None;
+    let filters: Vec<rumqttc::SubscribeFilter> = params
+        .subscriptions
+        .iter()
+        .map(|f| rumqttc::SubscribeFilter::new(f.clone(), QoS::AtLeastOnce))
+        .collect();
+
+    loop {
+        // Hand queued acknowledgements and publishes to the client without blocking.
+        while let Some(out) = pending.pop_front() {
+            let sent = match &out {
+                Outbound::Ack(p) => client.try_ack(p).is_ok(),
+                Outbound::Publish { topic, payload } => client
+                    .try_publish(topic.as_str(), QoS::AtLeastOnce, false, payload.clone())
+                    .is_ok(),
+            };
+            if !sent {
+                pending.push_front(out);
+                break;
+            }
+        }
+        if writer_done && pending.is_empty() && flush_deadline.is_none() {
+            let _ = client.try_disconnect();
+            flush_deadline = Some(tokio::time::Instant::now() + SHUTDOWN_FLUSH);
+        }
+        if let Some(deadline) = flush_deadline
+            && tokio::time::Instant::now() >= deadline
+        {
+            break;
+        }
+
+        tokio::select! {
+            ev = eventloop.poll() => match ev {
+                Ok(Event::Incoming(Packet::ConnAck(ack))) => {
+                    backoff = BACKOFF_FIRST;
+                    connected = true;
+                    tracing::info!(
+                        host = %params.host, port = params.port,
+                        session_present = ack.session_present,
+                        "connected to the MQTT broker"
+                    );
+                    if !ack.session_present && !filters.is_empty() {
+                        // A new session has no subscriptions: make them (again).
+                        if let Err(e) = client.try_subscribe_many(filters.clone()) {
+                            tracing::error!(error = %e, "could not queue the subscriptions");
+                        }
+                    }
+                }
+                Ok(Event::Incoming(Packet::SubAck(s))) => {
+                    let refused = s.return_codes.iter()
+                        .filter(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure))
+                        .count();
+                    if refused > 0 {
+                        tracing::error!(refused, "the broker refused some subscriptions; check its access rules");
+                    } else {
+                        tracing::info!(filters = filters.len(), "subscribed");
+                    }
+                }
+                Ok(Event::Incoming(Packet::Publish(p))) => {
+                    let Some(tx) = &ingest else {
+                        // Stopping: leave it unacknowledged; the broker redelivers it next time.
+                        continue;
+                    };
+                    let received_ms = jiff::Timestamp::now().as_millisecond();
+                    match decode::decode(&p.topic, &p.payload, received_ms, &params.topics, &params.limits) {
+                        Ok(samples) => {
+                            // Waiting here is the backpressure: while the writer is busy the
+                            // broker holds the rest (QoS 1 in flight is bounded by the broker).
+                            if tx.send(Ingest::Samples { samples, ack: Some(p) }).await.is_err() {
+                                ingest = None;
+                            }
+                        }
+                        Err(rejection) => {
+                            let _ = tx.send(Ingest::Rejected {
+                                reason: rejection.reason(),
+                                source: p.topic.clone(),
+                                detail: rejection.to_string(),
+                            }).await;
+                            // A malformed message never becomes valid: acknowledge it so the
+                            // broker does not redeliver it forever. It is counted, not lost.
+                            pending.push_back(Outbound::Ack(p));
+                        }
+                    }
+                }
+                Ok(_) => {}
+                Err(e) => {
+                    if flush_deadline.is_some() {
+                        break;
+                    }
+                    if connected {
+                        tracing::warn!(error = %e, "lost the MQTT connection; reconnecting");
+                        connected = false;
+                    } else if let Some(suppressed) = errors.allow() {
+                        let hint = auth_hint(&e);
+                        tracing::warn!(error = %e, suppressed, retry_in = ?backoff, "{hint}");
+                    }
+                    tokio::time::sleep(backoff).await;
+                    backoff = (backoff * 2).min(BACKOFF_MAX);
+                }
+            },
+            out = outbound.recv(), if !writer_done => match out {
+                Some(o) => pending.push_back(o),
+                None => writer_done = true,
+            },
+            _ = stop.changed(), if ingest.is_some() => {
+                if *stop.borrow() {
+                    // Stop taking new messages; the writer drains what it has and finishes.
+                    ingest = None;
+                }
+            }
+        }
+    }
+    tracing::info!("MQTT source stopped");
+}
+
+/// A hint for people reading the log, by kind of connection error.
+fn auth_hint(e: &rumqttc::ConnectionError) -> &'static str {
+    match e {
+        rumqttc::ConnectionError::ConnectionRefused(
+            ConnectReturnCode::NotAuthorized | ConnectReturnCode::BadUserNamePassword,
+        ) => {
+            "the MQTT broker refused the credentials; check the username and the password file or variable"
+        }
+        rumqttc::ConnectionError::ConnectionRefused(_) => "the MQTT broker refused the connection",
+        rumqttc::ConnectionError::Io(_) => "cannot reach the MQTT broker; retrying",
+        _ => "MQTT connection error; retrying",
+    }
+}

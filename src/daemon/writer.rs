@@ -1,0 +1,524 @@
+//! The writer: the one task that writes to the store. It commits samples in batches (every
+//! `FLUSH_EVERY` or `MAX_BATCH` samples, whichever comes first), acknowledges the MQTT messages
+//! whose samples it committed, feeds the live trackers, stores their episodes and models, raises
+//! alerts, watches for stale tags, prunes old raw samples, and publishes status.
+
+use super::{Ingest, Outbound, RateLimitedLog};
+use crate::analysis::CAUTION;
+use crate::analysis::assess::EpisodeResult;
+use crate::analysis::live::{Aligner, LiveEvent, LoopTracker, Row};
+use crate::analysis::{LoopSetup, Model};
+use crate::sample::{Sample, Signal};
+use crate::store::{self, AlertInput, Store};
+use std::collections::{BTreeMap, HashMap};
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+use tokio::sync::mpsc;
+
+/// A batch is committed at the latest this long after its first sample arrived.
+const FLUSH_EVERY: Duration = Duration::from_millis(100);
+/// …or as soon as it holds this many samples.
+const MAX_BATCH: usize = 5_000;
+/// Staleness, status and counters are looked at on this tick.
+const HOUSEKEEPING_EVERY: Duration = Duration::from_secs(1);
+/// A status message is published this often (when a status topic is configured).
+const STATUS_EVERY: Duration = Duration::from_secs(10);
+/// Raw samples are pruned this often.
+const PRUNE_EVERY: Duration = Duration::from_secs(3600);
+/// After a failed commit the same batch is retried after this wait (nothing is acknowledged
+/// meanwhile, so the broker keeps the messages).
+const RETRY_AFTER: Duration = Duration::from_secs(1);
+
+/// One loop as the writer sees it.
+pub struct LoopRuntime {
+    pub tracker: LoopTracker,
+    pub aligner: Aligner,
+    /// The signals the configuration says this loop has, with the period they should arrive at.
+    pub expected: Vec<Signal>,
+    pub expected_period_s: f64,
+    pub stale_after_periods: f64,
+    last_seen_ms: HashMap<Signal, i64>,
+    stale: Vec<Signal>,
+}
+
+impl LoopRuntime {
+    pub fn new(
+        setup: LoopSetup,
+        expected: Vec<Signal>,
+        expected_period_s: f64,
+        stale_after_periods: f64,
+    ) -> LoopRuntime {
+        let uses_mode = expected.contains(&Signal::Mode);
+        // A signal that has gone quiet holds rows back for at most a few periods.
+        let patience = 5.0 * expected_period_s;
+        LoopRuntime {
+            tracker: LoopTracker::new(setup),
+            aligner: Aligner::new(uses_mode, patience),
+            expected,
+            expected_period_s,
+            stale_after_periods,
+            last_seen_ms: HashMap::new(),
+            stale: Vec::new(),
+        }
+    }
+}
+
+/// Where alerts and status go, and how long raw samples are kept.
+#[derive(Debug, Clone)]
+pub struct WriterSettings {
+    pub alert_topic: Option<String>,
+    pub status_topic: Option<String>,
+    pub raw_retention_ms: Option<i64>,
+}
+
+/// Counts since start, for the status message and the log.
+#[derive(Debug, Default, Clone, serde::Serialize)]
+pub struct Counters {
+    pub samples_committed: u64,
+    pub duplicates: u64,
+    pub messages_acknowledged: u64,
+    pub episodes_final: u64,
+    pub alerts_raised: u64,
+    pub rejected: BTreeMap<&'static str, u64>,
+    pub late_samples: u64,
+}
+
+/// The plant's clock: data time, advanced by wall time while nothing arrives, so staleness is
+/// judged the same in live operation and in an accelerated replay.
+#[derive(Debug, Clone, Copy, Default)]
+struct PlantClock {
+    newest_ms: Option<i64>,
+    at: Option<Instant>,
+}
+
+impl PlantClock {
+    fn saw(&mut self, ts_ms: i64) {
+        if self.newest_ms.is_none_or(|n| ts_ms > n) {
+            self.newest_ms = Some(ts_ms);
+            self.at = Some(Instant::now());
+        }
+    }
+
+    fn now_ms(&self) -> Option<i64> {
+        let (n, at) = (self.newest_ms?, self.at?);
+        Some(n + at.elapsed().as_millis() as i64)
+    }
+}
+
+pub struct Writer {
+    store: Store,
+    loops: HashMap<Arc<str>, LoopRuntime>,
+    outbound: mpsc::Sender<Outbound>,
+    settings: WriterSettings,
+    counters: Counters,
+    clock: PlantClock,
+    rejections: HashMap<(&'static str, String), u64>,
+    reject_log: RateLimitedLog,
+}
+
+/// Samples and acknowledgements gathered for one commit.
+#[derive(Default)]
+struct Batch {
+    samples: Vec<Sample>,
+    acks: Vec<rumqttc::Publish>,
+    since: Option<Instant>,
+}
+
+impl Writer {
+    pub fn new(
+        store: Store,
+        loops: HashMap<Arc<str>, LoopRuntime>,
+        outbound: mpsc::Sender<Outbound>,
+        settings: WriterSettings,
+    ) -> Writer {
+        Writer {
+            store,
+            loops,
+            outbound,
+            settings,
+            counters: Counters::default(),
+            clock: PlantClock::default(),
+            rejections: HashMap::new(),
+            reject_log: RateLimitedLog::new(Duration::from_secs(60)),
+        }
+    }
+
+    /// Runs until the ingest channel closes (every source has stopped), then commits what it
+    /// holds and returns. Dropping the writer drops the outbound sender, which tells the MQTT
+    /// task that every acknowledgement has been handed over.
+    pub async fn run(mut self, mut rx: mpsc::Receiver<Ingest>) -> Result<Counters, store::Error> {
+        let mut batch = Batch::default();
+        let mut housekeeping = tokio::time::interval(HOUSEKEEPING_EVERY);
+        housekeeping.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        let mut last_status = Instant::now();
+        let mut last_prune = Instant::now();
+        loop {
+            let deadline = batch
+                .since
+                .map(|s| tokio::time::Instant::from_std(s + FLUSH_EVERY));
+            tokio::select! {
+                msg = rx.recv() => match msg {
+                    Some(Ingest::Samples { samples, ack }) => {
+                        batch.since.get_or_insert_with(Instant::now);
+                        batch.samples.extend(samples);
+                        batch.acks.extend(ack);
+                        if batch.samples.len() >= MAX_BATCH {
+                            self.flush(&mut batch).await?;
+                        }
+                    }
+                    Some(Ingest::Rejected { reason, source, detail }) => {
+                        self.reject(reason, source, detail);
+                    }
+                    None => break,
+                },
+                _ = sleep_until(deadline), if deadline.is_some() => {
+                    self.flush(&mut batch).await?;
+                }
+                _ = housekeeping.tick() => {
+                    self.check_stale().await;
+                    self.flush_rejections().await;
+                    if last_status.elapsed() >= STATUS_EVERY {
+                        last_status = Instant::now();
+                        self.publish_status().await;
+                    }
+                    if last_prune.elapsed() >= PRUNE_EVERY {
+                        last_prune = Instant::now();
+                        self.prune().await;
+                    }
+                }
+            }
+        }
+        self.flush(&mut batch).await?;
+        self.flush_rejections().await;
+        tracing::info!(
+            samples = self.counters.samples_committed,
+            acknowledged = self.counters.messages_acknowledged,
+            "writer finished: everything received is committed"
+        );
+        Ok(self.counters)
+    }
+
+    fn reject(&mut self, reason: &'static str, source: String, detail: String) {
+        *self.counters.rejected.entry(reason).or_default() += 1;
+        *self.rejections.entry((reason, source)).or_default() += 1;
+        if let Some(suppressed) = self.reject_log.allow() {
+            tracing::warn!(reason, suppressed, "rejected input: {detail}");
+        }
+    }
+
+    async fn flush_rejections(&mut self) {
+        if self.rejections.is_empty() {
+            return;
+        }
+        let now = jiff::Timestamp::now().as_millisecond();
+        for ((reason, source), n) in std::mem::take(&mut self.rejections) {
+            if let Err(e) = self.store.count_rejection(reason, &source, n, now).await {
+                tracing::warn!(error = %e, "could not record rejection counts");
+            }
+        }
+    }
+
+    /// Commits the batch, then acknowledges and analyses it. A transient failure (the database
+    /// busy, the disk full) is retried until it clears, holding the batch unacknowledged; any
+    /// other failure (a read-only or damaged file) ends the writer with the error, since waiting
+    /// will not mend it — nothing uncommitted has been acknowledged, so nothing is lost.
+    async fn flush(&mut self, batch: &mut Batch) -> Result<(), store::Error> {
+        if batch.samples.is_empty() && batch.acks.is_empty() {
+            batch.since = None;
+            return Ok(());
+        }
+        let samples = std::mem::take(&mut batch.samples);
+        let acks = std::mem::take(&mut batch.acks);
+        batch.since = None;
+        let mut failures = RateLimitedLog::new(Duration::from_secs(30));
+        loop {
+            match self.store.insert_samples(&samples).await {
+                Ok(outcome) => {
+                    self.counters.samples_committed += outcome.inserted;
+                    self.counters.duplicates += outcome.duplicates;
+                    break;
+                }
+                Err(e) if !e.is_transient() => {
+                    tracing::error!(error = %e, "cannot write to the store; stopping");
+                    return Err(e);
+                }
+                Err(e) => {
+                    if let Some(suppressed) = failures.allow() {
+                        tracing::error!(error = %e, suppressed, samples = samples.len(),
+                            "could not commit samples; holding them and retrying (nothing is acknowledged meanwhile)");
+                    }
+                    tokio::time::sleep(RETRY_AFTER).await;
+                }
+            }
+        }
+        for p in acks {
+            self.counters.messages_acknowledged += 1;
+            if self.outbound.send(Outbound::Ack(p)).await.is_err() {
+                break;
+            }
+        }
+        self.analyse(&samples).await;
+        Ok(())
+    }
+
+    /// Feeds committed samples to the trackers and stores what they find.
+    async fn analyse(&mut self, samples: &[Sample]) {
+        let mut touched: Vec<Arc<str>> = Vec::new();
+        for s in samples {
+            self.clock.saw(s.ts_ms);
+            let Some(rt) = self.loops.get_mut(&s.loop_tag) else {
+                continue;
+            };
+            let seen = rt.last_seen_ms.entry(s.signal).or_insert(s.ts_ms);
+            *seen = (*seen).max(s.ts_ms);
+            rt.aligner.push(s.signal, s.ts_ms as f64 / 1000.0, s.value);
+            if !touched.contains(&s.loop_tag) {
+                touched.push(s.loop_tag.clone());
+            }
+        }
+        let mut found: Vec<(Arc<str>, LiveEvent)> = Vec::new();
+        // The analysis is CPU work: let the runtime move other tasks off this thread meanwhile.
+        tokio::task::block_in_place(|| {
+            let mut rows: Vec<Row> = Vec::new();
+            for tag in &touched {
+                let Some(rt) = self.loops.get_mut(tag) else {
+                    continue;
+                };
+                rows.clear();
+                let late_before = rt.aligner.late;
+                rt.aligner.drain(&mut rows);
+                self.counters.late_samples += rt.aligner.late - late_before;
+                rt.tracker.extend(&rows);
+                for e in rt.tracker.evaluate() {
+                    found.push((tag.clone(), e));
+                }
+            }
+        });
+        for (tag, event) in found {
+            self.record(&tag, event).await;
+        }
+    }
+
+    async fn record(&mut self, tag: &Arc<str>, event: LiveEvent) {
+        let now = jiff::Timestamp::now().as_millisecond();
+        match event {
+            LiveEvent::Model(m) => {
+                let at = self.clock.newest_ms.unwrap_or(now);
+                if let Err(e) = self.store.insert_model(tag, &m, at).await {
+                    tracing::warn!(loop_tag = %tag, error = %e, "could not store the model");
+                }
+                log_model(tag, &m);
+            }
+            LiveEvent::Final(r) => {
+                self.counters.episodes_final += 1;
+                self.store_episode(tag, &r, true, now).await;
+            }
+            LiveEvent::Provisional(r) => {
+                self.store_episode(tag, &r, false, now).await;
+            }
+        }
+    }
+
+    async fn store_episode(&mut self, tag: &Arc<str>, r: &EpisodeResult, is_final: bool, now: i64) {
+        let start_ms = (r.start_s * 1000.0).round() as i64;
+        let end_ms = (r.end_s * 1000.0).round() as i64;
+        if let Err(e) = self
+            .store
+            .upsert_episode(tag, r, start_ms, end_ms, is_final, now)
+            .await
+        {
+            tracing::warn!(loop_tag = %tag, error = %e, "could not store the episode");
+        }
+        tracing::info!(
+            loop_tag = %tag,
+            verdict = r.verdict.as_str(),
+            is_final,
+            sp_from = r.sp_from,
+            sp_to = r.sp_to,
+            settling_time_s = r.settling_time_s,
+            min_settling_time_s = r.min_settling_time_s,
+            "setpoint change scored"
+        );
+        if r.verdict.is_miss() {
+            let evidence = serde_json::json!({
+                "start": rfc3339(start_ms),
+                "sp_from": r.sp_from,
+                "sp_to": r.sp_to,
+                "settling_time_s": r.settling_time_s,
+                "overshoot_pct": r.overshoot_pct,
+                "min_settling_time_s": r.min_settling_time_s,
+                "required_op_limit": r.required_op_limit,
+                "capacity_ratio": r.capacity_ratio,
+                "saturation_duty": r.saturation_duty,
+                "final": is_final,
+            });
+            let message = format!("{}: {}", tag, r.reason);
+            self.raise(
+                tag,
+                r.verdict.as_str(),
+                message,
+                evidence,
+                start_ms.max(end_ms),
+            )
+            .await;
+        }
+    }
+
+    /// Records an alert (one open per loop and kind), logs it and publishes it.
+    async fn raise(
+        &mut self,
+        tag: &Arc<str>,
+        kind: &str,
+        message: String,
+        evidence: serde_json::Value,
+        seen_ms: i64,
+    ) {
+        let input = AlertInput {
+            loop_tag: tag.to_string(),
+            kind: kind.to_string(),
+            message: message.clone(),
+            evidence: evidence.clone(),
+            seen_ms,
+        };
+        match self.store.raise_alert(input).await {
+            Ok(row) => {
+                self.counters.alerts_raised += 1;
+                tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, count = row.count, "alert: {message}");
+                if let Some(topic) = &self.settings.alert_topic {
+                    let payload = serde_json::json!({
+                        "id": row.id,
+                        "loop": tag.as_ref(),
+                        "kind": kind,
+                        "state": row.state,
+                        "count": row.count,
+                        "first_seen": rfc3339(row.first_seen_ms),
+                        "last_seen": rfc3339(row.last_seen_ms),
+                        "message": message,
+                        "evidence": evidence,
+                        "caution": CAUTION,
+                    });
+                    let _ = self
+                        .outbound
+                        .send(Outbound::Publish {
+                            topic: topic.clone(),
+                            payload: payload.to_string().into_bytes(),
+                        })
+                        .await;
+                }
+            }
+            Err(e) => {
+                tracing::error!(loop_tag = %tag, kind, error = %e, "could not record an alert")
+            }
+        }
+    }
+
+    /// Raises a `stale_tag` alert for each loop with a signal silent for longer than its limit.
+    async fn check_stale(&mut self) {
+        let Some(now) = self.clock.now_ms() else {
+            return;
+        };
+        let mut newly: Vec<(Arc<str>, Vec<Signal>, serde_json::Value)> = Vec::new();
+        for (tag, rt) in self.loops.iter_mut() {
+            let limit_ms = (rt.stale_after_periods * rt.expected_period_s * 1000.0) as i64;
+            let silent: Vec<Signal> = rt
+                .expected
+                .iter()
+                .copied()
+                .filter(|s| rt.last_seen_ms.get(s).is_none_or(|&t| now - t > limit_ms))
+                .collect();
+            let fresh: Vec<Signal> = silent
+                .iter()
+                .copied()
+                .filter(|s| !rt.stale.contains(s))
+                .collect();
+            if !fresh.is_empty() {
+                let detail: serde_json::Map<String, serde_json::Value> = silent
+                    .iter()
+                    .map(|s| {
+                        let last = rt.last_seen_ms.get(s).map(|&t| rfc3339(t));
+                        (
+                            s.as_str().to_string(),
+                            serde_json::json!({ "last_sample": last }),
+                        )
+                    })
+                    .collect();
+                newly.push((
+                    tag.clone(),
+                    fresh.clone(),
+                    serde_json::Value::Object(detail),
+                ));
+            }
+            rt.stale = silent;
+        }
+        for (tag, signals, evidence) in newly {
+            let names: Vec<&str> = signals.iter().map(|s| s.as_str()).collect();
+            let message = format!(
+                "{tag}: no {} sample for more than the expected period times the stale limit",
+                names.join("/")
+            );
+            self.raise(&tag, "stale_tag", message, evidence, now).await;
+        }
+    }
+
+    async fn publish_status(&mut self) {
+        let Some(topic) = &self.settings.status_topic else {
+            return;
+        };
+        let payload = serde_json::json!({
+            "time": jiff::Timestamp::now().to_string(),
+            "counters": &self.counters,
+            "loops": self.loops.len(),
+        });
+        let _ = self
+            .outbound
+            .send(Outbound::Publish {
+                topic: topic.clone(),
+                payload: payload.to_string().into_bytes(),
+            })
+            .await;
+    }
+
+    async fn prune(&mut self) {
+        let (Some(keep), Some(now)) = (self.settings.raw_retention_ms, self.clock.now_ms()) else {
+            return;
+        };
+        // Keep the undisturbed stretch before every episode that identification looks at.
+        let margin = self
+            .loops
+            .values()
+            .map(|rt| {
+                let s = rt.tracker.setup();
+                (0.25 * s.options.horizon_factor * s.spec.settle_within_s * 1000.0) as i64
+            })
+            .max()
+            .unwrap_or(0);
+        match self.store.prune_samples(now - keep, margin).await {
+            Ok(n) if n > 0 => tracing::info!(deleted = n, "pruned old raw samples"),
+            Ok(_) => {}
+            Err(e) => tracing::warn!(error = %e, "could not prune old raw samples"),
+        }
+    }
+}
+
+fn log_model(tag: &str, m: &Model) {
+    tracing::info!(
+        loop_tag = tag,
+        gain = m.gain,
+        time_constant_s = m.time_constant_s,
+        dead_time_s = m.dead_time_s,
+        fit_r2 = m.fit_r2,
+        "process model identified"
+    );
+}
+
+async fn sleep_until(deadline: Option<tokio::time::Instant>) {
+    match deadline {
+        Some(d) => tokio::time::sleep_until(d).await,
+        None => std::future::pending().await,
+    }
+}
+
+/// RFC 3339 text of epoch milliseconds.
+pub fn rfc3339(ms: i64) -> String {
+    jiff::Timestamp::from_millisecond(ms).map_or_else(|_| ms.to_string(), |t| t.to_string())
+}
