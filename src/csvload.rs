@@ -197,22 +197,26 @@ pub struct IntervalStats {
 
 impl IntervalStats {
     fn of(time_s: &[f64]) -> Option<IntervalStats> {
-        let mut d: Vec<f64> = time_s.windows(2).map(|w| w[1] - w[0]).collect();
-        if d.is_empty() {
-            return None;
-        }
-        d.sort_by(f64::total_cmp);
-        let n = d.len();
-        let median = if n % 2 == 1 {
-            d[n / 2]
+        let intervals = || time_s.windows(2).map(|w| w[1] - w[0]);
+        let min = intervals().min_by(f64::total_cmp)?;
+        let max = intervals().max_by(f64::total_cmp)?;
+        let n = time_s.len() - 1;
+        // The two middle intervals in sorted order (one and the same for an odd count), found
+        // without sorting; with regular sampling every interval is the minimum.
+        let (lower_middle, upper_middle) = if min.total_cmp(&max) == Ordering::Equal {
+            (min, min)
         } else {
-            (d[n / 2 - 1] + d[n / 2]) / 2.0
+            let mut d: Vec<f64> = intervals().collect();
+            let (lower, &mut upper, _) = d.select_nth_unstable_by(n / 2, f64::total_cmp);
+            let lower = lower.iter().copied().max_by(f64::total_cmp);
+            (lower.unwrap_or(upper), upper)
         };
-        Some(IntervalStats {
-            min: d[0],
-            median,
-            max: d[n - 1],
-        })
+        let median = if n % 2 == 1 {
+            upper_middle
+        } else {
+            (lower_middle + upper_middle) / 2.0
+        };
+        Some(IntervalStats { min, median, max })
     }
 
     /// Whether the intervals differ by more than rounding in the export would explain.
@@ -285,6 +289,29 @@ fn serialize_origin<S: serde::Serializer>(
 }
 
 impl LoadReport {
+    /// The report before any data row is read.
+    fn empty(layout: &Layout, delimiter: char, bom_stripped: bool) -> LoadReport {
+        LoadReport {
+            header_row: layout.row,
+            columns: layout.column_names(),
+            delimiter,
+            bom_stripped,
+            data_rows: 0,
+            rows_kept: 0,
+            time_origin: None,
+            empty_rows: Tally::default(),
+            repeated_headers: Tally::default(),
+            short_rows: Tally::default(),
+            trailing_empty_cells: Tally::default(),
+            dropped: DroppedRows::default(),
+            out_of_order: Tally::default(),
+            exact_duplicates: Tally::default(),
+            conflicting_duplicates: Tally::default(),
+            mode: None,
+            sample_interval_s: None,
+        }
+    }
+
     /// One plain-English line per handling that was applied, for people to read. A clean file
     /// with time in seconds and regular sampling gives no lines.
     pub fn notes(&self) -> Vec<String> {
@@ -598,215 +625,111 @@ fn reasons(report: &LoadReport) -> String {
 /// The whole file is read into memory first (the series needs every row anyway).
 pub fn load_csv<R: Read>(reader: R, opts: &CsvOptions) -> Result<Loaded, CsvError> {
     let text = Text::read(reader)?;
-    let delimiter = detect_delimiter(text.first_line());
+    let bytes = text.body();
+    let delimiter = detect_delimiter(first_line(bytes));
+    // Without a quote anywhere in the file, each non-empty line is one record and its cells are
+    // the text between delimiters, exactly as the CSV reader would split it; splitting directly
+    // is much faster. A quoted cell may hold delimiters or line breaks, so files with quotes go
+    // through the CSV reader.
+    if bytes.contains(&b'"') {
+        load_quoted(bytes, text.bom_stripped, delimiter, opts)
+    } else {
+        load_plain(bytes, text.bom_stripped, delimiter, opts)
+    }
+}
+
+/// Loads a file without quotes, splitting lines and cells directly.
+fn load_plain(
+    bytes: &[u8],
+    bom_stripped: bool,
+    delimiter: u8,
+    opts: &CsvOptions,
+) -> Result<Loaded, CsvError> {
+    // The CSV reader skips a byte-order mark at the very start of what it is given (which is
+    // after the one `Text` strips, if the file has two), so this does too.
+    let second_bom = bytes.starts_with(UTF8_BOM);
+    let mut records = PlainRecords {
+        bytes,
+        pos: if second_bom { UTF8_BOM.len() } else { 0 },
+        line: 1,
+        delimiter,
+    };
+    let mut cells: Vec<PlainCell> = Vec::new();
+    let Some(row) = records.next_into(&mut cells) else {
+        return Err(CsvError::Empty);
+    };
+    // The CSV reader then places the header where the mark is, on row 1, even when blank lines
+    // follow the mark; the header row is given the same way here so that both routes agree.
+    let row = if second_bom { 1 } else { row };
+    let start = Start {
+        bom_stripped,
+        delimiter,
+        rows_hint: rows_hint(bytes),
+    };
+    let mut loader = Loader::new(&cells[..], row, start, opts)?;
+    while let Some(row) = records.next_into(&mut cells) {
+        loader.take(&cells[..], row)?;
+    }
+    loader.finish()
+}
+
+/// Loads a file with quotes through the CSV reader.
+fn load_quoted(
+    bytes: &[u8],
+    bom_stripped: bool,
+    delimiter: u8,
+    opts: &CsvOptions,
+) -> Result<Loaded, CsvError> {
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(false)
         .flexible(true)
         .delimiter(delimiter)
-        .from_reader(&text.bytes[..]);
-
+        .from_reader(bytes);
+    let mut lines = LineCounter {
+        bytes,
+        at: 0,
+        breaks: 0,
+    };
     let mut record = csv::ByteRecord::new();
-    if !next_record(&mut rdr, &mut record, &text)? {
+    if !next_record(&mut rdr, &mut record, &mut lines)? {
         return Err(CsvError::Empty);
     }
-    let layout = Layout::from_header(&record, text.row_of(&record), &opts.columns)?;
-    let auto_values: Vec<String> = opts
-        .auto_values
-        .iter()
-        .map(|v| v.trim().to_lowercase())
-        .collect();
-
-    let mut report = LoadReport {
-        header_row: layout.row,
-        columns: layout.column_names(),
-        delimiter: char::from(delimiter),
-        bom_stripped: text.bom_stripped,
-        data_rows: 0,
-        rows_kept: 0,
-        time_origin: None,
-        empty_rows: Tally::default(),
-        repeated_headers: Tally::default(),
-        short_rows: Tally::default(),
-        trailing_empty_cells: Tally::default(),
-        dropped: DroppedRows::default(),
-        out_of_order: Tally::default(),
-        exact_duplicates: Tally::default(),
-        conflicting_duplicates: Tally::default(),
-        mode: None,
-        sample_interval_s: None,
+    let start = Start {
+        bom_stripped,
+        delimiter,
+        rows_hint: rows_hint(bytes),
     };
-    let mut time_kind: Option<(TimeFormat, u64)> = None;
-    let mut manual_texts: Vec<String> = Vec::new();
-    let mut rows: Vec<Row> = Vec::new();
-
-    while next_record(&mut rdr, &mut record, &text)? {
-        let row = text.row_of(&record);
-        report.data_rows += 1;
-
-        if record.iter().all(is_blank) {
-            report.empty_rows.add(row);
-            continue;
-        }
-        let width = layout.names.len();
-        if record.len() < width {
-            report.short_rows.add(row);
-        } else if record.len() > width {
-            if record.iter().skip(width).all(is_blank) {
-                report.trailing_empty_cells.add(row);
-            } else {
-                report.dropped.too_many_cells.add(row);
-                report.dropped.total += 1;
-                continue;
-            }
-        }
-
-        let time_text = layout.cell(&record, layout.time, row)?;
-        let time = match read_time(time_text, &mut time_kind, row, &layout.names[layout.time]) {
-            Ok(time) => time,
-            // Checked only here, where the time failed, to keep the common path cheap.
-            Err(_) if layout.is_header_again(&record) => {
-                report.repeated_headers.add(row);
-                continue;
-            }
-            Err(e) => return Err(e),
-        };
-
-        let mut usable = true;
-        let values = [
-            (layout.sp, &mut report.dropped.sp),
-            (layout.pv, &mut report.dropped.pv),
-            (layout.op, &mut report.dropped.op),
-        ]
-        .map(|(col, drops)| -> Result<f64, CsvError> {
-            let text = layout.cell(&record, col, row)?;
-            Ok(match read_value(text) {
-                Ok(v) => v,
-                Err(reason) => {
-                    usable = false;
-                    match reason {
-                        ValueProblem::Blank => drops.blank.add(row),
-                        ValueProblem::NotANumber => drops.not_a_number.add_with_example(row, text),
-                        ValueProblem::NotFinite => drops.not_finite.add_with_example(row, text),
-                    }
-                    f64::NAN
-                }
-            })
-        });
-        let [sp, pv, op] = values;
-        let (sp, pv, op) = (sp?, pv?, op?);
-
-        let mode = match layout.mode {
-            None => None,
-            Some(col) => {
-                let text = layout.cell(&record, col, row)?;
-                if text.is_empty() {
-                    report.dropped.mode_blank.add(row);
-                    usable = false;
-                    None
-                } else {
-                    Some(read_mode(text, &auto_values, &mut manual_texts))
-                }
-            }
-        };
-
-        if !usable {
-            report.dropped.total += 1;
-            continue;
-        }
-        rows.push(Row {
-            row,
-            time,
-            sp,
-            pv,
-            op,
-            mode,
-        });
+    let row = lines.row_of(&record);
+    let mut loader = Loader::new(&record, row, start, opts)?;
+    while next_record(&mut rdr, &mut record, &mut lines)? {
+        let row = lines.row_of(&record);
+        loader.take(&record, row)?;
     }
-
-    // Out of order: earlier than the latest time seen above it in the file.
-    let mut latest: Option<TimeValue> = None;
-    for r in &rows {
-        match latest {
-            Some(l) if cmp_time(&r.time, &l) == Ordering::Less => report.out_of_order.add(r.row),
-            _ => latest = Some(r.time),
-        }
-    }
-    // Stable, so rows sharing a time stay in file order and "last" below means last in the file.
-    rows.sort_by(|a, b| cmp_time(&a.time, &b.time));
-    let rows = dedup(rows, &mut report);
-
-    if layout.mode.is_some() {
-        let mut summary = ModeSummary::default();
-        for r in &rows {
-            match r.mode {
-                Some(ModeCell::Auto) => summary.auto_rows += 1,
-                Some(ModeCell::Manual(text)) => {
-                    summary.manual_rows += 1;
-                    let key = text.map_or(OTHER_MANUAL_TEXTS, |i| manual_texts[i].as_str());
-                    *summary.read_as_manual.entry(key.to_owned()).or_default() += 1;
-                }
-                None => {}
-            }
-        }
-        report.mode = Some(summary);
-    }
-
-    let origin = match rows.first().map(|r| r.time) {
-        Some(TimeValue::Instant(ts)) => Some(ts),
-        _ => None,
-    };
-    report.time_origin = origin;
-    let time_s: Vec<f64> = rows
-        .iter()
-        .map(|r| match r.time {
-            TimeValue::Seconds(s) => s,
-            TimeValue::Instant(ts) => seconds_since(origin.unwrap_or(ts), ts),
-        })
-        .collect();
-    // Two distinct timestamps nanoseconds apart can round to the same f64 far from the origin.
-    if let Some(i) = time_s.windows(2).position(|w| w[1] <= w[0]) {
-        return Err(CsvError::TimesTooClose {
-            first: rows[i].row.min(rows[i + 1].row),
-            second: rows[i].row.max(rows[i + 1].row),
-        });
-    }
-    report.rows_kept = rows.len();
-    report.sample_interval_s = IntervalStats::of(&time_s);
-
-    if rows.len() < MIN_ROWS {
-        return Err(CsvError::TooFewRows {
-            usable: rows.len(),
-            needed: MIN_ROWS,
-            report: Box::new(report),
-        });
-    }
-
-    let auto = layout.mode.map(|_| {
-        rows.iter()
-            .map(|r| matches!(r.mode, Some(ModeCell::Auto)))
-            .collect()
-    });
-    let series = Series::new(
-        time_s,
-        rows.iter().map(|r| r.sp).collect(),
-        rows.iter().map(|r| r.pv).collect(),
-        rows.iter().map(|r| r.op).collect(),
-        auto,
-    )?;
-    Ok(Loaded { series, report })
+    loader.finish()
 }
 
-/// The whole file in memory, with what is needed to name rows by their line in the file.
+/// About how many rows the file has, to size the columns once: its count of line feeds.
+fn rows_hint(bytes: &[u8]) -> usize {
+    count_byte(bytes, b'\n') + 1
+}
+
+/// How many times `byte` occurs in `bytes`.
+fn count_byte(bytes: &[u8], byte: u8) -> usize {
+    // Counted in blocks small enough for a byte-wide count, which the compiler vectorises well.
+    let in_block = |block: &[u8]| block.iter().map(|&b| u8::from(b == byte)).sum::<u8>();
+    bytes
+        .chunks(255)
+        .map(|block| usize::from(in_block(block)))
+        .sum()
+}
+
+/// The whole file in memory.
 ///
-/// The CSV reader's own line count drifts when blank lines come before a record, so rows are
-/// numbered here from byte offsets instead. Holding the file costs little: the series needs all
-/// rows in memory anyway.
+/// Holding the file costs little: the series needs all rows in memory anyway.
 struct Text {
-    /// The file's bytes, without a leading byte-order mark.
+    /// The file's bytes, including a leading byte-order mark if it has one.
     bytes: Vec<u8>,
     bom_stripped: bool,
-    /// Offset where each line starts; lines end at "\n", "\r\n" or a lone "\r".
-    line_starts: Vec<usize>,
 }
 
 impl Text {
@@ -814,69 +737,60 @@ impl Text {
         let mut bytes = Vec::new();
         if let Err(source) = reader.read_to_end(&mut bytes) {
             // What was read before the failure is in `bytes`, so the row can still be named.
-            let row = line_starts(&bytes).len() as u64;
+            let row = 1 + count_line_breaks(&bytes, 0, bytes.len());
             return Err(CsvError::Io { row, source });
         }
         let bom_stripped = bytes.starts_with(UTF8_BOM);
-        if bom_stripped {
-            bytes.drain(..UTF8_BOM.len());
-        }
-        let line_starts = line_starts(&bytes);
         Ok(Text {
             bytes,
             bom_stripped,
-            line_starts,
         })
     }
 
-    /// The 1-based line holding byte `offset`.
-    fn row_at(&self, offset: usize) -> u64 {
-        self.line_starts.partition_point(|&s| s <= offset) as u64
-    }
-
-    /// The row a record starts on. Its recorded offset may sit before line breaks the reader
-    /// skipped (blank lines), so those are stepped over first.
-    fn row_of(&self, record: &csv::ByteRecord) -> u64 {
-        let mut at = record.position().map_or(0, |p| p.byte() as usize);
-        while self
-            .bytes
-            .get(at)
-            .is_some_and(|b| matches!(b, b'\r' | b'\n'))
-        {
-            at += 1;
-        }
-        self.row_at(at)
-    }
-
-    /// The first line with any content, without its line break: the header.
-    fn first_line(&self) -> &[u8] {
-        let ends = self.line_starts.iter().skip(1).copied();
-        self.line_starts
-            .iter()
-            .zip(ends.chain(std::iter::once(self.bytes.len())))
-            .map(|(&a, b)| trim_line_end(&self.bytes[a..b]))
-            .find(|line| !line.is_empty())
-            .unwrap_or_default()
+    /// The file without a leading byte-order mark.
+    fn body(&self) -> &[u8] {
+        let skip = if self.bom_stripped { UTF8_BOM.len() } else { 0 };
+        &self.bytes[skip..]
     }
 }
 
-fn line_starts(bytes: &[u8]) -> Vec<usize> {
-    let mut starts = vec![0];
-    for (i, &b) in bytes.iter().enumerate() {
-        let lone_cr = b == b'\r' && bytes.get(i + 1) != Some(&b'\n');
-        if b == b'\n' || lone_cr {
-            starts.push(i + 1);
-        }
+/// How many lines end in `bytes[from..to]`; lines end at "\n", "\r\n" or a lone "\r". A "\r" at
+/// `to - 1` is looked at together with the byte after it.
+fn count_line_breaks(bytes: &[u8], from: usize, to: usize) -> u64 {
+    let to = to.min(bytes.len());
+    let from = from.min(to);
+    let span = &bytes[from..to];
+    let line_feeds = count_byte(span, b'\n');
+    let returns = count_byte(span, b'\r');
+    if returns == 0 {
+        return line_feeds as u64;
     }
-    starts
+    // A "\r" right before a "\n" is part of the same line break.
+    let next = &bytes[from + 1..(to + 1).min(bytes.len())];
+    let pairs: usize = span
+        .chunks(255)
+        .zip(next.chunks(255))
+        .map(|(a, b)| {
+            let in_block = a
+                .iter()
+                .zip(b)
+                .map(|(&a, &b)| u8::from(a == b'\r' && b == b'\n'));
+            usize::from(in_block.sum::<u8>())
+        })
+        .sum();
+    (line_feeds + returns - pairs) as u64
 }
 
-fn trim_line_end(line: &[u8]) -> &[u8] {
-    let end = line
+/// The first line with any content, without its line break: the header.
+fn first_line(bytes: &[u8]) -> &[u8] {
+    let is_break = |b: &u8| matches!(b, b'\r' | b'\n');
+    let start = bytes
         .iter()
-        .rposition(|&b| b != b'\n' && b != b'\r')
-        .map_or(0, |i| i + 1);
-    &line[..end]
+        .position(|b| !is_break(b))
+        .unwrap_or(bytes.len());
+    let rest = &bytes[start..];
+    let end = rest.iter().position(is_break).unwrap_or(rest.len());
+    &rest[..end]
 }
 
 /// Comma, unless the header has none but has semicolons or tabs.
@@ -893,14 +807,118 @@ fn detect_delimiter(header: &[u8]) -> u8 {
     }
 }
 
+/// The records of a file without quotes: each non-empty line is one record, split at the
+/// delimiter. Rows are counted as the lines go by, and each cell that is a plain decimal is read
+/// on the way.
+struct PlainRecords<'a> {
+    bytes: &'a [u8],
+    pos: usize,
+    /// The line `pos` is on.
+    line: u64,
+    delimiter: u8,
+}
+
+/// One cell of a file without quotes.
+#[derive(Debug, Clone, Copy)]
+struct PlainCell<'a> {
+    text: &'a [u8],
+    /// The cell's value if it is a plain decimal, as [`plain_decimal`] reads it.
+    number: Option<f64>,
+}
+
+impl<'a> PlainRecords<'a> {
+    /// Puts the next record's cells in `cells` and returns its row, or `None` at the end.
+    fn next_into(&mut self, cells: &mut Vec<PlainCell<'a>>) -> Option<u64> {
+        let bytes = self.bytes;
+        let mut pos = self.pos;
+        // Empty lines are not records; step over them, counting each line break once.
+        while let Some(&b) = bytes.get(pos) {
+            match b {
+                b'\n' => self.line += 1,
+                b'\r' if bytes.get(pos + 1) != Some(&b'\n') => self.line += 1,
+                b'\r' => {}
+                _ => break,
+            }
+            pos += 1;
+        }
+        if pos >= bytes.len() {
+            self.pos = pos;
+            return None;
+        }
+        cells.clear();
+        loop {
+            let start = pos;
+            let (mut number, used) = decimal_prefix(&bytes[pos..]);
+            pos += used;
+            // Anything after the decimal makes the cell text of another kind.
+            while let Some(&b) = bytes.get(pos) {
+                if b == self.delimiter || b == b'\n' || b == b'\r' {
+                    break;
+                }
+                number = None;
+                pos += 1;
+            }
+            cells.push(PlainCell {
+                text: &bytes[start..pos],
+                number,
+            });
+            if bytes.get(pos) != Some(&self.delimiter) {
+                break;
+            }
+            pos += 1;
+        }
+        self.pos = pos;
+        Some(self.line)
+    }
+}
+
+/// Names records read by the CSV reader by their line in the file.
+///
+/// The CSV reader's own line count drifts when blank lines come before a record, so rows are
+/// counted here from byte offsets instead. Records come in file order, so the count only moves
+/// forward.
+struct LineCounter<'a> {
+    bytes: &'a [u8],
+    /// Offset up to which line breaks have been counted.
+    at: usize,
+    breaks: u64,
+}
+
+impl LineCounter<'_> {
+    /// The 1-based line holding byte `offset`.
+    fn row_at(&mut self, offset: usize) -> u64 {
+        if offset < self.at {
+            self.at = 0;
+            self.breaks = 0;
+        }
+        self.breaks += count_line_breaks(self.bytes, self.at, offset);
+        self.at = offset;
+        1 + self.breaks
+    }
+
+    /// The row a record starts on. Its recorded offset may sit before line breaks the reader
+    /// skipped (blank lines), so those are stepped over first.
+    fn row_of(&mut self, record: &csv::ByteRecord) -> u64 {
+        let mut at = record.position().map_or(0, |p| p.byte() as usize);
+        while self
+            .bytes
+            .get(at)
+            .is_some_and(|b| matches!(b, b'\r' | b'\n'))
+        {
+            at += 1;
+        }
+        self.row_at(at)
+    }
+}
+
 fn next_record(
     rdr: &mut csv::Reader<&[u8]>,
     record: &mut csv::ByteRecord,
-    text: &Text,
+    lines: &mut LineCounter,
 ) -> Result<bool, CsvError> {
     rdr.read_byte_record(record).map_err(|e| {
         let at = e.position().unwrap_or(rdr.position()).byte();
-        let row = text.row_at(at as usize);
+        let row = lines.row_at(at as usize);
         match e.into_kind() {
             csv::ErrorKind::Io(source) => CsvError::Io { row, source },
             other => CsvError::Malformed {
@@ -911,8 +929,57 @@ fn next_record(
     })
 }
 
+/// The cells of one record, whichever way the file was split.
+trait Cells {
+    fn cell_count(&self) -> usize;
+    fn cell_at(&self, i: usize) -> Option<&[u8]>;
+    fn cells(&self) -> impl Iterator<Item = &[u8]>;
+
+    /// The value of cell `i` if it is a plain decimal; see [`plain_decimal`].
+    fn plain_number_at(&self, i: usize) -> Option<f64> {
+        self.cell_at(i).and_then(plain_decimal)
+    }
+}
+
+impl Cells for csv::ByteRecord {
+    fn cell_count(&self) -> usize {
+        self.len()
+    }
+
+    fn cell_at(&self, i: usize) -> Option<&[u8]> {
+        self.get(i)
+    }
+
+    fn cells(&self) -> impl Iterator<Item = &[u8]> {
+        self.iter()
+    }
+}
+
+impl Cells for [PlainCell<'_>] {
+    fn cell_count(&self) -> usize {
+        self.len()
+    }
+
+    fn cell_at(&self, i: usize) -> Option<&[u8]> {
+        self.get(i).map(|c| c.text)
+    }
+
+    fn cells(&self) -> impl Iterator<Item = &[u8]> {
+        self.iter().map(|c| c.text)
+    }
+
+    fn plain_number_at(&self, i: usize) -> Option<f64> {
+        self.get(i).and_then(|c| c.number)
+    }
+}
+
 /// Blank as [`Layout::cell`] would read it: nothing but whitespace.
 fn is_blank(cell: &[u8]) -> bool {
+    // A visible ASCII character is neither whitespace nor part of a multi-byte character, so
+    // the usual first byte of a number settles it without decoding the cell.
+    if cell.first().is_some_and(u8::is_ascii_graphic) {
+        return false;
+    }
     std::str::from_utf8(cell).is_ok_and(|s| s.trim().is_empty())
 }
 
@@ -929,14 +996,14 @@ struct Layout {
 }
 
 impl Layout {
-    fn from_header(
-        record: &csv::ByteRecord,
+    fn from_header<C: Cells + ?Sized>(
+        record: &C,
         row: u64,
         wanted: &CsvColumns,
     ) -> Result<Layout, CsvError> {
-        let header_not_utf8 = record.iter().any(|c| std::str::from_utf8(c).is_err());
+        let header_not_utf8 = record.cells().any(|c| std::str::from_utf8(c).is_err());
         let names: Vec<String> = record
-            .iter()
+            .cells()
             .map(|c| String::from_utf8_lossy(c).trim().to_owned())
             .collect();
         let lower: Vec<String> = names.iter().map(|n| n.to_lowercase()).collect();
@@ -990,22 +1057,22 @@ impl Layout {
         }
     }
 
-    fn is_header_again(&self, record: &csv::ByteRecord) -> bool {
-        record.len() == self.lower.len()
+    fn is_header_again<C: Cells + ?Sized>(&self, record: &C) -> bool {
+        record.cell_count() == self.lower.len()
             && record
-                .iter()
+                .cells()
                 .zip(&self.lower)
                 .all(|(c, name)| String::from_utf8_lossy(c).trim().to_lowercase() == *name)
     }
 
     /// The trimmed text of one cell; a cell missing from a short row reads as blank.
-    fn cell<'r>(
+    fn cell<'r, C: Cells + ?Sized>(
         &self,
-        record: &'r csv::ByteRecord,
+        record: &'r C,
         col: usize,
         row: u64,
     ) -> Result<&'r str, CsvError> {
-        match record.get(col) {
+        match record.cell_at(col) {
             None => Ok(""),
             Some(bytes) => {
                 std::str::from_utf8(bytes)
@@ -1017,6 +1084,399 @@ impl Layout {
             }
         }
     }
+}
+
+/// What the loader knows before the first data row.
+struct Start {
+    bom_stripped: bool,
+    delimiter: u8,
+    /// About how many rows to expect; only sizes the columns.
+    rows_hint: usize,
+}
+
+/// Applies the module's policy to one data row at a time, then orders and checks the rows kept.
+struct Loader {
+    layout: Layout,
+    /// The automatic mode texts, trimmed and lower-case.
+    auto_values: Vec<String>,
+    report: LoadReport,
+    /// The file's time format and the row that fixed it.
+    time_kind: Option<(TimeFormat, u64)>,
+    /// Distinct texts read as manual, in the order first met.
+    manual_texts: Vec<String>,
+    kept: Kept,
+}
+
+impl Loader {
+    fn new<C: Cells + ?Sized>(
+        header: &C,
+        row: u64,
+        start: Start,
+        opts: &CsvOptions,
+    ) -> Result<Loader, CsvError> {
+        let layout = Layout::from_header(header, row, &opts.columns)?;
+        let auto_values: Vec<String> = opts
+            .auto_values
+            .iter()
+            .map(|v| v.trim().to_lowercase())
+            .collect();
+        let report = LoadReport::empty(&layout, char::from(start.delimiter), start.bom_stripped);
+        let kept = Kept::with_capacity(start.rows_hint, layout.mode.is_some());
+        Ok(Loader {
+            layout,
+            auto_values,
+            report,
+            time_kind: None,
+            manual_texts: Vec::new(),
+            kept,
+        })
+    }
+
+    /// Handles one data row: skips, drops or keeps it, counting what it did.
+    fn take<C: Cells + ?Sized>(&mut self, record: &C, row: u64) -> Result<(), CsvError> {
+        let Loader {
+            layout,
+            auto_values,
+            report,
+            time_kind,
+            manual_texts,
+            kept,
+        } = self;
+        report.data_rows += 1;
+
+        if record.cells().all(is_blank) {
+            report.empty_rows.add(row);
+            return Ok(());
+        }
+        let width = layout.names.len();
+        let len = record.cell_count();
+        if len < width {
+            report.short_rows.add(row);
+        } else if len > width {
+            if record.cells().skip(width).all(is_blank) {
+                report.trailing_empty_cells.add(row);
+            } else {
+                report.dropped.too_many_cells.add(row);
+                report.dropped.total += 1;
+                return Ok(());
+            }
+        }
+
+        // A plain decimal is a number of seconds, which fits any file but one whose time format
+        // is already fixed as RFC 3339; everything else takes the general route.
+        let seconds = match time_kind {
+            Some((TimeFormat::Rfc3339, _)) => None,
+            _ => record.plain_number_at(layout.time),
+        };
+        let time = match seconds {
+            Some(s) => {
+                time_kind.get_or_insert((TimeFormat::Seconds, row));
+                TimeValue::Seconds(s)
+            }
+            None => {
+                let text = layout.cell(record, layout.time, row)?;
+                match read_time(text, time_kind, row, &layout.names[layout.time]) {
+                    Ok(time) => time,
+                    // Checked only here, where the time failed, to keep the common path cheap.
+                    Err(_) if layout.is_header_again(record) => {
+                        report.repeated_headers.add(row);
+                        return Ok(());
+                    }
+                    Err(e) => return Err(e),
+                }
+            }
+        };
+
+        let mut usable = true;
+        let mut values = [0.0; 3];
+        let columns = [
+            (layout.sp, &mut report.dropped.sp),
+            (layout.pv, &mut report.dropped.pv),
+            (layout.op, &mut report.dropped.op),
+        ];
+        for (value, (col, drops)) in values.iter_mut().zip(columns) {
+            if let Some(v) = record.plain_number_at(col) {
+                *value = v;
+                continue;
+            }
+            let text = layout.cell(record, col, row)?;
+            match read_value(text) {
+                Ok(v) => *value = v,
+                Err(reason) => {
+                    usable = false;
+                    match reason {
+                        ValueProblem::Blank => drops.blank.add(row),
+                        ValueProblem::NotANumber => drops.not_a_number.add_with_example(row, text),
+                        ValueProblem::NotFinite => drops.not_finite.add_with_example(row, text),
+                    }
+                }
+            }
+        }
+
+        let mode = match layout.mode {
+            None => None,
+            Some(col) => {
+                let text = layout.cell(record, col, row)?;
+                if text.is_empty() {
+                    report.dropped.mode_blank.add(row);
+                    usable = false;
+                    None
+                } else {
+                    Some(read_mode(text, auto_values, manual_texts))
+                }
+            }
+        };
+
+        if !usable {
+            report.dropped.total += 1;
+            return Ok(());
+        }
+        kept.push(row, time, values, mode);
+        Ok(())
+    }
+
+    /// Orders the rows kept by time, resolves repeated times and builds the series.
+    fn finish(self) -> Result<Loaded, CsvError> {
+        let Loader {
+            layout,
+            mut report,
+            manual_texts,
+            kept,
+            ..
+        } = self;
+        let kept = kept.in_time_order(&mut report);
+
+        if layout.mode.is_some() {
+            let mut summary = ModeSummary::default();
+            for mode in &kept.mode {
+                match *mode {
+                    ModeCell::Auto => summary.auto_rows += 1,
+                    ModeCell::Manual(text) => {
+                        summary.manual_rows += 1;
+                        let key = text
+                            .and_then(|i| manual_texts.get(i))
+                            .map_or(OTHER_MANUAL_TEXTS, String::as_str);
+                        *summary.read_as_manual.entry(key.to_owned()).or_default() += 1;
+                    }
+                }
+            }
+            report.mode = Some(summary);
+        }
+
+        let Kept {
+            row: rows,
+            time,
+            sp,
+            pv,
+            op,
+            mode,
+        } = kept;
+        let time_s: Vec<f64> = match time {
+            Times::Seconds(seconds) => seconds,
+            Times::Any(times) => {
+                let origin = match times.first() {
+                    Some(TimeValue::Instant(ts)) => Some(*ts),
+                    _ => None,
+                };
+                report.time_origin = origin;
+                times
+                    .iter()
+                    .map(|t| match *t {
+                        TimeValue::Seconds(s) => s,
+                        TimeValue::Instant(ts) => seconds_since(origin.unwrap_or(ts), ts),
+                    })
+                    .collect()
+            }
+        };
+        // Two distinct timestamps nanoseconds apart can round to the same f64 far from the origin.
+        if let Some(i) = time_s.windows(2).position(|w| w[1] <= w[0]) {
+            return Err(CsvError::TimesTooClose {
+                first: rows[i].min(rows[i + 1]),
+                second: rows[i].max(rows[i + 1]),
+            });
+        }
+        report.rows_kept = time_s.len();
+        report.sample_interval_s = IntervalStats::of(&time_s);
+
+        if time_s.len() < MIN_ROWS {
+            return Err(CsvError::TooFewRows {
+                usable: time_s.len(),
+                needed: MIN_ROWS,
+                report: Box::new(report),
+            });
+        }
+
+        let auto = layout
+            .mode
+            .map(|_| mode.iter().map(|m| *m == ModeCell::Auto).collect());
+        let series = Series::new(time_s, sp, pv, op, auto)?;
+        Ok(Loaded { series, report })
+    }
+}
+
+/// The rows kept so far, column by column, with what is needed to put them in time order.
+struct Kept {
+    /// Row (line in the file) of each kept row.
+    row: Vec<u64>,
+    time: Times,
+    sp: Vec<f64>,
+    pv: Vec<f64>,
+    op: Vec<f64>,
+    /// Empty without a mode column; otherwise one per kept row.
+    mode: Vec<ModeCell>,
+}
+
+/// The kept rows' times. Seconds are stored as they are, to become the series' time column
+/// directly; RFC 3339 times are held as read until the origin is known.
+enum Times {
+    Seconds(Vec<f64>),
+    Any(Vec<TimeValue>),
+}
+
+impl Times {
+    fn at(&self, i: usize) -> TimeValue {
+        match self {
+            Times::Seconds(s) => TimeValue::Seconds(s[i]),
+            Times::Any(t) => t[i],
+        }
+    }
+
+    /// Adds a time. A file has one time format (another is an error), so the first RFC 3339
+    /// time is the only one that can find seconds here and switch the column over.
+    fn push(&mut self, time: TimeValue) {
+        match (&mut *self, time) {
+            (Times::Seconds(s), TimeValue::Seconds(v)) => s.push(v),
+            (Times::Any(t), time) => t.push(time),
+            (Times::Seconds(s), time) => {
+                let mut any = Vec::with_capacity(s.capacity().max(s.len() + 1));
+                any.extend(s.iter().map(|&v| TimeValue::Seconds(v)));
+                any.push(time);
+                *self = Times::Any(any);
+            }
+        }
+    }
+
+    fn select(&self, order: &[usize]) -> Times {
+        match self {
+            Times::Seconds(s) => Times::Seconds(select(s, order)),
+            Times::Any(t) => Times::Any(select(t, order)),
+        }
+    }
+}
+
+/// The elements of `values` at `order`, in that order (positions past the end are skipped).
+fn select<T: Copy>(values: &[T], order: &[usize]) -> Vec<T> {
+    order
+        .iter()
+        .filter_map(|&i| values.get(i).copied())
+        .collect()
+}
+
+impl Kept {
+    fn with_capacity(n: usize, has_mode: bool) -> Kept {
+        Kept {
+            row: Vec::with_capacity(n),
+            time: Times::Seconds(Vec::with_capacity(n)),
+            sp: Vec::with_capacity(n),
+            pv: Vec::with_capacity(n),
+            op: Vec::with_capacity(n),
+            mode: if has_mode {
+                Vec::with_capacity(n)
+            } else {
+                Vec::new()
+            },
+        }
+    }
+
+    fn push(&mut self, row: u64, time: TimeValue, [sp, pv, op]: [f64; 3], mode: Option<ModeCell>) {
+        self.row.push(row);
+        self.time.push(time);
+        self.sp.push(sp);
+        self.pv.push(pv);
+        self.op.push(op);
+        if let Some(mode) = mode {
+            self.mode.push(mode);
+        }
+    }
+
+    /// Whether rows `a` and `b` carry the same values (their times being equal).
+    fn same_values(&self, a: usize, b: usize) -> bool {
+        let auto = |i: usize| self.mode.get(i).map(|m| *m == ModeCell::Auto);
+        self.sp[a] == self.sp[b]
+            && self.pv[a] == self.pv[b]
+            && self.op[a] == self.op[b]
+            && auto(a) == auto(b)
+    }
+
+    /// The rows sorted stably by time, so rows sharing a time stay in file order, with only the
+    /// last row of each run of equal times kept (the last in the file). The others count as
+    /// exact duplicates when their values match it, conflicting when not.
+    fn in_time_order(self, report: &mut LoadReport) -> Kept {
+        let increasing = match &self.time {
+            Times::Seconds(s) => {
+                count_out_of_order(s, f64::total_cmp, &self.row, &mut report.out_of_order)
+            }
+            Times::Any(t) => count_out_of_order(t, cmp_time, &self.row, &mut report.out_of_order),
+        };
+        if increasing {
+            return self;
+        }
+        let mut order: Vec<usize> = (0..self.row.len()).collect();
+        order.sort_by(|&a, &b| cmp_time(&self.time.at(a), &self.time.at(b)));
+
+        let mut keep: Vec<usize> = Vec::with_capacity(order.len());
+        let mut run_start = 0;
+        while run_start < order.len() {
+            let time = self.time.at(order[run_start]);
+            let run_end = order[run_start..]
+                .iter()
+                .position(|&i| cmp_time(&self.time.at(i), &time) != Ordering::Equal)
+                .map_or(order.len(), |n| run_start + n);
+            let last = order[run_end - 1];
+            for &i in &order[run_start..run_end - 1] {
+                if self.same_values(i, last) {
+                    report.exact_duplicates.add(self.row[i]);
+                } else {
+                    report.conflicting_duplicates.add(self.row[i]);
+                }
+            }
+            keep.push(last);
+            run_start = run_end;
+        }
+
+        Kept {
+            row: select(&self.row, &keep),
+            time: self.time.select(&keep),
+            sp: select(&self.sp, &keep),
+            pv: select(&self.pv, &keep),
+            op: select(&self.op, &keep),
+            mode: select(&self.mode, &keep),
+        }
+    }
+}
+
+/// Counts in `tally` the rows with a time earlier than the latest time above them in the file,
+/// and tells whether every time is later than the one before it (then the rows are in order
+/// already and no time repeats).
+fn count_out_of_order<T>(
+    times: &[T],
+    cmp: impl Fn(&T, &T) -> Ordering,
+    rows: &[u64],
+    tally: &mut Tally,
+) -> bool {
+    let mut increasing = true;
+    let mut latest: Option<&T> = None;
+    for (time, &row) in times.iter().zip(rows) {
+        match latest.map(|l| cmp(time, l)) {
+            Some(Ordering::Less) => {
+                increasing = false;
+                tally.add(row);
+            }
+            Some(Ordering::Equal) => increasing = false,
+            _ => latest = Some(time),
+        }
+    }
+    increasing
 }
 
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -1041,8 +1501,67 @@ fn seconds_since(origin: jiff::Timestamp, ts: jiff::Timestamp) -> f64 {
     (ns / 1_000_000_000) as f64 + (ns % 1_000_000_000) as f64 / 1e9
 }
 
+/// Powers of ten that are exact in an f64.
+const EXACT_POWERS_OF_TEN: [f64; 23] = [
+    1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
+    1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
+];
+
+/// The value of a cell written as a plain decimal (`-?digits[.digits]`, nothing around it), as
+/// [`finite_number`] would read it, or `None` for any other text.
+fn plain_decimal(bytes: &[u8]) -> Option<f64> {
+    let (value, used) = decimal_prefix(bytes);
+    if used == bytes.len() { value } else { None }
+}
+
+/// Reads the plain decimal `-?digits[.digits]` at the start of `bytes`, returning its value and
+/// how many bytes it takes up. The value is `None` when there is no digit before a point, or
+/// when the number is too long to convert here; the general parse then reads the cell.
+///
+/// With at most 2^53 as its digits and at most 22 of them after the point, the decimal is an
+/// exact integer divided by an exact power of ten, and one division rounds that quotient
+/// correctly, which is what `str::parse::<f64>` returns too. Exports nearly always write numbers
+/// this way, so this skips decoding and trimming the cell and the general parse's work for them.
+fn decimal_prefix(bytes: &[u8]) -> (Option<f64>, usize) {
+    let negative = bytes.first() == Some(&b'-');
+    let mut i = usize::from(negative);
+    let mut mantissa: u64 = 0;
+    let mut take_digits = |i: &mut usize| {
+        let start = *i;
+        while let Some(&b) = bytes.get(*i)
+            && b.is_ascii_digit()
+        {
+            // Wraps only past 19 digits, which are refused below.
+            mantissa = mantissa.wrapping_mul(10).wrapping_add(u64::from(b - b'0'));
+            *i += 1;
+        }
+        *i - start
+    };
+    let whole = take_digits(&mut i);
+    if whole == 0 {
+        return (None, i);
+    }
+    let mut decimals = 0;
+    if bytes.get(i) == Some(&b'.') {
+        i += 1;
+        decimals = take_digits(&mut i);
+    }
+    if whole + decimals > 19 || mantissa > 1 << 53 {
+        return (None, i);
+    }
+    let Some(&scale) = EXACT_POWERS_OF_TEN.get(decimals) else {
+        return (None, i);
+    };
+    let v = mantissa as f64 / scale;
+    // As in `finite_number`, -0 becomes +0.
+    (Some(if negative && v != 0.0 { -v } else { v }), i)
+}
+
 /// A finite number, with -0 made +0 so that equal times compare equal when sorted.
 fn finite_number(text: &str) -> Option<Result<f64, ()>> {
+    if let Some(v) = plain_decimal(text.as_bytes()) {
+        return Some(Ok(v));
+    }
     let v = text.parse::<f64>().ok()?;
     Some(if v.is_finite() {
         Ok(if v == 0.0 { 0.0 } else { v })
@@ -1137,16 +1656,21 @@ enum ModeCell {
 }
 
 fn read_mode(text: &str, auto_values: &[String], manual_texts: &mut Vec<String>) -> ModeCell {
-    let lower = text.to_lowercase();
     let numeric_auto = matches!(finite_number(text), Some(Ok(v)) if v != 0.0);
-    if numeric_auto || auto_values.contains(&lower) {
+    if numeric_auto || is_auto_text(text, auto_values) {
         return ModeCell::Auto;
     }
-    let key = excerpt(text);
-    let index = match manual_texts.iter().position(|t| *t == key) {
+    // Texts up to EXCERPT_CHARS bytes are their own excerpt, so only longer ones are shortened.
+    let found = if text.len() <= EXCERPT_CHARS {
+        manual_texts.iter().position(|t| t == text)
+    } else {
+        let key = excerpt(text);
+        manual_texts.iter().position(|t| *t == key)
+    };
+    let index = match found {
         Some(i) => Some(i),
         None if manual_texts.len() < MAX_MANUAL_TEXTS => {
-            manual_texts.push(key);
+            manual_texts.push(excerpt(text));
             Some(manual_texts.len() - 1)
         }
         None => None,
@@ -1154,53 +1678,15 @@ fn read_mode(text: &str, auto_values: &[String], manual_texts: &mut Vec<String>)
     ModeCell::Manual(index)
 }
 
-struct Row {
-    row: u64,
-    time: TimeValue,
-    sp: f64,
-    pv: f64,
-    op: f64,
-    mode: Option<ModeCell>,
-}
-
-impl Row {
-    fn same_values(&self, other: &Row) -> bool {
-        let auto = |m: Option<ModeCell>| m.map(|m| m == ModeCell::Auto);
-        self.sp == other.sp
-            && self.pv == other.pv
-            && self.op == other.op
-            && auto(self.mode) == auto(other.mode)
+/// Whether `text` lower-cased is one of `auto_values` (which are lower-case already).
+fn is_auto_text(text: &str, auto_values: &[String]) -> bool {
+    if text.is_ascii() {
+        // ASCII text lower-cases to ASCII, byte for byte, so comparing ignoring ASCII case gives
+        // the same answer without building the lower-case copy.
+        auto_values.iter().any(|v| text.eq_ignore_ascii_case(v))
+    } else {
+        auto_values.contains(&text.to_lowercase())
     }
-}
-
-/// Keeps the last row of each run of equal times (rows are sorted stably, so the last in the
-/// file); the others count as exact duplicates when their values match it, conflicting when not.
-fn dedup(rows: Vec<Row>, report: &mut LoadReport) -> Vec<Row> {
-    let mut kept: Vec<Row> = Vec::with_capacity(rows.len());
-    let mut run: Vec<Row> = Vec::new();
-    let mut flush = |run: &mut Vec<Row>, kept: &mut Vec<Row>| {
-        if let Some(last) = run.pop() {
-            for r in run.drain(..) {
-                if r.same_values(&last) {
-                    report.exact_duplicates.add(r.row);
-                } else {
-                    report.conflicting_duplicates.add(r.row);
-                }
-            }
-            kept.push(last);
-        }
-    };
-    for r in rows {
-        if run
-            .last()
-            .is_some_and(|prev| cmp_time(&prev.time, &r.time) != Ordering::Equal)
-        {
-            flush(&mut run, &mut kept);
-        }
-        run.push(r);
-    }
-    flush(&mut run, &mut kept);
-    kept
 }
 
 /// A cell's text shortened for quoting back to the user.
@@ -1848,6 +2334,219 @@ mod tests {
         assert!(msg.contains('…'));
     }
 
+    /// Everything a load produced, to compare two loads of the same file.
+    fn outcome(result: Result<Loaded, CsvError>) -> String {
+        match result {
+            Ok(l) => format!("{:?}\n{:?}\n{:?}", l.series, l.report, l.report.notes()),
+            Err(e) => format!("{e}\n{e:?}"),
+        }
+    }
+
+    /// Files without quotes that exercise every handling, for checking that they load the same
+    /// through the CSV reader.
+    fn messy_files() -> Vec<(Vec<u8>, CsvOptions)> {
+        let manual_texts: String = (0..20)
+            .map(|i| format!("{i},1,2,3,man{}\n", i % 18))
+            .fold(String::from("time,sp,pv,op,mode\n"), |text, row| {
+                text + &row
+            });
+        let texts: Vec<(&[u8], bool)> = vec![
+            (
+                b"time,sp,pv,op\n0,1,2,3\n1,1,2,3\n2,1,2,3\n3,1,2,3\n",
+                false,
+            ),
+            (
+                b"\xEF\xBB\xBF\n\nTime;SP;PV;OP\r\n2;1;2;30\r\n\r\n0;1;2;10\r\n3;1,5;2;40\r\
+                  1;1;2;20\r1;1;2;20\r4;;2;1\r5;1;x;1\r6;1;2;inf\r7;1;2;3;;\r8;1;2;3;9\r\
+                  9;1;2\r10;1;2;3\r;;;\rtime;sp;pv;op\r10;1;2;4\r11; 1 ;2;3",
+                false,
+            ),
+            (
+                b"time,sp,pv,op,mode\n0,1,2,3,auto\n1,1,2,3,MAN\n2,1,2,3,\n3,1,2,3,0\n\
+                  4,1,2,3,Cas\n5,1,2,3,MAN\n3,1,2,3,0\n6,1,2,3,2\n",
+                true,
+            ),
+            (manual_texts.as_bytes(), true),
+            (
+                b"time,sp,pv,op\n2024-05-01T08:00:10Z,1,2,3\n2024-05-01 10:00:20+02:00,1,2,3\n\
+                  2024-05-01T08:00:00.5z,1,2,3\n2024-05-01T08:00:10Z,1,2,3\n\
+                  2024-05-01T08:00:30Z,1,2,3\n",
+                false,
+            ),
+            (
+                b"time,sp,pv,op\n0,1,2,3\n1,1,2,3\n2024-05-01T08:00:00Z,1,2,3\n3,1,2,3\n",
+                false,
+            ),
+            (
+                b"time,sp,pv,op\n2024-05-01T08:00:00Z,1,2,3\n\n1,1,2,3\n2,1,\xFF,3\n",
+                false,
+            ),
+            (
+                b"time,sp,pv,op\n0,1,2,3\n1,1,Bad,3\n2,1,2,3\nnoon,1,2,3\n4,1,2,3\nx,1,2,3\n",
+                false,
+            ),
+            (
+                b"time,sp,pv,op\n0,1,2,3\n1,\xFF,2,3\n2,1,2,3\n3,1,\xFF,3\n",
+                false,
+            ),
+            (b"time,sp,pv,op\n0,1,2,3\n1,1,,3\n\n2,1,2,3\n", false),
+            (b"time,sp,pv\n0,1,2\n", false),
+        ];
+        let mut files: Vec<(Vec<u8>, CsvOptions)> = texts
+            .into_iter()
+            .map(|(text, mode)| {
+                let opts = if mode {
+                    with_mode("mode")
+                } else {
+                    CsvOptions::default()
+                };
+                (text.to_vec(), opts)
+            })
+            .collect();
+        // A manual text that only the second half brings in, with the first half full of others.
+        let mut late_texts = String::from("time,sp,pv,op,mode\n");
+        for i in 0..40 {
+            late_texts.push_str(&format!("{i},1,2,3,m{}\n", if i < 20 { i % 15 } else { i }));
+        }
+        files.push((late_texts.into_bytes(), with_mode("mode")));
+        files
+    }
+
+    /// `text` with the header's first cell in quotes, which sends it through the CSV reader.
+    fn with_quoted_header_cell(text: &[u8]) -> Vec<u8> {
+        let bom = if text.starts_with(UTF8_BOM) {
+            UTF8_BOM.len()
+        } else {
+            0
+        };
+        let header = first_line(&text[bom..]);
+        let delimiter = detect_delimiter(header);
+        let start = bom
+            + text[bom..]
+                .iter()
+                .position(|b| !matches!(b, b'\r' | b'\n'))
+                .unwrap_or(0);
+        let cell = header.split(|&b| b == delimiter).next().unwrap_or_default();
+        let end = start + cell.len();
+        [
+            &text[..start],
+            b"\"",
+            &text[start..end],
+            b"\"",
+            &text[end..],
+        ]
+        .concat()
+    }
+
+    #[test]
+    fn files_with_and_without_quotes_give_the_same_load() {
+        for (text, opts) in messy_files() {
+            let quoted = with_quoted_header_cell(&text);
+            assert!(quoted.contains(&b'"') && !text.contains(&b'"'));
+            assert_eq!(
+                outcome(load_csv(&text[..], &opts)),
+                outcome(load_csv(&quoted[..], &opts)),
+                "{:?}",
+                String::from_utf8_lossy(&text)
+            );
+        }
+    }
+
+    #[test]
+    fn a_second_byte_order_mark_is_skipped_with_or_without_quotes() {
+        let plain = "\u{feff}\u{feff}time,sp,pv,op\n0,1,2,3\n1,1,2,3\n2,1,2,3\n";
+        let quoted = "\u{feff}\u{feff}time,\"sp\",pv,op\n0,1,2,3\n1,1,2,3\n2,1,2,3\n";
+        let l = load_ok(plain);
+        assert_eq!(l.report.columns.time, "time");
+        assert_eq!(outcome(Ok(l)), outcome(load(quoted)));
+    }
+
+    /// A week-like file: `rows` rows every half second, with decimals as exports write them.
+    fn large_file(rows: usize) -> (String, [Vec<f64>; 4]) {
+        let mut text = String::from("time,sp,pv,op\n");
+        let mut columns: [Vec<f64>; 4] = Default::default();
+        for i in 0..rows {
+            let cells = [
+                format!("{}", i as f64 * 0.5 + 1000.0),
+                format!("{}", 50 + (i / 5000) as i32 * 5),
+                format!("{:.4}", 50.0 + (i as f64 * 0.01).sin() * 3.0),
+                format!("{:.3}", -12.5 + (i as f64 * 0.003).cos() * 40.0),
+            ];
+            text.push_str(&cells.join(","));
+            text.push('\n');
+            for (column, cell) in columns.iter_mut().zip(&cells) {
+                let v: f64 = cell.parse().unwrap();
+                column.push(if v == 0.0 { 0.0 } else { v });
+            }
+        }
+        (text, columns)
+    }
+
+    #[test]
+    fn a_large_clean_file_loads_exactly_the_values_written() {
+        let (text, [time, sp, pv, op]) = large_file(60_000);
+        let l = load_ok(&text);
+        assert_eq!(l.series.time_s(), &time[..]);
+        assert_eq!(l.series.sp(), &sp[..]);
+        assert_eq!(l.series.pv(), &pv[..]);
+        assert_eq!(l.series.op(), &op[..]);
+        assert_eq!((l.report.data_rows, l.report.rows_kept), (60_000, 60_000));
+        assert!(l.report.notes().is_empty(), "{:?}", l.report.notes());
+        let iv = l.report.sample_interval_s.unwrap();
+        assert_eq!((iv.min, iv.median, iv.max), (0.5, 0.5, 0.5));
+        // The same file through the CSV reader, as a file with quotes would go.
+        let quoted = text.replacen("sp", "\"sp\"", 1);
+        assert_eq!(outcome(load(&quoted)), outcome(Ok(l)));
+    }
+
+    #[test]
+    fn a_large_file_with_disorder_and_repeats_is_sorted_and_counted() {
+        let (text, [time, _, _, op]) = large_file(60_000);
+        let mut lines: Vec<&str> = text.lines().collect();
+        // Swap two rows far apart, and repeat one row exactly and another with a new value.
+        lines.swap(10, 50_000);
+        let repeat = lines[30_000].to_owned();
+        let conflicting = format!("{},1,2,3", lines[40_000].split(',').next().unwrap());
+        lines.insert(45_000, &conflicting);
+        lines.push(&repeat);
+        let text = lines.join("\n");
+        let l = load_ok(&text);
+        assert_eq!(l.series.time_s(), &time[..]);
+        let mut expected_op = op.clone();
+        expected_op[39_999] = 3.0;
+        assert_eq!(l.series.op(), &expected_op[..]);
+        // Rows 10 to 49,998 and 9 come after 49,999; the two added rows come late too.
+        assert_eq!(l.report.out_of_order.rows, 49_990 + 2);
+        assert_eq!(l.report.exact_duplicates.rows, 1);
+        assert_eq!(l.report.conflicting_duplicates.rows, 1);
+        assert_eq!(l.report.conflicting_duplicates.first_row, Some(40_001));
+        assert_rows_accounted(&l.report);
+    }
+
+    #[test]
+    fn plain_decimals_are_read_without_the_general_parse_only_when_exact() {
+        let cases: [(&str, Option<f64>, usize); 12] = [
+            ("12", Some(12.0), 2),
+            ("-0.125", Some(-0.125), 6),
+            ("-0", Some(0.0), 2),
+            ("5.", Some(5.0), 2),
+            ("49.9746,", Some(49.9746), 7),
+            (".5", None, 0),
+            ("-", None, 1),
+            ("1.2.3", Some(1.2), 3),
+            ("9007199254740993", None, 16),
+            ("12345678901234567890", None, 20),
+            ("0.00000000000000000001", None, 22),
+            ("1e5", Some(1.0), 1),
+        ];
+        for (text, value, used) in cases {
+            assert_eq!(decimal_prefix(text.as_bytes()), (value, used), "{text:?}");
+        }
+        assert_eq!(plain_decimal(b"1e5"), None);
+        assert_eq!(plain_decimal(b" 1"), None);
+        assert_eq!(plain_decimal(b"9007199254740992"), Some(9007199254740992.0));
+    }
+
     /// Every data row ends up in exactly one place; see [`LoadReport`].
     fn assert_rows_accounted(r: &LoadReport) {
         let placed = r.empty_rows.rows
@@ -1955,6 +2654,37 @@ mod tests {
             ) {
                 check_outcome(load(&format!("time,sp,pv,op\n{text}")));
                 check_outcome(load(&text));
+            }
+
+            #[test]
+            fn files_without_quotes_split_as_the_csv_reader_splits_them(
+                text in csvish(),
+                bytes in prop::collection::vec(any::<u8>(), 0..300),
+            ) {
+                let mut prefixed = b"time,sp,pv,op,mode\n".to_vec();
+                prefixed.extend(bytes.into_iter().filter(|&b| b != b'"'));
+                for file in [text.replace('"', "").into_bytes(), prefixed] {
+                    let opts = with_mode("mode");
+                    let delimiter = detect_delimiter(first_line(&file));
+                    prop_assert_eq!(
+                        outcome(load_plain(&file, false, delimiter, &opts)),
+                        outcome(load_quoted(&file, false, delimiter, &opts))
+                    );
+                }
+            }
+
+            #[test]
+            fn plain_decimals_read_as_the_general_parse_reads_them(
+                text in "-?[0-9]{1,21}(\\.[0-9]{0,23})?",
+            ) {
+                let general = text.parse::<f64>().unwrap();
+                let general = if general == 0.0 { 0.0 } else { general };
+                match plain_decimal(text.as_bytes()) {
+                    Some(v) => prop_assert_eq!(v.to_bits(), general.to_bits()),
+                    // Only numbers with more digits than an f64 holds exactly (2^53 has 16) go
+                    // to the general parse.
+                    None => prop_assert!(text.bytes().filter(u8::is_ascii_digit).count() >= 16),
+                }
             }
 
             #[test]

@@ -183,6 +183,10 @@ pub struct LoopTracker {
     /// The open episode's start and the verdict last reported for it.
     provisional: Option<(f64, Verdict)>,
     max_abs_sp: f64,
+    /// Data time of the newest row at the last evaluation.
+    evaluated_to: f64,
+    /// Whether an SP move arrived since the last evaluation.
+    sp_moved: bool,
 }
 
 /// At most this many episodes are kept for identification; the oldest drop out, so a drifting
@@ -201,6 +205,8 @@ impl LoopTracker {
             final_until: f64::NEG_INFINITY,
             provisional: None,
             max_abs_sp: 0.0,
+            evaluated_to: f64::NEG_INFINITY,
+            sp_moved: false,
         }
     }
 
@@ -233,20 +239,46 @@ impl LoopTracker {
     /// Appends aligned rows (in time order; older rows than the newest are dropped).
     pub fn extend(&mut self, rows: &[Row]) {
         for r in rows {
-            if self.rows.last().is_some_and(|l| r.time_s <= l.time_s) {
+            let Some(last) = self.rows.last() else {
+                self.rows.push(*r);
+                continue;
+            };
+            if r.time_s <= last.time_s {
                 continue;
             }
+            self.sp_moved |= r.sp != last.sp || r.auto != last.auto;
             self.max_abs_sp = self.max_abs_sp.max(r.sp.abs());
+            // Grow by a quarter rather than doubling: a thousand loops' buffers are most of the
+            // daemon's memory.
+            if self.rows.len() == self.rows.capacity() {
+                self.rows.reserve_exact(self.rows.len() / 4 + 64);
+            }
             self.rows.push(*r);
         }
     }
 
-    /// Runs the analysis on the buffer and reports what is new.
+    /// The data time that must pass between evaluations when the SP has not moved: a hundredth
+    /// of the spec time (so a miss is reported within 1 % of the spec time), at least one
+    /// expected sample period. Evaluating less often changes no result, since a window is only
+    /// final once it has closed; it saves re-reading the buffer on every batch.
+    fn evaluation_interval(&self) -> f64 {
+        let period = self.setup.options.expected_period_s.unwrap_or(0.0);
+        (0.01 * self.setup.spec.settle_within_s).max(period)
+    }
+
+    /// Runs the analysis on the buffer and reports what is new (nothing when too little data
+    /// time has passed since the last evaluation and the SP has not moved).
     pub fn evaluate(&mut self) -> Vec<LiveEvent> {
         let mut events = Vec::new();
         if self.rows.len() < 2 {
             return events;
         }
+        let newest = self.rows[self.rows.len() - 1].time_s;
+        if !self.sp_moved && newest - self.evaluated_to < self.evaluation_interval() {
+            return events;
+        }
+        self.evaluated_to = newest;
+        self.sp_moved = false;
         let series = match Series::new(
             self.rows.iter().map(|r| r.time_s).collect(),
             self.rows.iter().map(|r| r.sp).collect(),

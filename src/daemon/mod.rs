@@ -23,6 +23,7 @@ use std::collections::HashMap;
 use std::future::Future;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
+use std::sync::atomic::AtomicU64;
 use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, watch};
 
@@ -93,6 +94,7 @@ pub struct Daemon {
     mqtt: Option<mqtt::MqttParams>,
     loops: HashMap<Arc<str>, writer::LoopRuntime>,
     settings: writer::WriterSettings,
+    committed: Arc<AtomicU64>,
 }
 
 impl Daemon {
@@ -129,11 +131,18 @@ impl Daemon {
             mqtt,
             loops,
             settings,
+            committed: Arc::new(AtomicU64::new(0)),
         })
     }
 
     pub fn store(&self) -> &Store {
         &self.store
+    }
+
+    /// Samples committed so far by this run (new rows, not duplicates); for progress displays
+    /// and measurements that must not query the store while it is being written.
+    pub fn committed(&self) -> Arc<AtomicU64> {
+        self.committed.clone()
     }
 
     /// Runs until `shutdown` completes, then stops gracefully (see the module docs).
@@ -142,7 +151,13 @@ impl Daemon {
         let (ingest_tx, ingest_rx) = mpsc::channel(INGEST_CAPACITY);
         let (out_tx, out_rx) = mpsc::channel(OUTBOUND_CAPACITY);
         let store = self.store.clone();
-        let writer = writer::Writer::new(self.store, self.loops, out_tx, self.settings);
+        let writer = writer::Writer::new(
+            self.store,
+            self.loops,
+            out_tx,
+            self.settings,
+            self.committed,
+        );
         let writer = tokio::spawn(writer.run(ingest_rx));
         let source = match self.mqtt {
             Some(params) => Some(tokio::spawn(mqtt::run(params, ingest_tx, out_rx, stop_rx))),

@@ -89,6 +89,10 @@ pub async fn run(
     let mut backoff = BACKOFF_FIRST;
     let mut errors = RateLimitedLog::new(Duration::from_secs(30));
     let mut connected = false;
+    // Whether this run's subscriptions have been confirmed. A resumed session holds the filters
+    // of the run that created it, not necessarily this config's (a loop may have been added), so
+    // every run subscribes once even when the broker resumes the session.
+    let mut subscribed = false;
     let mut writer_done = false;
     let mut flush_deadline: Option<tokio::time::Instant> = None;
     let filters: Vec<rumqttc::SubscribeFilter> = params
@@ -131,8 +135,9 @@ pub async fn run(
                         session_present = ack.session_present,
                         "connected to the MQTT broker"
                     );
-                    if !ack.session_present && !filters.is_empty() {
-                        // A new session has no subscriptions: make them (again).
+                    if (!ack.session_present || !subscribed) && !filters.is_empty() {
+                        // A new session has no subscriptions, and a resumed one may lack this
+                        // config's: make them (again).
                         if let Err(e) = client.try_subscribe_many(filters.clone()) {
                             tracing::error!(error = %e, "could not queue the subscriptions");
                         }
@@ -142,6 +147,7 @@ pub async fn run(
                     let refused = s.return_codes.iter()
                         .filter(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure))
                         .count();
+                    subscribed = true;
                     if refused > 0 {
                         tracing::error!(refused, "the broker refused some subscriptions; check its access rules");
                     } else {
@@ -149,28 +155,43 @@ pub async fn run(
                     }
                 }
                 Ok(Event::Incoming(Packet::Publish(p))) => {
-                    let Some(tx) = &ingest else {
+                    let Some(tx) = ingest.clone() else {
                         // Stopping: leave it unacknowledged; the broker redelivers it next time.
                         continue;
                     };
                     let received_ms = jiff::Timestamp::now().as_millisecond();
-                    match decode::decode(&p.topic, &p.payload, received_ms, &params.topics, &params.limits) {
-                        Ok(samples) => {
-                            // Waiting here is the backpressure: while the writer is busy the
-                            // broker holds the rest (QoS 1 in flight is bounded by the broker).
-                            if tx.send(Ingest::Samples { samples, ack: Some(p) }).await.is_err() {
-                                ingest = None;
-                            }
-                        }
+                    let msg = match decode::decode(&p.topic, &p.payload, received_ms, &params.topics, &params.limits) {
+                        Ok(samples) => Ingest::Samples { samples, ack: Some(p) },
                         Err(rejection) => {
-                            let _ = tx.send(Ingest::Rejected {
+                            let msg = Ingest::Rejected {
                                 reason: rejection.reason(),
                                 source: p.topic.clone(),
                                 detail: rejection.to_string(),
-                            }).await;
+                            };
                             // A malformed message never becomes valid: acknowledge it so the
                             // broker does not redeliver it forever. It is counted, not lost.
                             pending.push_back(Outbound::Ack(p));
+                            msg
+                        }
+                    };
+                    // Waiting for room is the backpressure: while the writer is busy the broker
+                    // holds the rest. Meanwhile keep taking the writer's acknowledgements, or
+                    // the writer (waiting to hand them over) and this task would wait on each
+                    // other forever.
+                    let mut msg = Some(msg);
+                    while let Some(m) = msg.take() {
+                        tokio::select! {
+                            permit = tx.reserve() => match permit {
+                                Ok(permit) => permit.send(m),
+                                Err(_) => ingest = None,
+                            },
+                            out = outbound.recv(), if !writer_done => {
+                                match out {
+                                    Some(o) => pending.push_back(o),
+                                    None => writer_done = true,
+                                }
+                                msg = Some(m);
+                            }
                         }
                     }
                 }

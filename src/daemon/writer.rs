@@ -12,6 +12,7 @@ use crate::sample::{Sample, Signal};
 use crate::store::{self, AlertInput, Store};
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Arc;
+use std::sync::atomic::AtomicU64;
 use std::time::{Duration, Instant};
 use tokio::sync::mpsc;
 
@@ -114,6 +115,7 @@ pub struct Writer {
     clock: PlantClock,
     rejections: HashMap<(&'static str, String), u64>,
     reject_log: RateLimitedLog,
+    committed: Arc<AtomicU64>,
 }
 
 /// Samples and acknowledgements gathered for one commit.
@@ -130,6 +132,7 @@ impl Writer {
         loops: HashMap<Arc<str>, LoopRuntime>,
         outbound: mpsc::Sender<Outbound>,
         settings: WriterSettings,
+        committed: Arc<AtomicU64>,
     ) -> Writer {
         Writer {
             store,
@@ -140,6 +143,7 @@ impl Writer {
             clock: PlantClock::default(),
             rejections: HashMap::new(),
             reject_log: RateLimitedLog::new(Duration::from_secs(60)),
+            committed,
         }
     }
 
@@ -235,6 +239,8 @@ impl Writer {
             match self.store.insert_samples(&samples).await {
                 Ok(outcome) => {
                     self.counters.samples_committed += outcome.inserted;
+                    self.committed
+                        .fetch_add(outcome.inserted, std::sync::atomic::Ordering::Relaxed);
                     self.counters.duplicates += outcome.duplicates;
                     break;
                 }

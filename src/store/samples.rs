@@ -89,6 +89,10 @@ impl Store {
         for (row, m) in waiting {
             rows[row].0 = new_ids[m];
         }
+        // In key order each series' rows land on neighbouring leaf pages of the samples table,
+        // instead of one page per series per statement: the insert runs several times faster
+        // for batches that mix many series.
+        rows.sort_unstable_by_key(|&(series_id, ts_ms, _)| (series_id, ts_ms));
 
         let mut insert =
             QueryBuilder::<Sqlite>::new("INSERT OR IGNORE INTO samples (series_id, ts_ms, value) ");

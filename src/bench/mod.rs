@@ -8,6 +8,8 @@
 //! - per-episode scoring + identification beside python-control `step_info` + scipy `curve_fit`
 //!   of an FOPDT model on the same episode files (run through `tests/reference/bench_python.py`).
 
+mod ingest;
+
 use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Series, Spec};
 use crate::csvload::{self, CsvOptions};
@@ -29,6 +31,9 @@ pub struct BenchArgs {
     /// Repetitions of each timing; the median is reported.
     #[arg(long, default_value_t = 5)]
     pub repeat: usize,
+    /// Smaller ingest runs and no memory run (a minute instead of several).
+    #[arg(long)]
+    pub quick: bool,
 }
 
 /// The target for a week of one loop at 1 Hz, end to end.
@@ -106,6 +111,8 @@ pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         }
         Err(e) => writeln!(out, "  Python side not measured: {e:#}")?,
     }
+    writeln!(out)?;
+    ingest::run(&dir, out, args.quick)?;
     writeln!(out)?;
     if let Some(kb) = peak_rss_kb() {
         writeln!(
