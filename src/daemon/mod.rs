@@ -258,7 +258,15 @@ fn resolve_mqtt(
         .password()
         .context("cannot read the MQTT password")?
         .map(|s| s.expose().to_string());
+    let settings = m.clone();
+    let password_reader: mqtt::PasswordReader = Arc::new(move || {
+        Ok(settings
+            .password()
+            .map_err(|e| anyhow::anyhow!("{e}"))?
+            .map(|s| s.expose().to_string()))
+    });
     Ok(mqtt::MqttParams {
+        password_reader: Some(password_reader),
         host: m.host.clone(),
         port: m.port,
         tls,

@@ -5,6 +5,7 @@
 //! own alert and status messages; it never publishes anywhere else.
 
 use super::{Ingest, Outbound, RateLimitedLog};
+use crate::config::PayloadFormat;
 use crate::ingest::decode::{self, Limits, TopicMap};
 use rumqttc::{AsyncClient, ConnectReturnCode, Event, MqttOptions, Packet, QoS, Transport};
 use std::collections::VecDeque;
@@ -21,8 +22,17 @@ const REQUEST_QUEUE: usize = 1_000;
 const BACKOFF_FIRST: Duration = Duration::from_millis(200);
 const BACKOFF_MAX: Duration = Duration::from_secs(5);
 
+/// MQTT's largest packet (remaining length, bytes): the most a broker can deliver.
+const MAX_MQTT_PACKET: usize = 268_435_455;
+
+/// A connection that lasted this long resets the back-off.
+const STABLE_AFTER: Duration = Duration::from_secs(10);
+
 /// How long shutdown waits for the last acknowledgements to leave before disconnecting anyway.
 const SHUTDOWN_FLUSH: Duration = Duration::from_secs(3);
+
+/// Reads the current password; an error is logged by the caller's retry path.
+pub type PasswordReader = Arc<dyn Fn() -> anyhow::Result<Option<String>> + Send + Sync>;
 
 /// Everything needed to connect and subscribe, resolved from the configuration.
 #[derive(Clone)]
@@ -34,6 +44,8 @@ pub struct MqttParams {
     pub client_id: String,
     pub username: Option<String>,
     pub password: Option<String>,
+    /// Reads the password again (from its file or variable), after the broker refused it.
+    pub password_reader: Option<PasswordReader>,
     pub keep_alive: Duration,
     pub subscriptions: Vec<String>,
     pub limits: Limits,
@@ -60,8 +72,12 @@ fn options(p: &MqttParams) -> MqttOptions {
     // we are away, and redelivers what we had not acknowledged.
     o.set_clean_session(false);
     o.set_manual_acks(true);
-    let incoming = (p.limits.max_payload_bytes + 64 * 1024).max(256 * 1024);
-    o.set_max_packet_size(incoming, 256 * 1024);
+    // Read any packet the broker can deliver. MQTT 3.1.1 cannot tell the broker a limit, so a
+    // smaller one here would not keep big messages away: reading one would fail and drop the
+    // connection, the broker would redeliver it on every reconnect, and nothing behind it would
+    // ever arrive. Read whole, it is refused by `max_payload_bytes` (`oversized_payload`) and
+    // acknowledged like any bad input. Capping memory is the broker's `max_packet_size`.
+    o.set_max_packet_size(MAX_MQTT_PACKET, 256 * 1024);
     if let (Some(u), Some(pw)) = (&p.username, &p.password) {
         o.set_credentials(u, pw);
     } else if let Some(u) = &p.username {
@@ -89,6 +105,7 @@ pub async fn run(
     let mut backoff = BACKOFF_FIRST;
     let mut errors = RateLimitedLog::new(Duration::from_secs(30));
     let mut connected = false;
+    let mut connected_at: Option<tokio::time::Instant> = None;
     // Whether this run's subscriptions have been confirmed. A resumed session holds the filters
     // of the run that created it, not necessarily this config's (a loop may have been added), so
     // every run subscribes once even when the broker resumes the session.
@@ -128,7 +145,7 @@ pub async fn run(
         tokio::select! {
             ev = eventloop.poll() => match ev {
                 Ok(Event::Incoming(Packet::ConnAck(ack))) => {
-                    backoff = BACKOFF_FIRST;
+                    connected_at = Some(tokio::time::Instant::now());
                     connected = true;
                     tracing::info!(
                         host = %params.host, port = params.port,
@@ -159,6 +176,14 @@ pub async fn run(
                         // Stopping: leave it unacknowledged; the broker redelivers it next time.
                         continue;
                     };
+                    if p.retain
+                        && matches!(params.topics.lookup(&p.topic), Some((_, _, PayloadFormat::Number)))
+                    {
+                        // A retained value replayed at subscription carries no time of its own:
+                        // stamped with its arrival it would be a sample that never happened.
+                        pending.push_back(Outbound::Ack(p));
+                        continue;
+                    }
                     let received_ms = jiff::Timestamp::now().as_millisecond();
                     let msg = match decode::decode(&p.topic, &p.payload, received_ms, &params.topics, &params.limits) {
                         Ok(samples) => Ingest::Samples { samples, ack: Some(p) },
@@ -200,12 +225,29 @@ pub async fn run(
                     if flush_deadline.is_some() {
                         break;
                     }
-                    if connected {
-                        tracing::warn!(error = %e, "lost the MQTT connection; reconnecting");
-                        connected = false;
-                    } else if let Some(suppressed) = errors.allow() {
-                        let hint = auth_hint(&e);
-                        tracing::warn!(error = %e, suppressed, retry_in = ?backoff, "{hint}");
+                    // The back-off starts over only after a connection that lasted: a link that
+                    // drops right after connecting (two clients sharing our id, a broker that
+                    // closes on us) must not reconnect at full speed.
+                    if connected_at.is_some_and(|t| t.elapsed() >= STABLE_AFTER) {
+                        backoff = BACKOFF_FIRST;
+                    }
+                    connected_at = None;
+                    let was_connected = std::mem::replace(&mut connected, false);
+                    if let Some(suppressed) = errors.allow() {
+                        if was_connected {
+                            tracing::warn!(error = %e, suppressed, "lost the MQTT connection; reconnecting");
+                        } else {
+                            let hint = auth_hint(&e);
+                            tracing::warn!(error = %e, suppressed, retry_in = ?backoff, "{hint}");
+                        }
+                    }
+                    if is_auth_refusal(&e)
+                        && let Some(read) = &params.password_reader
+                    {
+                        // The password may have been corrected or rotated: read it again.
+                        if let (Some(user), Ok(Some(pw))) = (&params.username, read()) {
+                            eventloop.mqtt_options.set_credentials(user, pw);
+                        }
                     }
                     tokio::time::sleep(backoff).await;
                     backoff = (backoff * 2).min(BACKOFF_MAX);
@@ -224,6 +266,15 @@ pub async fn run(
         }
     }
     tracing::info!("MQTT source stopped");
+}
+
+fn is_auth_refusal(e: &rumqttc::ConnectionError) -> bool {
+    matches!(
+        e,
+        rumqttc::ConnectionError::ConnectionRefused(
+            ConnectReturnCode::NotAuthorized | ConnectReturnCode::BadUserNamePassword,
+        )
+    )
 }
 
 /// A hint for people reading the log, by kind of connection error.

@@ -7,3 +7,18 @@ mod example_data;
 mod helpers;
 mod reference_python;
 mod scenarios;
+
+// The daemon against a real Mosquitto: the harness, then one module per behaviour.
+mod broker;
+mod clients;
+mod harness;
+mod plant;
+
+mod daemon_broker_restart;
+mod daemon_config_change;
+mod daemon_credentials;
+mod daemon_end_to_end;
+mod daemon_malformed;
+mod daemon_overload;
+mod daemon_shutdown;
+mod daemon_sigkill;

@@ -1,0 +1,109 @@
+//! Simulated loop data for the daemon tests, published as a controller gateway would: one JSON
+//! message `{"value": v, "time": epoch_ms}` per signal and sample, on the loop's sp/pv/op
+//! topics. Time is accelerated: an hour of data goes out in seconds, stamped in the recent past,
+//! and the daemon takes every time from the data.
+
+use crate::clients::Message;
+use crate::harness::{LoopTopics, SampleKey};
+use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process, SimSample};
+use headroom::sample::Signal;
+
+/// The jacketed vessel of the analysis tests: K = 0.8 °C/%, τ = 300 s, θ = 30 s, ambient 20 °C,
+/// under a PI controller (Kc 6.25 %/°C, τI 240 s) whose steam valve saturates at `op_max`.
+/// With `op_max` = 60 the PV can reach at most 20 + 0.8 · 60 = 68 °C.
+pub fn vessel(op_max: f64, seed: u64) -> LoopSim {
+    LoopSim::new(LoopSimConfig {
+        process: Process {
+            gain: 0.8,
+            time_constant_s: 300.0,
+            second_time_constant_s: 0.0,
+            dead_time_s: 30.0,
+            bias: 20.0,
+        },
+        controller: PiController {
+            gain: 6.25,
+            integral_time_s: 240.0,
+            op_min: 0.0,
+            op_max,
+        },
+        step_s: 0.2,
+        noise_sd: 0.02,
+        seed,
+        initial_sp: 50.0,
+    })
+}
+
+/// Whole epoch milliseconds, `ago_s` seconds before now, rounded down to a whole second.
+pub fn recent_past_ms(ago_s: i64) -> i64 {
+    let now = jiff::Timestamp::now().as_millisecond();
+    (now - ago_s * 1000).div_euclid(1000) * 1000
+}
+
+/// One JSON sample message.
+pub fn json_sample(value: f64, time_ms: i64) -> Vec<u8> {
+    serde_json::json!({ "value": value, "time": time_ms })
+        .to_string()
+        .into_bytes()
+}
+
+/// The data time of a simulated sample: `t0_ms` plus its simulated time, in whole ms.
+pub fn data_ms(t0_ms: i64, s: &SimSample) -> i64 {
+    t0_ms + (s.time_s * 1000.0).round() as i64
+}
+
+/// Messages for simulated samples, time step by time step (sp, pv, op at each), as a gateway
+/// publishing each signal on its own topic would send them, with the store keys they must
+/// become.
+pub fn messages(
+    tag: &str,
+    topics: &LoopTopics,
+    t0_ms: i64,
+    samples: &[SimSample],
+) -> (Vec<Message>, Vec<SampleKey>) {
+    let mut msgs = Vec::with_capacity(3 * samples.len());
+    let mut keys = Vec::with_capacity(3 * samples.len());
+    for s in samples {
+        let t = data_ms(t0_ms, s);
+        for (signal, value) in [(Signal::Sp, s.sp), (Signal::Pv, s.pv), (Signal::Op, s.op)] {
+            msgs.push((topics.of(signal).to_string(), json_sample(value, t)));
+            keys.push((tag.to_string(), signal, t));
+        }
+    }
+    (msgs, keys)
+}
+
+/// A small seeded generator (SplitMix64) for random test choices that replay exactly.
+pub struct Rng(u64);
+
+impl Rng {
+    pub fn new(seed: u64) -> Rng {
+        Rng(seed)
+    }
+
+    pub fn next_u64(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+
+    /// Uniform in `[lo, hi)`.
+    pub fn range_f64(&mut self, lo: f64, hi: f64) -> f64 {
+        lo + (hi - lo) * (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
+    }
+
+    /// Uniform in `0..n`.
+    pub fn below(&mut self, n: usize) -> usize {
+        (self.next_u64() % n as u64) as usize
+    }
+}
+
+/// The seed for randomised tests: `HEADROOM_TEST_SEED` when set (to replay a failure), else
+/// the given default. Tests print it.
+pub fn seed(default: u64) -> u64 {
+    std::env::var("HEADROOM_TEST_SEED")
+        .ok()
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(default)
+}
