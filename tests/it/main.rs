@@ -22,3 +22,4 @@ mod daemon_malformed;
 mod daemon_overload;
 mod daemon_shutdown;
 mod daemon_sigkill;
+mod queries;
