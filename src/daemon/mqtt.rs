@@ -287,6 +287,10 @@ fn auth_hint(e: &rumqttc::ConnectionError) -> &'static str {
         }
         rumqttc::ConnectionError::ConnectionRefused(_) => "the MQTT broker refused the connection",
         rumqttc::ConnectionError::Io(_) => "cannot reach the MQTT broker; retrying",
+        rumqttc::ConnectionError::Tls(_) => {
+            "the TLS handshake with the MQTT broker failed; check ca_file and that the broker's \
+             certificate names this host; retrying"
+        }
         _ => "MQTT connection error; retrying",
     }
 }

@@ -90,10 +90,14 @@ pub struct Counters {
 struct PlantClock {
     newest_ms: Option<i64>,
     at: Option<Instant>,
+    /// The first data time seen: where watching began. A signal not seen since then has been
+    /// silent since then.
+    first_ms: Option<i64>,
 }
 
 impl PlantClock {
     fn saw(&mut self, ts_ms: i64) {
+        self.first_ms.get_or_insert(ts_ms);
         if self.newest_ms.is_none_or(|n| ts_ms > n) {
             self.newest_ms = Some(ts_ms);
             self.at = Some(Instant::now());
@@ -423,6 +427,9 @@ impl Writer {
         let Some(now) = self.clock.now_ms() else {
             return;
         };
+        // A signal never seen counts as silent from where watching began, not as silent
+        // forever: one that starts a little after the others is not stale.
+        let watched_from = self.clock.first_ms.unwrap_or(now);
         let mut newly: Vec<(Arc<str>, Vec<Signal>, serde_json::Value)> = Vec::new();
         for (tag, rt) in self.loops.iter_mut() {
             let limit_ms = (rt.stale_after_periods * rt.expected_period_s * 1000.0) as i64;
@@ -430,7 +437,10 @@ impl Writer {
                 .expected
                 .iter()
                 .copied()
-                .filter(|s| rt.last_seen_ms.get(s).is_none_or(|&t| now - t > limit_ms))
+                .filter(|s| {
+                    let since = rt.last_seen_ms.get(s).copied().unwrap_or(watched_from);
+                    now - since > limit_ms
+                })
                 .collect();
             let fresh: Vec<Signal> = silent
                 .iter()

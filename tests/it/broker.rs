@@ -20,12 +20,27 @@ pub struct BrokerOptions {
     /// Messages queued per offline or lagging client; `None` means 0, which Mosquitto reads as
     /// "no limit". (Its own default, 1000, drops QoS 1 messages for a subscriber that lags.)
     pub max_queued_messages: Option<u32>,
+    /// A second listener, on its own loopback port, that speaks MQTT over TLS only.
+    pub tls: Option<TlsListener>,
+}
+
+/// The files of a TLS listener (PEM). Clients are not asked for certificates.
+#[derive(Debug, Clone)]
+pub struct TlsListener {
+    /// The CA Mosquitto is given for the listener.
+    pub ca_file: PathBuf,
+    /// The server's certificate.
+    pub cert_file: PathBuf,
+    /// The server's private key.
+    pub key_file: PathBuf,
 }
 
 /// A running (or stopped, between `stop_graceful` and `restart`) Mosquitto.
 pub struct Mosquitto {
     dir: tempfile::TempDir,
     port: u16,
+    /// The TLS listener's port, when the options asked for one.
+    tls_port: Option<u16>,
     conf: PathBuf,
     log: PathBuf,
     child: Option<Child>,
@@ -89,16 +104,31 @@ impl Mosquitto {
         // A port picked as free can be taken before the broker binds it: try a few.
         for _ in 0..5 {
             let port = free_port();
+            let tls_port = options.tls.as_ref().map(|_| {
+                loop {
+                    let p = free_port();
+                    if p != port {
+                        break p;
+                    }
+                }
+            });
             let conf = dir.path().join("mosquitto.conf");
             let log = dir.path().join("mosquitto.log");
             std::fs::write(
                 &conf,
-                config_text(port, dir.path(), &log, password_file.as_deref(), &options),
+                config_text(
+                    (port, tls_port),
+                    dir.path(),
+                    &log,
+                    password_file.as_deref(),
+                    &options,
+                ),
             )
             .expect("write mosquitto.conf");
             let mut broker = Mosquitto {
                 dir,
                 port,
+                tls_port,
                 conf,
                 log,
                 child: None,
@@ -119,7 +149,7 @@ impl Mosquitto {
         self.dir
     }
 
-    /// Spawns mosquitto on the configured port and waits until the port accepts.
+    /// Spawns mosquitto on the configured port(s) and waits until every listener accepts.
     async fn spawn(&mut self) -> Result<(), String> {
         let stderr = std::fs::OpenOptions::new()
             .create(true)
@@ -148,10 +178,13 @@ impl Mosquitto {
                         .unwrap_or_default()
                 ));
             }
-            if tokio::net::TcpStream::connect(("127.0.0.1", self.port))
-                .await
-                .is_ok()
-            {
+            let mut accepting = true;
+            for port in std::iter::once(self.port).chain(self.tls_port) {
+                accepting &= tokio::net::TcpStream::connect(("127.0.0.1", port))
+                    .await
+                    .is_ok();
+            }
+            if accepting {
                 self.child = Some(child);
                 return Ok(());
             }
@@ -169,6 +202,12 @@ impl Mosquitto {
 
     pub fn port(&self) -> u16 {
         self.port
+    }
+
+    /// The port of the TLS listener; fails the test when the broker was started without one.
+    pub fn tls_port(&self) -> u16 {
+        self.tls_port
+            .expect("the broker was started without a TLS listener")
     }
 
     /// The broker's log so far.
@@ -215,7 +254,7 @@ pub fn send_signal(child: &Child, signal: &str) {
 }
 
 fn config_text(
-    port: u16,
+    (port, tls_port): (u16, Option<u16>),
     dir: &Path,
     log: &Path,
     password_file: Option<&Path>,
@@ -249,6 +288,14 @@ fn config_text(
     // Run as root (as in a CI container), Mosquitto would switch to the `mosquitto` user, who
     // cannot write to our temp directory. As any other user this line does nothing.
     c += "user root\n";
+    // Last, because the lines after a `listener` line up to the next one configure it.
+    if let (Some(tls_port), Some(tls)) = (tls_port, &o.tls) {
+        c += &format!("listener {tls_port} 127.0.0.1\n");
+        c += &format!("cafile {}\n", tls.ca_file.display());
+        c += &format!("certfile {}\n", tls.cert_file.display());
+        c += &format!("keyfile {}\n", tls.key_file.display());
+        c += "require_certificate false\n";
+    }
     c
 }
 

@@ -1,7 +1,9 @@
 //! MQTT clients the daemon tests use around the daemon: a QoS 1 publisher that counts what the
 //! broker acknowledged, and a spy that records what the broker delivers.
 
-use rumqttc::{AsyncClient, Event, MqttOptions, Outgoing, Packet, QoS};
+use rumqttc::{
+    AsyncClient, Event, MqttOptions, Outgoing, Packet, QoS, TlsConfiguration, Transport,
+};
 use std::collections::{HashMap, VecDeque};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex};
@@ -23,6 +25,8 @@ pub struct PublishOptions {
     pub deadline: Duration,
     /// Counts acknowledged messages as they come, for a test that acts mid-stream.
     pub progress: Option<Arc<AtomicUsize>>,
+    /// Connect over TLS with this client configuration (the port must be a TLS listener).
+    pub tls: Option<Arc<rustls::ClientConfig>>,
 }
 
 impl PublishOptions {
@@ -34,6 +38,7 @@ impl PublishOptions {
             per_second: None,
             deadline: Duration::from_secs(120),
             progress: None,
+            tls: None,
         }
     }
 }
@@ -86,6 +91,11 @@ pub async fn publish(port: u16, messages: &[Message], o: PublishOptions) -> Publ
         opts.set_max_packet_size(1 << 20, 1 << 20);
         if let Some((u, p)) = &o.credentials {
             opts.set_credentials(u, p);
+        }
+        if let Some(tls) = &o.tls {
+            opts.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(
+                tls.clone(),
+            )));
         }
         let (client, mut eventloop) = AsyncClient::new(opts, window + 10);
         let mut connected = false;

@@ -132,6 +132,8 @@ pub struct TestLoop {
     pub settle_band_pct: f64,
     pub settle_within_s: f64,
     pub max_overshoot_pct: Option<f64>,
+    /// `stale_after_periods`; the daemon's default when `None`.
+    pub stale_after_periods: Option<f64>,
 }
 
 impl TestLoop {
@@ -147,6 +149,7 @@ impl TestLoop {
             settle_band_pct: 2.0,
             settle_within_s: 600.0,
             max_overshoot_pct: None,
+            stale_after_periods: None,
         }
     }
 }
@@ -170,6 +173,10 @@ pub struct TestConfig {
     pub max_payload_bytes: Option<usize>,
     pub username: Option<String>,
     pub password: Option<PasswordFrom>,
+    /// `mqtts://` instead of `mqtt://` (then `port` is the broker's TLS listener).
+    pub tls: bool,
+    /// The CA file that verifies the broker's certificate (mqtts only).
+    pub ca_file: Option<PathBuf>,
     pub loops: Vec<TestLoop>,
 }
 
@@ -186,6 +193,8 @@ impl TestConfig {
             max_payload_bytes: None,
             username: None,
             password: None,
+            tls: false,
+            ca_file: None,
             loops: Vec::new(),
         }
     }
@@ -195,7 +204,11 @@ impl TestConfig {
         let q = |s: &str| toml_string(s);
         let _ = writeln!(t, "[store]\npath = \"store.db\"\n");
         let _ = writeln!(t, "[mqtt]");
-        let _ = writeln!(t, "url = \"mqtt://127.0.0.1:{}\"", self.port);
+        let scheme = if self.tls { "mqtts" } else { "mqtt" };
+        let _ = writeln!(t, "url = \"{scheme}://127.0.0.1:{}\"", self.port);
+        if let Some(ca) = &self.ca_file {
+            let _ = writeln!(t, "ca_file = {}", q(&ca.display().to_string()));
+        }
         let _ = writeln!(t, "client_id = {}", q(&self.client_id));
         if let Some(u) = &self.username {
             let _ = writeln!(t, "username = {}", q(u));
@@ -220,6 +233,9 @@ impl TestConfig {
             let _ = writeln!(t, "\n[loops.{}]", q(&l.tag));
             let _ = writeln!(t, "op_min = {:?}\nop_max = {:?}", l.op_min, l.op_max);
             let _ = writeln!(t, "expected_period_s = {:?}", l.expected_period_s);
+            if let Some(n) = l.stale_after_periods {
+                let _ = writeln!(t, "stale_after_periods = {n:?}");
+            }
             let _ = writeln!(t, "[loops.{}.spec]", q(&l.tag));
             let _ = writeln!(t, "settle_band_pct = {:?}", l.settle_band_pct);
             let _ = writeln!(t, "settle_within_s = {:?}", l.settle_within_s);

@@ -22,4 +22,6 @@ mod daemon_malformed;
 mod daemon_overload;
 mod daemon_shutdown;
 mod daemon_sigkill;
+mod daemon_stale;
+mod daemon_tls;
 mod queries;
