@@ -10,6 +10,7 @@ pub mod config;
 pub mod csvload;
 pub mod daemon;
 pub mod ingest;
+pub mod modbus;
 pub mod queries;
 pub mod render;
 pub mod sample;
