@@ -330,9 +330,8 @@ pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<Mod
         .filter_map(|p| p.t10_s)
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.min(t))))
         .map(|t| 1.2 * t);
-    let segments: Vec<IdSegment> = pool.iter().map(|p| p.segment.clone()).collect();
     identify::identify(
-        &segments,
+        pool.iter().map(|p| &p.segment),
         noise,
         setup.op.span(),
         max_dead_time,

@@ -183,13 +183,14 @@ pub fn build_segment(
 /// `max_dead_time_s`, when known, bounds the dead-time search: the PV cannot start to respond
 /// before the dead time, so the earliest time any episode's PV covered 10 % of its change is a
 /// safe upper bound, and a tight one keeps the search on the physically possible part.
-pub fn identify(
-    segments: &[IdSegment],
+pub fn identify<'a>(
+    segments: impl IntoIterator<Item = &'a IdSegment>,
     noise_sd: f64,
     op_span: f64,
     max_dead_time_s: Option<f64>,
     settings: &IdentifySettings,
 ) -> Result<Model, Refusal> {
+    let segments: Vec<&IdSegment> = segments.into_iter().collect();
     if segments.is_empty() {
         return Err(Refusal::NoEpisodes);
     }
@@ -272,14 +273,14 @@ pub fn identify(
         |p| cost(p[0], p[1]),
         [lt_best, th_best],
         [0.3, (0.25 * th_best).max(coarse_h)],
-        [3e-3, 0.05 * coarse_h],
+        [1e-2, 0.1 * coarse_h],
         100,
     );
     let (lt, th) = nelder_mead(
         |p| cost_on(&prepared, p[0], p[1]),
         [lt, th],
         [0.05, (0.1 * th).max(min_h)],
-        [1e-3, 0.01 * min_h],
+        [2e-3, 0.03 * min_h],
         60,
     );
     let tau = lt.clamp(l0, l1).exp();
@@ -631,7 +632,7 @@ mod tests {
     fn recovers_a_known_fopdt_from_noise_free_step_data() {
         let (t, u, y) = open_loop_data(0.0, 1);
         let seg = build_segment(&t, &y, &u, 0.0, 100.0, 400).unwrap();
-        let m = identify(&[seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
+        let m = identify([&seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
         assert!((m.gain - 2.0).abs() < 0.01, "{m:?}");
         assert!((m.time_constant_s - 10.0).abs() < 0.1, "{m:?}");
         assert!((m.dead_time_s - 3.0).abs() < 0.1, "{m:?}");
@@ -642,7 +643,7 @@ mod tests {
     fn noise_on_the_pv_does_not_bias_the_time_constant() {
         let (t, u, y) = open_loop_data(0.5, 9);
         let seg = build_segment(&t, &y, &u, 0.0, 100.0, 400).unwrap();
-        let m = identify(&[seg], 0.5, 100.0, None, &IdentifySettings::default()).unwrap();
+        let m = identify([&seg], 0.5, 100.0, None, &IdentifySettings::default()).unwrap();
         assert!((m.gain - 2.0).abs() < 0.1, "{m:?}");
         assert!((m.time_constant_s - 10.0).abs() < 1.5, "{m:?}");
         assert!((m.dead_time_s - 3.0).abs() < 1.0, "{m:?}");
@@ -653,7 +654,7 @@ mod tests {
         let (t, u, y) = open_loop_data(0.0, 1);
         let flipped: Vec<f64> = y.iter().map(|v| 100.0 - v).collect();
         let seg = build_segment(&t, &flipped, &u, 0.0, 100.0, 400).unwrap();
-        let m = identify(&[seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
+        let m = identify([&seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
         assert!((m.gain + 2.0).abs() < 0.01, "{m:?}");
     }
 
@@ -662,7 +663,7 @@ mod tests {
         let (t, u, y) = open_loop_data(0.0, 1);
         let seg = build_segment(&t, &y, &u, 0.0, 100.0, 100).unwrap();
         assert_eq!(seg.step_s, 199.5 / 100.0);
-        let m = identify(&[seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
+        let m = identify([&seg], 0.0, 100.0, None, &IdentifySettings::default()).unwrap();
         assert!((m.time_constant_s - 10.0).abs() < 1.0, "{m:?}");
         assert!((m.dead_time_s - 3.0).abs() < 1.0, "{m:?}");
     }
@@ -671,7 +672,7 @@ mod tests {
     fn flat_data_are_refused_as_not_exciting_the_process() {
         let t: Vec<f64> = (0..100).map(f64::from).collect();
         let seg = build_segment(&t, &vec![50.0; 100], &vec![30.0; 100], 0.0, 100.0, 400).unwrap();
-        let err = identify(&[seg], 0.1, 100.0, None, &IdentifySettings::default()).unwrap_err();
+        let err = identify([&seg], 0.1, 100.0, None, &IdentifySettings::default()).unwrap_err();
         assert!(matches!(err, Refusal::NoExcitation { .. }), "{err}");
     }
 
