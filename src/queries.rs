@@ -1,11 +1,9 @@
 //! The commands that read the store: `loops`, `episodes`, `alerts`, `export`. They open the
 //! store read-only (except `alerts --ack`) and print for people or, with `--json`, for programs.
 
-use crate::analysis::live;
 use crate::cli::{AlertsArgs, EpisodesArgs, ExportArgs, StoreArgs, UsageError};
 use crate::config::Config;
 use crate::daemon::writer::rfc3339;
-use crate::sample::Signal;
 use crate::store::Store;
 use anyhow::Context;
 use std::io::Write;
@@ -221,22 +219,9 @@ pub async fn export(args: &ExportArgs, out: &mut dyn Write) -> anyhow::Result<()
         .transpose()?
         .unwrap_or(i64::MAX);
     let store = open(&args.store).await?;
-    let mut series = Vec::new();
-    for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
-        // The SP, OP and mode in force at the first PV sample may predate the range.
-        let lo = if s == Signal::Pv { from } else { i64::MIN };
-        let rows = store
-            .samples(&args.loop_tag, s, lo, to)
-            .await
-            .with_context(|| format!("cannot read {} samples of {}", s, args.loop_tag))?;
-        series.push(
-            rows.into_iter()
-                .map(|(t, v)| (t as f64 / 1000.0, v))
-                .collect::<Vec<_>>(),
-        );
-    }
-    let rows = live::align(&series[0], &series[1], &series[2], &series[3]);
-    let with_mode = !series[3].is_empty();
+    let (rows, with_mode) = crate::daemon::stored_rows(&store, &args.loop_tag, from, to)
+        .await
+        .with_context(|| format!("cannot read the samples of {}", args.loop_tag))?;
     writeln!(out, "time,sp,pv,op{}", if with_mode { ",mode" } else { "" })?;
     for r in rows {
         let t = rfc3339((r.time_s * 1000.0).round() as i64);
