@@ -181,11 +181,6 @@ impl VerdictCounts {
             Verdict::Inconclusive => &mut self.inconclusive,
         }
     }
-
-    pub fn get(&self, v: Verdict) -> usize {
-        let mut copy = *self;
-        *copy.slot(v)
-    }
 }
 
 /// The full analysis of one loop. Field names are a contract (JSON output).

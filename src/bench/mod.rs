@@ -114,12 +114,8 @@ pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
     writeln!(out)?;
     ingest::run(&dir, out, args.quick)?;
     writeln!(out)?;
-    if let Some(kb) = peak_rss_kb() {
-        writeln!(
-            out,
-            "peak resident memory of this run: {:.1} MB",
-            kb as f64 / 1024.0
-        )?;
+    if let Some(mb) = proc_status_mb("self", "VmHWM:") {
+        writeln!(out, "peak resident memory of this run: {mb:.1} MB")?;
     }
     let _ = std::fs::remove_dir_all(&dir);
     Ok(())
@@ -348,14 +344,15 @@ fn cpus() -> usize {
     std::thread::available_parallelism().map_or(1, |n| n.get())
 }
 
-/// Peak resident set size of this process (Linux), in kB.
-fn peak_rss_kb() -> Option<u64> {
-    let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    status
+/// A memory figure from `/proc/<pid>/status` (Linux), such as `VmRSS:` or `VmHWM:`, in MB.
+pub(crate) fn proc_status_mb(pid: &str, key: &str) -> Option<f64> {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).ok()?;
+    let kb: f64 = status
         .lines()
-        .find(|l| l.starts_with("VmHWM:"))?
+        .find(|l| l.starts_with(key))?
         .split_whitespace()
         .nth(1)?
         .parse()
-        .ok()
+        .ok()?;
+    Some(kb / 1024.0)
 }

@@ -85,14 +85,7 @@ impl Store {
             .synchronous(SqliteSynchronous::Normal)
             .busy_timeout(BUSY_TIMEOUT)
             .foreign_keys(true);
-        let pool = SqlitePoolOptions::new()
-            .max_connections(POOL_CONNECTIONS)
-            .connect_with(options)
-            .await
-            .map_err(|cause| Error::Open {
-                path: path.to_path_buf(),
-                cause,
-            })?;
+        let pool = connect(options, POOL_CONNECTIONS, path).await?;
         if let Err(cause) = MIGRATOR.run(&pool).await {
             pool.close().await;
             return Err(Error::Migrate {
@@ -117,14 +110,7 @@ impl Store {
             .filename(path)
             .read_only(true)
             .busy_timeout(BUSY_TIMEOUT);
-        let pool = SqlitePoolOptions::new()
-            .max_connections(READ_ONLY_CONNECTIONS)
-            .connect_with(options)
-            .await
-            .map_err(|cause| Error::Open {
-                path: path.to_path_buf(),
-                cause,
-            })?;
+        let pool = connect(options, READ_ONLY_CONNECTIONS, path).await?;
         if let Err(e) = check_schema(&pool, path).await {
             pool.close().await;
             return Err(e);
@@ -292,6 +278,22 @@ pub(crate) mod testing {
             value,
         }
     }
+}
+
+/// A pool of `connections` connections with `options`; a failure names the file.
+async fn connect(
+    options: SqliteConnectOptions,
+    connections: u32,
+    path: &Path,
+) -> Result<SqlitePool> {
+    SqlitePoolOptions::new()
+        .max_connections(connections)
+        .connect_with(options)
+        .await
+        .map_err(|cause| Error::Open {
+            path: path.to_path_buf(),
+            cause,
+        })
 }
 
 #[cfg(test)]
