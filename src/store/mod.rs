@@ -21,11 +21,13 @@
 mod alerts;
 mod episodes;
 mod error;
+mod report;
 mod samples;
 
 pub use alerts::{AlertInput, AlertRow, AlertState, RejectionRow};
 pub use episodes::{EpisodeRow, LoopRow, ModelRow};
 pub use error::{Error, Result};
+pub use report::{KeptReport, SeriesCoverage};
 pub use samples::InsertOutcome;
 
 use crate::sample::Signal;
@@ -318,6 +320,7 @@ mod tests {
                 "gaps",
                 "models",
                 "rejections",
+                "reports",
                 "samples",
                 "series"
             ]
