@@ -95,6 +95,8 @@ pub struct Daemon {
     loops: HashMap<Arc<str>, writer::LoopRuntime>,
     settings: writer::WriterSettings,
     committed: Arc<AtomicU64>,
+    /// The weekly summary's schedule, with the configuration it reads loop specs from.
+    report: Option<(Config, crate::report::schedule::Schedule)>,
 }
 
 impl Daemon {
@@ -126,12 +128,21 @@ impl Daemon {
             status_topic: config.mqtt.as_ref().and_then(|m| m.status_topic.clone()),
             raw_retention_ms: Some(i64::from(config.store.raw_retention_days) * 86_400_000),
         };
+        let report = match &config.report {
+            Some(r) => Some((
+                config.clone(),
+                crate::report::schedule::Schedule::from_settings(r)
+                    .map_err(|e| anyhow::anyhow!("[report]: {e}"))?,
+            )),
+            None => None,
+        };
         Ok(Daemon {
             store,
             mqtt,
             loops,
             settings,
             committed: Arc::new(AtomicU64::new(0)),
+            report,
         })
     }
 
@@ -159,6 +170,11 @@ impl Daemon {
             self.committed,
         );
         let writer = tokio::spawn(writer.run(ingest_rx));
+        let report = self.report.map(|(config, schedule)| {
+            let run =
+                crate::report::schedule::run(store.clone(), config, schedule, stop_rx.clone());
+            tokio::spawn(run)
+        });
         let source = match self.mqtt {
             Some(params) => Some(tokio::spawn(mqtt::run(params, ingest_tx, out_rx, stop_rx))),
             None => {
@@ -186,6 +202,9 @@ impl Daemon {
         };
         if let Some(s) = source {
             s.await.context("the MQTT task failed")?;
+        }
+        if let Some(r) = report {
+            r.await.context("the weekly summary task failed")?;
         }
         store.close().await;
         let counters = outcome.with_context(|| {

@@ -336,7 +336,6 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
         .iter()
         .map(|l| build_loop(l, &inputs.periods, &tz, &mut data_quality))
         .collect();
-    loops.sort_by(|a, b| a.tag.cmp(&b.tag));
 
     // Open alerts by kind: raised before the period ended and still open.
     let mut by_kind: BTreeMap<String, (usize, Vec<String>)> = BTreeMap::new();
@@ -382,7 +381,8 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             .then(misses(b).cmp(&misses(a)))
             .then(a.tag.cmp(&b.tag))
     });
-    let ranking = ranking
+    let order: Vec<String> = ranking.iter().map(|l| l.tag.clone()).collect();
+    let ranking: Vec<RankRow> = ranking
         .into_iter()
         .enumerate()
         .map(|(i, l)| RankRow {
@@ -396,11 +396,24 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
         })
         .collect();
 
+    // The loops in the order of the ranking, so the meeting reads from the top.
+    loops.sort_by_key(|l| order.iter().position(|t| *t == l.tag));
+
+    // Data that stop before the period ends: the period is not over yet, or the data stopped
+    // early (a day or more before its end).
     let incomplete = match inputs.newest_data_ms {
-        Some(n) if n < period.to_ms() && n >= period.from_ms() => Some(format!(
-            "The store's data end at {}, before the period does: this summary covers the period so far.",
-            local(n, &tz)
-        )),
+        Some(n)
+            if n >= period.from_ms()
+                && n < period.to_ms()
+                && (inputs.generated.as_millisecond() < period.to_ms()
+                    || n < period.to_ms() - 86_400_000) =>
+        {
+            Some(format!(
+                "The store's data end at {}, before the period does: this summary covers the \
+                 period so far.",
+                local(n, &tz)
+            ))
+        }
         _ => None,
     };
     let changes = loops.iter().map(|l| l.stats.changes).sum();
@@ -421,7 +434,7 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             dates: period.dates_for_people(),
             incomplete,
         },
-        generated_at: inputs.generated.to_string(),
+        generated_at: local(inputs.generated.as_millisecond(), &tz),
         store: inputs.source.clone(),
         plant: PlantSummary {
             loops: loops.len(),
@@ -604,27 +617,33 @@ fn build_loop(
         ));
     }
 
+    // One line per finding, naming every signal it holds for (SP, PV and OP usually share a gap).
+    let mut findings: Vec<(String, Vec<String>)> = Vec::new();
     for c in &l.coverage {
         if c.signal == Signal::Mode && c.samples == 0 {
             continue;
         }
-        if c.samples == 0 {
-            data_quality.push(format!(
-                "{} {}: no samples in this period",
-                l.tag,
-                c.signal.as_str().to_uppercase()
-            ));
+        let finding = if c.samples == 0 {
+            "no samples in this period".to_string()
         } else if c.gaps > 0 {
-            data_quality.push(format!(
-                "{} {}: {} gap(s) longer than {}, {} in all (longest {})",
-                l.tag,
-                c.signal.as_str().to_uppercase(),
+            format!(
+                "{} gap(s) longer than {}, {} in all (longest {})",
                 c.gaps,
                 duration_words(c.gap_threshold_ms),
                 duration_words(c.gap_ms),
                 duration_words(c.longest_gap_ms)
-            ));
+            )
+        } else {
+            continue;
+        };
+        let signal = c.signal.as_str().to_uppercase();
+        match findings.iter_mut().find(|(f, _)| *f == finding) {
+            Some((_, signals)) => signals.push(signal),
+            None => findings.push((finding, vec![signal])),
         }
+    }
+    for (finding, signals) in findings {
+        data_quality.push(format!("{} {}: {finding}", l.tag, signals.join(", ")));
     }
     if l.coverage.is_empty() && l.configured {
         data_quality.push(format!(

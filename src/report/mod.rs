@@ -149,7 +149,7 @@ async fn draw(
     for section in &mut report.loops {
         let input = inputs.loops.iter().find(|l| l.tag == section.tag);
         let setup = input.and_then(|l| l.setup.as_ref());
-        if section.trend.iter().any(|w| w.changes > 0) {
+        if section.trend.iter().any(|w| w.met_share.is_some()) {
             match plot::trend_svg(&section.trend, section.spec.as_ref()) {
                 Ok(svg) => section.trend_svg = Some(svg),
                 Err(e) => section

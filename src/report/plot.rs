@@ -27,7 +27,8 @@ const BAND_COLOUR: RGBColor = RGBColor(0x4f, 0x9d, 0x69);
 const FASTEST_COLOUR: RGBColor = RGBColor(0xc2, 0x6a, 0x1b);
 const OP_COLOUR: RGBColor = RGBColor(0x6b, 0x3f, 0x8f);
 const LIMIT_COLOUR: RGBColor = RGBColor(0xa3, 0x33, 0x33);
-const GRID: RGBColor = RGBColor(0xdd, 0xe1, 0xe5);
+const GRID: RGBColor = RGBColor(0xe6, 0xe9, 0xec);
+const GRID_BOLD: RGBColor = RGBColor(0xcf, 0xd5, 0xda);
 
 /// Points drawn per line at most; longer series are thinned to each bucket's min and max, which
 /// keeps every peak visible.
@@ -134,11 +135,11 @@ fn draw_episode(
         .build_cartesian_2d(x_start..x_end, lo..hi)?;
     chart
         .configure_mesh()
-        .light_line_style(GRID)
-        .bold_line_style(GRID)
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
         .y_desc(pv_label)
-        .label_style((FONT, 12).into_font().color(&INK))
-        .axis_desc_style((FONT, 13).into_font().color(&INK))
+        .label_style((FONT, 14).into_font().color(&INK))
+        .axis_desc_style((FONT, 15).into_font().color(&INK))
         .x_labels(10)
         .y_labels(6)
         .draw()?;
@@ -200,7 +201,7 @@ fn draw_episode(
         .position(SeriesLabelPosition::LowerRight)
         .background_style(WHITE.mix(0.9))
         .border_style(GRID)
-        .label_font((FONT, 12).into_font().color(&INK))
+        .label_font((FONT, 14).into_font().color(&INK))
         .draw()?;
 
     // OP with its limits and the stretches spent at one.
@@ -221,12 +222,12 @@ fn draw_episode(
         .build_cartesian_2d(x_start..x_end, (op_lo - op_pad)..(op_hi + op_pad))?;
     chart
         .configure_mesh()
-        .light_line_style(GRID)
-        .bold_line_style(GRID)
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
         .x_desc("minutes after the setpoint change")
         .y_desc("OP")
-        .label_style((FONT, 12).into_font().color(&INK))
-        .axis_desc_style((FONT, 13).into_font().color(&INK))
+        .label_style((FONT, 14).into_font().color(&INK))
+        .axis_desc_style((FONT, 15).into_font().color(&INK))
         .x_labels(10)
         .y_labels(4)
         .draw()?;
@@ -275,7 +276,7 @@ fn draw_episode(
         .position(SeriesLabelPosition::LowerRight)
         .background_style(WHITE.mix(0.9))
         .border_style(GRID)
-        .label_font((FONT, 12).into_font().color(&INK))
+        .label_font((FONT, 14).into_font().color(&INK))
         .draw()?;
     Ok(())
 }
@@ -383,7 +384,7 @@ fn draw_trend(
     let mut chart = ChartBuilder::on(&left)
         .caption(
             "met the spec (% of judged changes)",
-            (FONT, 13).into_font().color(&INK),
+            (FONT, 15).into_font().color(&INK),
         )
         .margin(8)
         .x_label_area_size(22)
@@ -391,12 +392,12 @@ fn draw_trend(
         .build_cartesian_2d(x_range.clone(), 0.0..105.0)?;
     chart
         .configure_mesh()
-        .light_line_style(GRID)
-        .bold_line_style(GRID)
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
         .x_labels(n)
         .x_label_formatter(&label_of)
         .y_labels(6)
-        .label_style((FONT, 11).into_font().color(&INK))
+        .label_style((FONT, 14).into_font().color(&INK))
         .draw()?;
     let shares: Vec<Option<(f64, f64)>> = weeks
         .iter()
@@ -420,7 +421,7 @@ fn draw_trend(
     let mut chart = ChartBuilder::on(&right)
         .caption(
             "median settling time (s); dashed: spec",
-            (FONT, 13).into_font().color(&INK),
+            (FONT, 15).into_font().color(&INK),
         )
         .margin(8)
         .x_label_area_size(22)
@@ -428,12 +429,12 @@ fn draw_trend(
         .build_cartesian_2d(x_range, 0.0..top)?;
     chart
         .configure_mesh()
-        .light_line_style(GRID)
-        .bold_line_style(GRID)
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
         .x_labels(n)
         .x_label_formatter(&label_of)
         .y_labels(6)
-        .label_style((FONT, 11).into_font().color(&INK))
+        .label_style((FONT, 14).into_font().color(&INK))
         .draw()?;
     if let Some(s) = spec {
         chart.draw_series(DashedLineSeries::new(

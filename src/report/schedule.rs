@@ -216,6 +216,54 @@ mod tests {
     }
 
     #[tokio::test]
+    async fn a_scheduled_run_writes_every_format_and_keeps_them_in_the_store() {
+        use crate::analysis::Verdict;
+        let dir = tempfile::tempdir().unwrap();
+        let store = Store::open(&dir.path().join("h.db")).await.unwrap();
+        let config = Config::parse(
+            "[loops.TIC-101]\nop_min = 0\nop_max = 100\nspec = { settle_within_s = 120 }\n",
+            &dir.path().join("plant.toml"),
+        )
+        .unwrap();
+        let e = crate::store::testing::episode_result(Verdict::Met, Some(60.0));
+        let week = Period::parse_week("2026-W48", &TimeZone::UTC).unwrap();
+        store
+            .upsert_episode(
+                "TIC-101",
+                &e,
+                week.from_ms() + 3_600_000,
+                week.from_ms() + 4_000_000,
+                true,
+                0,
+            )
+            .await
+            .unwrap();
+        let mut s = schedule(Weekday::Monday, "07:00", "UTC");
+        s.folder = dir.path().join("reports");
+        s.formats = Format::ALL.to_vec();
+        let files = generate_once(&store, &config, &s, &week).await.unwrap();
+        let names: Vec<String> = files
+            .iter()
+            .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+            .collect();
+        assert_eq!(
+            names,
+            [
+                "loop-health-2026-W48.html",
+                "loop-health-2026-W48.md",
+                "loop-health-2026-W48.json"
+            ]
+        );
+        let kept = store.kept_reports().await.unwrap();
+        assert_eq!(kept.len(), 3);
+        let json = kept.iter().find(|k| k.format == "json").unwrap();
+        let text = store.kept_report_content(json.id).await.unwrap().unwrap();
+        assert_eq!(text, std::fs::read_to_string(&files[2]).unwrap());
+        let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+        assert_eq!(v["loops"][0]["stats"]["counts"]["met"], 1);
+    }
+
+    #[tokio::test]
     async fn the_task_stops_on_the_stop_signal_while_waiting() {
         let dir = tempfile::tempdir().unwrap();
         let store = Store::open(&dir.path().join("h.db")).await.unwrap();

@@ -526,7 +526,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     assert!(quality.contains("LIC-301: stale tag"), "{quality}");
     // The level loop's 30-minute silence (threshold 10 × 10 s).
     assert!(
-        quality.contains("LIC-301 PV: 1 gap(s) longer than 100 s, 30 min in all"),
+        quality.contains("LIC-301 OP, PV, SP: 1 gap(s) longer than 100 s, 30 min in all"),
         "{quality}"
     );
 
@@ -604,8 +604,9 @@ async fn the_html_parses_its_svgs_are_xml_and_a_headless_browser_draws_it() {
     let out = write_all(&f);
     let path = out.join("loop-health-2026-W48.html");
     let html = std::fs::read_to_string(&path).unwrap();
-    // Two loops with a telling change and a trend each (TIC-101, TIC-102); FIC-201 has a trend.
-    assert_eq!(check_html(&html), 5);
+    // Two loops with a telling change and a trend each (TIC-101, TIC-102); FIC-201 judged
+    // nothing, so it has no trend to draw.
+    assert_eq!(check_html(&html), 4);
 
     let browser = find_browser().unwrap_or_else(|| {
         panic!(
