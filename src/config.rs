@@ -846,6 +846,17 @@ impl Config {
                 )?;
             }
         }
+        if let Some(r) = &self.report {
+            writeln!(
+                o,
+                "Weekly summary: every {:?} at {} ({}), {} into {}",
+                r.weekday,
+                r.time.strftime("%H:%M"),
+                r.time_zone,
+                r.formats.join(", "),
+                r.folder.display()
+            )?;
+        }
         if self.mqtt.is_some() {
             o.push_str(
                 "Samples are timed by the JSON time field when there is one, else by their \

@@ -50,7 +50,7 @@ pub fn render(report: &WeeklyReport, format: Format) -> Result<String, String> {
             })
             .map_err(|e| e.to_string()),
         Format::Html | Format::Markdown => {
-            let env = environment()?;
+            let env = environment(format == Format::Html)?;
             let name = if format == Format::Html {
                 "report.html"
             } else {
@@ -81,11 +81,13 @@ pub fn render(report: &WeeklyReport, format: Format) -> Result<String, String> {
 
 const CSS: &str = include_str!("templates/report.css");
 
-fn environment() -> Result<Environment<'static>, String> {
+/// The templates and filters. HTML drops the newline after each block tag (tidier output);
+/// Markdown keeps them, because there a newline decides where a table or a paragraph ends.
+fn environment(trim_blocks: bool) -> Result<Environment<'static>, String> {
     let mut env = Environment::new();
     env.set_syntax(
         minijinja::syntax::SyntaxConfig::builder()
-            .trim_blocks(true)
+            .trim_blocks(trim_blocks)
             .keep_trailing_newline(true)
             .build()
             .map_err(|e| format!("{e:#}"))?,
