@@ -667,7 +667,7 @@ fn build_loop(
         .as_ref()
         .map(|r| advice_figures(r, l.setup.as_ref()))
         .unwrap_or_default();
-    let telling = pick_telling(&week, status, l.setup.as_ref()).map(|(e, why)| {
+    let telling = pick_telling(&week, status).map(|(e, why)| {
         let m = model_at(e.row.end_ms + 1)
             .or(model_row)
             .map(|m| m.model().fopdt());
@@ -791,11 +791,7 @@ pub fn median_settling(times: &[Option<f64>]) -> (Option<f64>, bool) {
 /// The episode that shows best why the loop has its status: for a retune, the slowest
 /// tuning-limited change; for an actuator problem, the slowest change held back by the
 /// actuator; for a loop that meets its spec, the largest change; otherwise the slowest one.
-fn pick_telling<'a>(
-    week: &[&'a Episode<'a>],
-    status: Status,
-    setup: Option<&LoopSetup>,
-) -> Option<(&'a Episode<'a>, String)> {
+fn pick_telling<'a>(week: &[&'a Episode<'a>], status: Status) -> Option<(&'a Episode<'a>, String)> {
     let slowness = |e: &Episode| e.result.settling_time_s.unwrap_or(f64::INFINITY);
     let size = |e: &Episode| (e.result.sp_to - e.result.sp_from).abs();
     let slowest = |filter: &dyn Fn(&Episode) -> bool| {
@@ -805,7 +801,6 @@ fn pick_telling<'a>(
                 .then(size(a).total_cmp(&size(b)))
         })
     };
-    let _ = setup;
     let pick = match status {
         Status::Retune => slowest(&|e| e.result.verdict == Verdict::TuningLimited)
             .map(|e| (e, "the slowest change that the tuning held back")),

@@ -1,7 +1,7 @@
 //! `headroom report`: resolves the command line into a store, a configuration and a period,
 //! then prints the summary or writes it into a folder.
 
-use super::{Format, Period, default_period, file_name, gather, render, write_files};
+use super::{Format, Period, default_period, gather, render, write_files};
 use crate::cli::{ReportArgs, UsageError};
 use crate::config::Config;
 use crate::store::Store;
@@ -91,8 +91,6 @@ pub async fn run(args: &ReportArgs, out: &mut dyn Write) -> anyhow::Result<()> {
                 report.plant.changes,
                 took.as_secs_f64() * 1000.0
             )?;
-            debug_assert!(written.iter().all(|(p, _)| p.file_name().is_some()));
-            let _ = file_name;
         }
     }
     store.close().await;
