@@ -39,6 +39,38 @@ pub enum Command {
     Alerts(AlertsArgs),
     /// Write a loop's stored samples as a CSV export that `analyze` reads.
     Export(ExportArgs),
+    /// The weekly loop-health summary of a period from the store: HTML, Markdown or JSON.
+    Report(ReportArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    /// The configuration file: the loops' specs, OP ranges and descriptions, and the store path.
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+    /// The SQLite store file (default: the store path in --config).
+    #[arg(long, value_name = "FILE")]
+    pub db: Option<PathBuf>,
+    /// The ISO 8601 week to summarise, e.g. 2026-W48. Default: the last complete week of the
+    /// store's data (the week so far when the store is younger).
+    #[arg(long, value_name = "WEEK", conflicts_with_all = ["from", "to"])]
+    pub week: Option<String>,
+    /// Start of a free period instead of a week: RFC 3339 or a date (midnight).
+    #[arg(long, value_name = "TIME", requires = "to")]
+    pub from: Option<String>,
+    /// End of the free period (not included).
+    #[arg(long, value_name = "TIME", requires = "from")]
+    pub to: Option<String>,
+    /// IANA time zone of the week boundaries, e.g. Europe/Berlin. Default: the config's
+    /// [report] time_zone, else UTC.
+    #[arg(long, value_name = "ZONE")]
+    pub time_zone: Option<String>,
+    /// html, md or json; several with commas (they need --out). Default: html.
+    #[arg(long, value_delimiter = ',', value_parser = ["html", "md", "json"], value_name = "FORMAT")]
+    pub format: Vec<String>,
+    /// Write `loop-health-<period>.<format>` files into this folder instead of printing.
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
 }
 
 #[derive(Debug, Args)]

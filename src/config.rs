@@ -141,6 +141,8 @@ pub struct Config {
     pub loops: BTreeMap<String, LoopConfig>,
     /// Modbus TCP devices by name (`[modbus.<name>]`).
     pub modbus: BTreeMap<String, ModbusDevice>,
+    /// When and where the daemon writes the weekly loop-health summary; `None`: it does not.
+    pub report: Option<ReportSettings>,
 }
 
 /// `[store]`: the SQLite file and how long raw samples are kept.
@@ -569,6 +571,7 @@ struct RawConfig {
     modbus: BTreeMap<String, modbus::RawDevice>,
     #[serde(default)]
     loops: BTreeMap<String, RawLoop>,
+    report: Option<RawReport>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -922,6 +925,17 @@ impl Config {
                 )?;
             }
         }
+        if let Some(r) = &self.report {
+            writeln!(
+                o,
+                "Weekly summary: every {:?} at {} ({}), {} into {}",
+                r.weekday,
+                r.time.strftime("%H:%M"),
+                r.time_zone,
+                r.formats.join(", "),
+                r.folder.display()
+            )?;
+        }
         if !self.modbus.is_empty() {
             o.push_str("Modbus samples are timed by their poll.\n");
         }
@@ -1005,11 +1019,13 @@ impl Checker<'_> {
         }
         self.topics(&loops, mqtt.as_ref());
         self.modbus_usage(&loops, &modbus);
+        let report = raw.report.map(|r| self.report(r));
         Config {
             store,
             mqtt,
             loops,
             modbus,
+            report,
         }
     }
 
@@ -1671,6 +1687,151 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
         .map_or(before.len(), |p| before.len() - p - 1)
         + 1;
     (line, column)
+}
+
+// ---- [report]: the scheduled weekly summary -------------------------------------------------
+
+/// `[report]`: when the daemon generates the weekly loop-health summary, and where it goes.
+/// Each run covers the last complete ISO 8601 week (Monday 00:00 to Monday 00:00 in
+/// `time_zone`); the summary is kept in the store and written to `folder`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ReportSettings {
+    pub weekday: jiff::civil::Weekday,
+    /// Local time of day in `time_zone`.
+    pub time: jiff::civil::Time,
+    /// An IANA name such as `Europe/London`, checked to exist when the file is read.
+    pub time_zone: String,
+    /// Resolved against the config file's folder when relative.
+    pub folder: PathBuf,
+    /// `html`, `md`, `json`; at least one, no repeats.
+    pub formats: Vec<String>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawReport {
+    weekday: String,
+    time: String,
+    #[serde(default = "default_report_zone")]
+    time_zone: String,
+    folder: PathBuf,
+    #[serde(default = "default_report_formats")]
+    formats: Vec<String>,
+}
+
+fn default_report_zone() -> String {
+    "UTC".into()
+}
+
+fn default_report_formats() -> Vec<String> {
+    vec!["html".into(), "md".into(), "json".into()]
+}
+
+impl Checker<'_> {
+    fn report(&mut self, raw: RawReport) -> ReportSettings {
+        use jiff::civil::{Time, Weekday};
+        let days = [
+            ("monday", Weekday::Monday),
+            ("tuesday", Weekday::Tuesday),
+            ("wednesday", Weekday::Wednesday),
+            ("thursday", Weekday::Thursday),
+            ("friday", Weekday::Friday),
+            ("saturday", Weekday::Saturday),
+            ("sunday", Weekday::Sunday),
+        ];
+        let weekday = days
+            .iter()
+            .find(|(n, _)| n.eq_ignore_ascii_case(raw.weekday.trim()))
+            .map(|(_, d)| *d);
+        if weekday.is_none() {
+            self.problem(
+                &["report", "weekday"],
+                format!(
+                    "{:?} is not a weekday: write monday ... sunday",
+                    raw.weekday
+                ),
+            );
+        }
+        let time = raw.time.parse::<Time>().ok();
+        if time.is_none() {
+            self.problem(
+                &["report", "time"],
+                format!(
+                    "{:?} is not a time of day: write 24-hour HH:MM, e.g. \"07:00\"",
+                    raw.time
+                ),
+            );
+        }
+        if let Err(message) = crate::report::period::time_zone(&raw.time_zone) {
+            self.problem(&["report", "time_zone"], message);
+        }
+        if raw.folder.as_os_str().is_empty() {
+            self.problem(&["report", "folder"], "the report folder cannot be empty");
+        }
+        let mut formats = Vec::new();
+        for f in &raw.formats {
+            if !["html", "md", "json"].contains(&f.as_str()) {
+                self.problem(
+                    &["report", "formats"],
+                    format!("unknown format {f:?}: use \"html\", \"md\" or \"json\""),
+                );
+            } else if formats.contains(f) {
+                self.problem(&["report", "formats"], format!("{f:?} is listed twice"));
+            } else {
+                formats.push(f.clone());
+            }
+        }
+        if raw.formats.is_empty() {
+            self.problem(&["report", "formats"], "list at least one format");
+        }
+        ReportSettings {
+            weekday: weekday.unwrap_or(Weekday::Monday),
+            time: time.unwrap_or(Time::midnight()),
+            time_zone: raw.time_zone,
+            folder: relative_to(self.dir, &raw.folder),
+            formats,
+        }
+    }
+}
+
+#[cfg(test)]
+mod report_tests {
+    use super::*;
+
+    const LOOP: &str =
+        "[loops.TIC-101]\nop_min = 0\nop_max = 100\nspec = { settle_within_s = 900 }\n";
+
+    #[test]
+    fn a_report_section_is_read_with_its_defaults() {
+        let text = format!(
+            "{LOOP}[report]\nweekday = \"Monday\"\ntime = \"07:30\"\nfolder = \"reports\"\n"
+        );
+        let c = Config::parse(&text, Path::new("/etc/headroom/plant.toml")).unwrap();
+        let r = c.report.unwrap();
+        assert_eq!(r.weekday, jiff::civil::Weekday::Monday);
+        assert_eq!(r.time, jiff::civil::time(7, 30, 0, 0));
+        assert_eq!(r.time_zone, "UTC");
+        assert_eq!(r.folder, PathBuf::from("/etc/headroom/reports"));
+        assert_eq!(r.formats, ["html", "md", "json"]);
+    }
+
+    #[test]
+    fn report_mistakes_are_named_with_their_line_and_key() {
+        let text = format!(
+            "{LOOP}[report]\nweekday = \"Moonday\"\ntime = \"7 o'clock\"\ntime_zone = \"Mars/Olympus\"\nfolder = \"r\"\nformats = [\"pdf\"]\n"
+        );
+        let e = Config::parse(&text, Path::new("plant.toml"))
+            .unwrap_err()
+            .to_string();
+        for expected in [
+            "plant.toml:6:11: report.weekday: \"Moonday\" is not a weekday",
+            "plant.toml:7:8: report.time:",
+            "plant.toml:8:13: report.time_zone: unknown time zone \"Mars/Olympus\"",
+            "report.formats: unknown format \"pdf\"",
+        ] {
+            assert!(e.contains(expected), "missing {expected:?} in:\n{e}");
+        }
+    }
 }
 
 #[cfg(test)]

@@ -13,5 +13,6 @@ pub mod ingest;
 pub mod modbus;
 pub mod queries;
 pub mod render;
+pub mod report;
 pub mod sample;
 pub mod store;

@@ -32,6 +32,9 @@ fn main() -> ExitCode {
         Command::Export(args) => {
             runtime().and_then(|rt| rt.block_on(headroom::queries::export(args, &mut out)))
         }
+        Command::Report(args) => {
+            runtime().and_then(|rt| rt.block_on(headroom::report::command::run(args, &mut out)))
+        }
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

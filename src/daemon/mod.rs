@@ -114,6 +114,8 @@ pub struct Daemon {
     loops: HashMap<Arc<str>, writer::LoopRuntime>,
     settings: writer::WriterSettings,
     committed: Arc<AtomicU64>,
+    /// The weekly summary's schedule, with the configuration it reads loop specs from.
+    report: Option<(Config, crate::report::schedule::Schedule)>,
 }
 
 impl Daemon {
@@ -146,6 +148,14 @@ impl Daemon {
             status_topic: config.mqtt.as_ref().and_then(|m| m.status_topic.clone()),
             raw_retention_ms: Some(i64::from(config.store.raw_retention_days) * 86_400_000),
         };
+        let report = match &config.report {
+            Some(r) => Some((
+                config.clone(),
+                crate::report::schedule::Schedule::from_settings(r)
+                    .map_err(|e| anyhow::anyhow!("[report]: {e}"))?,
+            )),
+            None => None,
+        };
         Ok(Daemon {
             store,
             mqtt,
@@ -153,6 +163,7 @@ impl Daemon {
             loops,
             settings,
             committed: Arc::new(AtomicU64::new(0)),
+            report,
         })
     }
 
@@ -188,6 +199,11 @@ impl Daemon {
             self.committed,
         );
         let writer = tokio::spawn(writer.run(ingest_rx));
+        let report = self.report.map(|(config, schedule)| {
+            let run =
+                crate::report::schedule::run(store.clone(), config, schedule, stop_rx.clone());
+            tokio::spawn(run)
+        });
         let pollers: Vec<_> = self
             .devices
             .into_iter()
@@ -220,6 +236,9 @@ impl Daemon {
         }
         for p in pollers {
             p.await.context("a Modbus poll task failed")?;
+        }
+        if let Some(r) = report {
+            r.await.context("the weekly summary task failed")?;
         }
         store.close().await;
         let counters = outcome.with_context(|| {

@@ -293,7 +293,7 @@ impl Store {
             .collect()
     }
 
-    fn episode_row(&self, r: &SqliteRow, doing: &'static str) -> Result<EpisodeRow> {
+    pub(super) fn episode_row(&self, r: &SqliteRow, doing: &'static str) -> Result<EpisodeRow> {
         let get = |e| self.fail(doing)(e);
         let verdict: String = r.try_get("verdict").map_err(get)?;
         let detail: String = r.try_get("detail").map_err(get)?;
@@ -315,7 +315,7 @@ impl Store {
         })
     }
 
-    fn model_row(&self, r: &SqliteRow, doing: &'static str) -> Result<ModelRow> {
+    pub(super) fn model_row(&self, r: &SqliteRow, doing: &'static str) -> Result<ModelRow> {
         let get = |e| self.fail(doing)(e);
         let count = |column: &str| -> Result<u64> {
             let n: i64 = r.try_get(column).map_err(get)?;

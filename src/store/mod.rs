@@ -22,12 +22,14 @@ mod alerts;
 mod episodes;
 mod error;
 mod gaps;
+mod report;
 mod samples;
 
 pub use alerts::{AlertInput, AlertRow, AlertState, RejectionRow};
 pub use episodes::{EpisodeRow, LoopRow, ModelRow};
 pub use error::{Error, Result};
 pub use gaps::GapRow;
+pub use report::{KeptReport, SeriesCoverage};
 pub use samples::InsertOutcome;
 
 use crate::sample::Signal;
@@ -320,6 +322,7 @@ mod tests {
                 "gaps",
                 "models",
                 "rejections",
+                "reports",
                 "samples",
                 "series"
             ]

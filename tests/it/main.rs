@@ -26,3 +26,4 @@ mod daemon_sigkill;
 mod daemon_stale;
 mod daemon_tls;
 mod queries;
+mod report;

@@ -1,0 +1,518 @@
+//! The summary's two pictures, drawn with plotters into SVG strings: one setpoint change (SP,
+//! PV inside its spec band, the spec time, the fastest possible response t*, and the OP with
+//! its limits and the stretches it spent at one), and a loop's eight-week trend.
+//!
+//! Pure: samples in, SVG text out. Colours are our own palette (see `report/templates`); every
+//! series is also told apart by line style and named in a legend, so a grey-scale print or a
+//! colour-blind reader loses nothing.
+
+use super::build::{TellingEpisode, TrendWeek};
+use crate::analysis::feasibility::{self, Reach};
+use crate::analysis::{OpRange, Spec};
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+/// The stored samples around one change: (ms since the epoch, value), oldest first.
+#[derive(Debug, Clone, Default)]
+pub struct EpisodeSamples {
+    pub sp: Vec<(i64, f64)>,
+    pub pv: Vec<(i64, f64)>,
+    pub op: Vec<(i64, f64)>,
+}
+
+const INK: RGBColor = RGBColor(0x22, 0x2b, 0x33);
+const SP_COLOUR: RGBColor = RGBColor(0x22, 0x2b, 0x33);
+const PV_COLOUR: RGBColor = RGBColor(0x1f, 0x5f, 0x99);
+const BAND_COLOUR: RGBColor = RGBColor(0x4f, 0x9d, 0x69);
+const FASTEST_COLOUR: RGBColor = RGBColor(0xc2, 0x6a, 0x1b);
+const OP_COLOUR: RGBColor = RGBColor(0x6b, 0x3f, 0x8f);
+const LIMIT_COLOUR: RGBColor = RGBColor(0xa3, 0x33, 0x33);
+const GRID: RGBColor = RGBColor(0xe6, 0xe9, 0xec);
+const GRID_BOLD: RGBColor = RGBColor(0xcf, 0xd5, 0xda);
+
+/// Points drawn per line at most; longer series are thinned to each bucket's min and max, which
+/// keeps every peak visible.
+const MAX_POINTS: usize = 1_200;
+
+const FONT: &str = "sans-serif";
+
+/// Draws one change. `margin_pct` is the saturation margin (% of the OP span).
+pub fn episode_svg(
+    e: &TellingEpisode,
+    spec: Option<&Spec>,
+    op: Option<&OpRange>,
+    margin_pct: f64,
+    s: &EpisodeSamples,
+    pv_unit: &str,
+) -> Result<String, String> {
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (760, 430)).into_drawing_area();
+        draw_episode(&root, e, spec, op, margin_pct, s, pv_unit).map_err(|x| x.to_string())?;
+        root.present().map_err(|x| x.to_string())?;
+    }
+    Ok(svg)
+}
+
+type DrawResult = Result<(), Box<dyn std::error::Error>>;
+
+fn draw_episode(
+    root: &DrawingArea<SVGBackend, Shift>,
+    e: &TellingEpisode,
+    spec: Option<&Spec>,
+    op: Option<&OpRange>,
+    margin_pct: f64,
+    s: &EpisodeSamples,
+    pv_unit: &str,
+) -> DrawResult {
+    root.fill(&WHITE)?;
+    let t0 = e.start_ms;
+    let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
+    let delta = e.sp_to - e.sp_from;
+    let band = spec.map(|sp| sp.settle_band_pct / 100.0 * delta.abs());
+    let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
+    let x_start = -0.1 * x_end.max(1.0 / 60.0);
+
+    // The fastest possible response: OP driven to its limit at the change (the t* of the design).
+    let fastest = e.model.and_then(|m| {
+        let b = spec?.settle_band_pct / 100.0;
+        match feasibility::min_settling_time(&m, delta, e.op_headroom, b) {
+            Reach::Reachable { t_star_s } => Some((m, t_star_s, b)),
+            Reach::Unreachable { .. } => None,
+        }
+    });
+    let fastest_curve: Vec<(f64, f64)> = fastest
+        .map(|(m, t_star, b)| {
+            let reach = m.gain.abs() * e.op_headroom;
+            let sign = delta.signum();
+            let n = 200;
+            (0..=n)
+                .map(|i| {
+                    let t = x_end * 60.0 * i as f64 / n as f64;
+                    let y = if t <= m.dead_time_s {
+                        e.sp_from
+                    } else if t <= t_star {
+                        e.sp_from
+                            + sign
+                                * reach
+                                * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
+                    } else {
+                        // Inside the band the OP backs off and the PV closes on the setpoint.
+                        e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()
+                    };
+                    (t / 60.0, y)
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+
+    let pv = thin(&s.pv, minutes);
+    let sp = step_points(&thin(&s.sp, minutes), x_end);
+    let op_pts = thin(&s.op, minutes);
+    let (mut lo, mut hi) = (e.sp_from.min(e.sp_to), e.sp_from.max(e.sp_to));
+    for (_, y) in pv.iter().chain(&fastest_curve) {
+        lo = lo.min(*y);
+        hi = hi.max(*y);
+    }
+    if let Some(w) = band {
+        lo = lo.min(e.sp_to - w);
+        hi = hi.max(e.sp_to + w);
+    }
+    let pad = 0.08 * (hi - lo).max(1e-6);
+    let (lo, hi) = (lo - pad, hi + pad);
+
+    let (upper, lower) = root.split_vertically(270);
+    let pv_label = if pv_unit.is_empty() {
+        "SP, PV".to_string()
+    } else {
+        format!("SP, PV ({pv_unit})")
+    };
+    let mut chart = ChartBuilder::on(&upper)
+        .margin_top(10)
+        .margin_right(16)
+        .x_label_area_size(24)
+        .y_label_area_size(64)
+        .build_cartesian_2d(x_start..x_end, lo..hi)?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .y_desc(pv_label)
+        .label_style((FONT, 14).into_font().color(&INK))
+        .axis_desc_style((FONT, 15).into_font().color(&INK))
+        .x_labels(10)
+        .y_labels(6)
+        .draw()?;
+    if let Some(w) = band {
+        chart
+            .draw_series(std::iter::once(Rectangle::new(
+                [(0.0, e.sp_to - w), (x_end, e.sp_to + w)],
+                BAND_COLOUR.mix(0.18).filled(),
+            )))?
+            .label("spec band around the new SP")
+            .legend(|(x, y)| {
+                Rectangle::new([(x, y - 5), (x + 18, y + 5)], BAND_COLOUR.mix(0.3).filled())
+            });
+    }
+    if let Some(sp) = spec {
+        let ts = sp.settle_within_s / 60.0;
+        chart
+            .draw_series(DashedLineSeries::new(
+                [(ts, lo), (ts, hi)],
+                6,
+                4,
+                BAND_COLOUR.stroke_width(2),
+            ))?
+            .label(format!("spec time ({:.0} s)", sp.settle_within_s))
+            .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], BAND_COLOUR.stroke_width(2)));
+    }
+    chart
+        .draw_series(LineSeries::new(sp, SP_COLOUR.stroke_width(1)))?
+        .label("SP")
+        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], SP_COLOUR.stroke_width(1)));
+    chart
+        .draw_series(LineSeries::new(pv, PV_COLOUR.stroke_width(2)))?
+        .label("PV")
+        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], PV_COLOUR.stroke_width(2)));
+    if let Some((_, t_star, _)) = fastest {
+        chart
+            .draw_series(DashedLineSeries::new(
+                fastest_curve,
+                3,
+                3,
+                FASTEST_COLOUR.stroke_width(2),
+            ))?
+            .label(format!(
+                "fastest possible, OP at its limit (t* = {t_star:.0} s)"
+            ))
+            .legend(|(x, y)| {
+                PathElement::new([(x, y), (x + 18, y)], FASTEST_COLOUR.stroke_width(2))
+            });
+        let ts = t_star / 60.0;
+        chart.draw_series(DashedLineSeries::new(
+            [(ts, lo), (ts, hi)],
+            2,
+            3,
+            FASTEST_COLOUR.stroke_width(1),
+        ))?;
+    }
+    chart
+        .configure_series_labels()
+        .position(SeriesLabelPosition::LowerRight)
+        .background_style(WHITE.mix(0.9))
+        .border_style(GRID)
+        .label_font((FONT, 14).into_font().color(&INK))
+        .draw()?;
+
+    // OP with its limits and the stretches spent at one.
+    let (op_lo, op_hi) = match op {
+        Some(r) => (r.min, r.max),
+        None => op_pts
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), (_, y)| {
+                (a.min(*y), b.max(*y))
+            }),
+    };
+    let op_pad = 0.06 * (op_hi - op_lo).abs().max(1e-6);
+    let mut chart = ChartBuilder::on(&lower)
+        .margin_right(16)
+        .margin_bottom(6)
+        .x_label_area_size(36)
+        .y_label_area_size(64)
+        .build_cartesian_2d(x_start..x_end, (op_lo - op_pad)..(op_hi + op_pad))?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .x_desc("minutes after the setpoint change")
+        .y_desc("OP")
+        .label_style((FONT, 14).into_font().color(&INK))
+        .axis_desc_style((FONT, 15).into_font().color(&INK))
+        .x_labels(10)
+        .y_labels(4)
+        .draw()?;
+    if let Some(r) = op {
+        let margin = margin_pct / 100.0 * r.span();
+        let stretches = saturated_stretches(&op_pts, r, margin);
+        if !stretches.is_empty() {
+            chart
+                .draw_series(stretches.into_iter().map(|(a, b)| {
+                    Rectangle::new(
+                        [(a, op_lo - op_pad), (b, op_hi + op_pad)],
+                        LIMIT_COLOUR.mix(0.14).filled(),
+                    )
+                }))?
+                .label("OP at a limit (shaded)")
+                .legend(|(x, y)| {
+                    Rectangle::new(
+                        [(x, y - 5), (x + 18, y + 5)],
+                        LIMIT_COLOUR.mix(0.25).filled(),
+                    )
+                });
+        }
+        chart
+            .draw_series(
+                [r.min, r.max]
+                    .into_iter()
+                    .map(|l| {
+                        DashedLineSeries::new(
+                            [(x_start, l), (x_end, l)],
+                            6,
+                            4,
+                            LIMIT_COLOUR.stroke_width(1),
+                        )
+                    })
+                    .flat_map(|s| s.into_iter()),
+            )?
+            .label("OP limits")
+            .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], LIMIT_COLOUR.stroke_width(1)));
+    }
+    chart
+        .draw_series(LineSeries::new(op_pts, OP_COLOUR.stroke_width(2)))?
+        .label("OP")
+        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], OP_COLOUR.stroke_width(2)));
+    chart
+        .configure_series_labels()
+        .position(SeriesLabelPosition::LowerRight)
+        .background_style(WHITE.mix(0.9))
+        .border_style(GRID)
+        .label_font((FONT, 14).into_font().color(&INK))
+        .draw()?;
+    Ok(())
+}
+
+/// Times (minutes) where the OP sat within `margin` of a limit, as closed stretches.
+fn saturated_stretches(op: &[(f64, f64)], r: &OpRange, margin: f64) -> Vec<(f64, f64)> {
+    let at_limit = |v: f64| v >= r.max - margin || v <= r.min + margin;
+    let mut out = Vec::new();
+    let mut start: Option<f64> = None;
+    for (i, (t, v)) in op.iter().enumerate() {
+        match (at_limit(*v), start) {
+            (true, None) => start = Some(*t),
+            (false, Some(a)) => {
+                out.push((a, *t));
+                start = None;
+            }
+            _ => {}
+        }
+        if i + 1 == op.len()
+            && let Some(a) = start
+        {
+            out.push((a, *t));
+        }
+    }
+    out
+}
+
+/// Samples as (minutes, value), thinned to at most [`MAX_POINTS`] by keeping each bucket's
+/// lowest and highest value in time order.
+fn thin(samples: &[(i64, f64)], minutes: impl Fn(i64) -> f64) -> Vec<(f64, f64)> {
+    if samples.len() <= MAX_POINTS {
+        return samples.iter().map(|(t, v)| (minutes(*t), *v)).collect();
+    }
+    let per = samples.len().div_ceil(MAX_POINTS / 2);
+    let mut out = Vec::with_capacity(MAX_POINTS + 2);
+    for chunk in samples.chunks(per) {
+        let lo = chunk
+            .iter()
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .expect("non-empty chunk");
+        let hi = chunk
+            .iter()
+            .max_by(|a, b| a.1.total_cmp(&b.1))
+            .expect("non-empty chunk");
+        let (first, second) = if lo.0 <= hi.0 { (lo, hi) } else { (hi, lo) };
+        out.push((minutes(first.0), first.1));
+        if second.0 != first.0 {
+            out.push((minutes(second.0), second.1));
+        }
+    }
+    out
+}
+
+/// A setpoint drawn as steps (it holds until the next value), extended to `x_end`.
+fn step_points(sp: &[(f64, f64)], x_end: f64) -> Vec<(f64, f64)> {
+    let mut out = Vec::with_capacity(2 * sp.len() + 1);
+    for (i, (t, v)) in sp.iter().enumerate() {
+        if i > 0 {
+            out.push((*t, sp[i - 1].1));
+        }
+        out.push((*t, *v));
+    }
+    if let Some((t, v)) = sp.last()
+        && *t < x_end
+    {
+        out.push((x_end, *v));
+    }
+    out
+}
+
+/// The eight-week trend: share of judged changes that met the spec, and the median settling
+/// time beside the spec time.
+pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, String> {
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (760, 230)).into_drawing_area();
+        draw_trend(&root, weeks, spec).map_err(|x| x.to_string())?;
+        root.present().map_err(|x| x.to_string())?;
+    }
+    Ok(svg)
+}
+
+fn draw_trend(
+    root: &DrawingArea<SVGBackend, Shift>,
+    weeks: &[TrendWeek],
+    spec: Option<&Spec>,
+) -> DrawResult {
+    root.fill(&WHITE)?;
+    let (left, right) = root.split_horizontally(380);
+    let n = weeks.len().max(1);
+    let labels: Vec<String> = weeks
+        .iter()
+        .map(|w| w.label.rsplit('-').next().unwrap_or(&w.label).to_string())
+        .collect();
+    let label_of = |x: &f64| {
+        let i = x.round();
+        if (x - i).abs() < 1e-6 && i >= 0.0 {
+            labels.get(i as usize).cloned().unwrap_or_default()
+        } else {
+            String::new()
+        }
+    };
+    let x_range = -0.5..(n as f64 - 0.5);
+
+    let mut chart = ChartBuilder::on(&left)
+        .caption(
+            "met the spec (% of judged changes)",
+            (FONT, 15).into_font().color(&INK),
+        )
+        .margin(8)
+        .x_label_area_size(22)
+        .y_label_area_size(40)
+        .build_cartesian_2d(x_range.clone(), 0.0..105.0)?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .x_labels(n)
+        .x_label_formatter(&label_of)
+        .y_labels(6)
+        .label_style((FONT, 14).into_font().color(&INK))
+        .draw()?;
+    let shares: Vec<Option<(f64, f64)>> = weeks
+        .iter()
+        .enumerate()
+        .map(|(i, w)| w.met_share.map(|s| (i as f64, 100.0 * s)))
+        .collect();
+    draw_segments(&mut chart, &shares, BAND_COLOUR)?;
+
+    let settle: Vec<Option<(f64, f64)>> = weeks
+        .iter()
+        .enumerate()
+        .map(|(i, w)| w.median_settling_s.map(|s| (i as f64, s)))
+        .collect();
+    let top = settle
+        .iter()
+        .flatten()
+        .map(|p| p.1)
+        .chain(spec.map(|s| s.settle_within_s))
+        .fold(1.0_f64, f64::max)
+        * 1.15;
+    let mut chart = ChartBuilder::on(&right)
+        .caption(
+            "median settling time (s); dashed: spec",
+            (FONT, 15).into_font().color(&INK),
+        )
+        .margin(8)
+        .x_label_area_size(22)
+        .y_label_area_size(48)
+        .build_cartesian_2d(x_range, 0.0..top)?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .x_labels(n)
+        .x_label_formatter(&label_of)
+        .y_labels(6)
+        .label_style((FONT, 14).into_font().color(&INK))
+        .draw()?;
+    if let Some(s) = spec {
+        chart.draw_series(DashedLineSeries::new(
+            [
+                (-0.5, s.settle_within_s),
+                (n as f64 - 0.5, s.settle_within_s),
+            ],
+            6,
+            4,
+            LIMIT_COLOUR.stroke_width(1),
+        ))?;
+    }
+    draw_segments(&mut chart, &settle, PV_COLOUR)?;
+    Ok(())
+}
+
+/// A line through the weeks that have a value, broken where one has none, with a dot per week.
+fn draw_segments(
+    chart: &mut ChartContext<
+        SVGBackend,
+        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+    >,
+    points: &[Option<(f64, f64)>],
+    colour: RGBColor,
+) -> DrawResult {
+    for run in points.split(|p| p.is_none()) {
+        let run: Vec<(f64, f64)> = run.iter().flatten().copied().collect();
+        if run.len() > 1 {
+            chart.draw_series(LineSeries::new(run, colour.stroke_width(2)))?;
+        }
+    }
+    chart.draw_series(
+        points
+            .iter()
+            .flatten()
+            .map(|p| Circle::new(*p, 4, colour.filled())),
+    )?;
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn saturated_stretches_cover_the_samples_at_either_limit() {
+        let r = OpRange {
+            min: 0.0,
+            max: 100.0,
+        };
+        let op = [
+            (0.0, 50.0),
+            (1.0, 99.8),
+            (2.0, 100.0),
+            (3.0, 80.0),
+            (4.0, 0.2),
+            (5.0, 0.0),
+        ];
+        assert_eq!(saturated_stretches(&op, &r, 0.5), [(1.0, 3.0), (4.0, 5.0)]);
+    }
+
+    #[test]
+    fn thinning_keeps_the_extremes_of_a_long_series() {
+        let long: Vec<(i64, f64)> = (0..100_000)
+            .map(|i| (i, if i == 54_321 { 9.0 } else { (i % 7) as f64 }))
+            .collect();
+        let thin = thin(&long, |t| t as f64);
+        assert!(thin.len() <= MAX_POINTS + 2, "{}", thin.len());
+        assert!(thin.iter().any(|p| p == &(54_321.0, 9.0)));
+        assert!(thin.windows(2).all(|w| w[0].0 <= w[1].0), "time order");
+    }
+
+    #[test]
+    fn a_setpoint_is_drawn_as_steps() {
+        let sp = [(0.0, 1.0), (2.0, 3.0)];
+        assert_eq!(
+            step_points(&sp, 5.0),
+            [(0.0, 1.0), (2.0, 1.0), (2.0, 3.0), (5.0, 3.0)]
+        );
+    }
+}
