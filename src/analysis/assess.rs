@@ -14,10 +14,10 @@ use super::metrics::{self, OpRange, Response};
 use super::segment::{self, ChangeShape, EpisodeWindow, SegmentSettings, WindowEnd};
 use super::tuning::{self, PiSuggestion};
 use super::{CAUTION, LoopSetup, Series, Spec};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// The outcome of one setpoint change.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Verdict {
     Met,
@@ -55,8 +55,9 @@ impl Verdict {
     }
 }
 
-/// Everything known about one setpoint change. Field names are a contract (JSON output).
-#[derive(Debug, Clone, PartialEq, Serialize)]
+/// Everything known about one setpoint change. Field names are a contract (JSON output); the
+/// store keeps it as that JSON and reads it back (`Deserialize`) for summaries.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct EpisodeResult {
     /// Time of the change (t0), on the data's time axis (s).
     pub start_s: f64,

@@ -7,7 +7,7 @@
 //! horizon, or the end of the data — whichever comes first.
 
 use super::Series;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// Settings for segmentation, all in the loop's own units and seconds.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -24,7 +24,7 @@ pub struct SegmentSettings {
 }
 
 /// How an SP move looked.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum ChangeShape {
     Step,
@@ -32,7 +32,7 @@ pub enum ChangeShape {
 }
 
 /// Why an episode window ended.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum WindowEnd {
     /// The next setpoint change started.
