@@ -103,11 +103,11 @@ fn config(addr: SocketAddr) -> rumqttd::Config {
         router: rumqttd::RouterConfig {
             max_connections: 64,
             max_outgoing_packet_count: 1_000,
-            // The router keeps recent messages in memory in segments; 8 × 8 MiB holds many
+            // The router keeps recent messages in memory in segments; 4 × 4 MiB holds many
             // seconds of the plant's traffic, far more than the daemon ever lags behind (the
             // plant waits when the daemon falls behind, see `demo::MAX_LAG_SAMPLES`).
-            max_segment_size: 8 << 20,
-            max_segment_count: 8,
+            max_segment_size: 4 << 20,
+            max_segment_count: 4,
             ..Default::default()
         },
         ..Default::default()

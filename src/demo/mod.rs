@@ -41,8 +41,11 @@ const PUBLISH_EVERY: Duration = Duration::from_millis(50);
 /// At most this many samples per MQTT message (a few kilobytes of JSON, far below the daemon's
 /// 64 KiB payload limit).
 const MAX_BATCH: usize = 400;
-/// The plant waits while more samples than this are published but not yet committed.
-pub const MAX_LAG_SAMPLES: u64 = 30_000;
+/// The plant waits while more samples than this are published but not yet committed: about
+/// 25 minutes of the plant's data, a quarter of a second of the daemon's work at 6000×. It
+/// keeps the daemon's view of every loop close to the plant's clock, which its stale-tag check
+/// relies on (see `STALE_AFTER_S`).
+pub const MAX_LAG_SAMPLES: u64 = 10_000;
 /// The plant advances at most this much wall time's worth per tick, so a stalled tick (a busy
 /// machine) does not turn into one huge jump.
 const MAX_TICK_WALL: Duration = Duration::from_millis(100);

@@ -247,7 +247,7 @@ fn cook_kettle() -> LoopDef {
                 op_max: 100.0,
             },
             step_s: 1.0,
-            noise_sd: 0.03,
+            noise_sd: 0.02,
             seed: 120,
             initial_sp: 72.0,
         },
@@ -446,7 +446,7 @@ fn daily_setpoints(tag: &str) -> &'static [(f64, f64)] {
             (10.5, 32.0),
             (13.5, 27.0),
             (16.5, 31.0),
-            (19.5, 26.0),
+            (19.5, 25.0),
             (22.5, 28.0),
         ],
         "LIC-150" => &[
