@@ -42,8 +42,9 @@
 //! - **Secrets** never sit in the file: an inline `password` is refused, the password is read from
 //!   a file or the environment when the daemon connects ([`MqttSettings::password`]), and it is
 //!   printed as `***`.
-//! - **Sources can grow.** A signal's [`Source`] is an enum with one kind today (an MQTT topic
-//!   and payload format); the Modbus register source arrives as a second kind.
+//! - **Sources.** A signal's [`Source`] is an MQTT topic and payload format, or registers of a
+//!   Modbus TCP device (`[modbus.<name>]`, see [`modbus`]); one loop may mix both. Register
+//!   sources that overlap on one device are refused, like overlapping topic filters.
 
 use crate::analysis::{AnalysisOptions, LoopSetup, OpRange, Spec};
 use crate::ingest::topic;
@@ -54,6 +55,9 @@ use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::time::Duration;
+
+pub mod modbus;
+pub use modbus::{ModbusDevice, ModbusSource};
 
 /// A problem with a configuration file, located as precisely as the file allows.
 #[derive(Debug, thiserror::Error)]
@@ -135,6 +139,8 @@ pub struct Config {
     pub mqtt: Option<MqttSettings>,
     /// Loops by tag.
     pub loops: BTreeMap<String, LoopConfig>,
+    /// Modbus TCP devices by name (`[modbus.<name>]`).
+    pub modbus: BTreeMap<String, ModbusDevice>,
 }
 
 /// `[store]`: the SQLite file and how long raw samples are kept.
@@ -347,6 +353,8 @@ pub struct AnalysisConfig {
 pub enum Source {
     /// Messages on an MQTT topic filter.
     Mqtt(MqttSource),
+    /// Registers (or bits) of a Modbus TCP device, read by polling.
+    Modbus(ModbusSource),
 }
 
 impl Source {
@@ -354,6 +362,15 @@ impl Source {
     pub fn as_mqtt(&self) -> Option<&MqttSource> {
         match self {
             Source::Mqtt(m) => Some(m),
+            Source::Modbus(_) => None,
+        }
+    }
+
+    /// The Modbus source, if this is one.
+    pub fn as_modbus(&self) -> Option<&ModbusSource> {
+        match self {
+            Source::Modbus(m) => Some(m),
+            Source::Mqtt(_) => None,
         }
     }
 }
@@ -549,6 +566,8 @@ struct RawConfig {
     store: Option<RawStore>,
     mqtt: Option<RawMqtt>,
     #[serde(default)]
+    modbus: BTreeMap<String, modbus::RawDevice>,
+    #[serde(default)]
     loops: BTreeMap<String, RawLoop>,
 }
 
@@ -603,9 +622,8 @@ fn default_op_unit() -> String {
     "%".into()
 }
 
-/// A signal's source as written. One struct for every kind (today only MQTT): the kind is told
-/// by which keys are present, so a Modbus source adds its keys here and a branch in
-/// `Checker::source`.
+/// A signal's source as written. One struct for every kind: the kind is told by which keys are
+/// present (`device` makes it a Modbus source, else it is an MQTT source).
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawSource {
@@ -614,6 +632,16 @@ struct RawSource {
     value_field: Option<String>,
     time_field: Option<String>,
     auto_values: Option<Vec<String>>,
+    // Modbus keys (see `modbus::RawRegister`); serde cannot flatten under deny_unknown_fields.
+    device: Option<String>,
+    table: Option<crate::modbus::registers::Table>,
+    address: Option<i64>,
+    data_type: Option<crate::modbus::registers::DataType>,
+    order: Option<crate::modbus::registers::Order>,
+    scale: Option<f64>,
+    offset: Option<f64>,
+    raw_range: Option<[f64; 2]>,
+    eng_range: Option<[f64; 2]>,
 }
 
 #[derive(Debug, Clone, Copy, Deserialize)]
@@ -725,10 +753,11 @@ impl Config {
             self.store.raw_retention_days
         )?;
         match &self.mqtt {
-            None => writeln!(
+            None if self.modbus.is_empty() => writeln!(
                 o,
-                "MQTT: no [mqtt] section; the daemon has nothing to read."
+                "MQTT: no [mqtt] section, and no [modbus] device; the daemon has nothing to read."
             )?,
+            None => writeln!(o, "MQTT: no [mqtt] section.")?,
             Some(m) => {
                 let tls = if m.tls {
                     match &m.ca_file {
@@ -767,6 +796,29 @@ impl Config {
                 }
                 let subs = self.subscriptions();
                 writeln!(o, "  subscribes with QoS 1 to {} topic filters", subs.len())?;
+            }
+        }
+        for (name, d) in &self.modbus {
+            let l = d.limits;
+            writeln!(
+                o,
+                "Modbus device {name}: {} unit {}, polled every {} s, {} s timeout per request, \
+                 up to {} registers per request, gaps of up to {} bridged",
+                d.address,
+                d.unit_id,
+                d.poll_period.as_secs_f64(),
+                d.timeout.as_secs_f64(),
+                l.max_for(crate::modbus::registers::Table::HoldingRegisters),
+                l.max_gap()
+            )?;
+            match modbus::device_plan(&self.loops, name, d) {
+                Ok(p) => writeln!(
+                    o,
+                    "  {} signal(s) read in {} request(s) per poll, read function codes only",
+                    p.placements.len(),
+                    p.requests.len()
+                )?,
+                Err(e) => writeln!(o, "  cannot plan the requests: {e}")?,
             }
         }
         let watched = self.loops.values().filter(|l| l.is_watched()).count();
@@ -808,9 +860,8 @@ impl Config {
             }
             let width = l
                 .sources()
-                .map(|(_, s)| match s {
-                    Source::Mqtt(m) => m.topic.chars().count(),
-                })
+                .filter_map(|(_, s)| s.as_mqtt())
+                .map(|m| m.topic.chars().count())
                 .max()
                 .unwrap_or(0);
             for (signal, source) in l.sources() {
@@ -833,6 +884,34 @@ impl Config {
                             m.topic
                         )?;
                     }
+                    Source::Modbus(m) => {
+                        let r = &m.register;
+                        let mut how = r.data_type.to_string();
+                        if r.count() > 1 {
+                            write!(how, " {}", r.order)?;
+                        }
+                        match r.scaling {
+                            crate::modbus::registers::Scaling::Linear { scale, offset }
+                                if scale != 1.0 || offset != 0.0 =>
+                            {
+                                write!(how, ", value × {scale} + {offset}")?
+                            }
+                            crate::modbus::registers::Scaling::Range {
+                                raw_lo,
+                                raw_hi,
+                                eng_lo,
+                                eng_hi,
+                            } => write!(how, ", raw {raw_lo}..{raw_hi} → {eng_lo}..{eng_hi}")?,
+                            _ => {}
+                        }
+                        writeln!(
+                            o,
+                            "    {:<4}  modbus  {} {}  {how}",
+                            signal.as_str(),
+                            m.device,
+                            modbus::span(r)
+                        )?;
+                    }
                 }
             }
             if let Some(mode) = &l.mode {
@@ -843,9 +922,12 @@ impl Config {
                 )?;
             }
         }
+        if !self.modbus.is_empty() {
+            o.push_str("Modbus samples are timed by their poll.\n");
+        }
         if self.mqtt.is_some() {
             o.push_str(
-                "Samples are timed by the JSON time field when there is one, else by their \
+                "MQTT samples are timed by the JSON time field when there is one, else by their \
                  arrival.\n",
             );
             o.push_str(BROKER_NOTES);
@@ -915,13 +997,20 @@ impl Checker<'_> {
     fn config(&mut self, raw: RawConfig) -> Config {
         let store = raw.store.map(|s| self.store(s)).unwrap_or_default();
         let mqtt = raw.mqtt.map(|m| self.mqtt(m));
+        let modbus = self.modbus_devices(raw.modbus);
         let mut loops = BTreeMap::new();
         for (tag, l) in raw.loops {
-            let l = self.a_loop(&tag, l, mqtt.is_some());
+            let l = self.a_loop(&tag, l, mqtt.is_some(), &modbus);
             loops.insert(tag, l);
         }
         self.topics(&loops, mqtt.as_ref());
-        Config { store, mqtt, loops }
+        self.modbus_usage(&loops, &modbus);
+        Config {
+            store,
+            mqtt,
+            loops,
+            modbus,
+        }
     }
 
     fn store(&mut self, raw: RawStore) -> StoreSettings {
@@ -1075,7 +1164,13 @@ impl Checker<'_> {
         }
     }
 
-    fn a_loop(&mut self, tag: &str, raw: RawLoop, have_mqtt: bool) -> LoopConfig {
+    fn a_loop(
+        &mut self,
+        tag: &str,
+        raw: RawLoop,
+        have_mqtt: bool,
+        devices: &BTreeMap<String, ModbusDevice>,
+    ) -> LoopConfig {
         let at = |key: &'static str| ["loops", tag, key];
         if let Some(m) = tag_problem(tag) {
             self.problem(&["loops", tag], m);
@@ -1133,7 +1228,7 @@ impl Checker<'_> {
         }
 
         let mut source = |signal: Signal, raw: Option<RawSource>| {
-            raw.map(|r| self.source(tag, signal, r, have_mqtt))
+            raw.map(|r| self.source(tag, signal, r, have_mqtt, devices))
         };
         let sp = source(Signal::Sp, raw.sp).map(|(s, _)| s);
         let pv = source(Signal::Pv, raw.pv).map(|(s, _)| s);
@@ -1202,6 +1297,7 @@ impl Checker<'_> {
         signal: Signal,
         raw: RawSource,
         have_mqtt: bool,
+        devices: &BTreeMap<String, ModbusDevice>,
     ) -> (Source, Option<AutoValues>) {
         let name = signal.as_str();
         let at = |key: &'static str| ["loops", tag, name, key];
@@ -1224,10 +1320,45 @@ impl Checker<'_> {
                 Some(AutoValues::new(v))
             }
         };
+        let register = modbus::RawRegister {
+            device: raw.device,
+            table: raw.table,
+            address: raw.address,
+            data_type: raw.data_type,
+            order: raw.order,
+            scale: raw.scale,
+            offset: raw.offset,
+            raw_range: raw.raw_range,
+            eng_range: raw.eng_range,
+        };
+        if register.device.is_some() {
+            for (key, given) in [
+                ("topic", raw.topic.is_some()),
+                ("format", raw.format.is_some()),
+                ("value_field", raw.value_field.is_some()),
+                ("time_field", raw.time_field.is_some()),
+            ] {
+                if given {
+                    self.problem(
+                        &at(key),
+                        "a Modbus source (one with `device`) takes no MQTT keys",
+                    );
+                }
+            }
+            let source = self.modbus_source(tag, signal, register, devices);
+            return (source, auto_values);
+        }
+        for key in register.given() {
+            self.problem(
+                &["loops", tag, name, key],
+                "only applies to a Modbus source: add `device = \"<name>\"` naming a \
+                 [modbus.<name>] device, or remove it",
+            );
+        }
         let topic = raw.topic.unwrap_or_else(|| {
             self.problem(
                 &["loops", tag, name],
-                "a source needs `topic` (an MQTT topic filter)",
+                "a source needs `topic` (an MQTT topic filter) or `device` (a Modbus device)",
             );
             String::new()
         });
@@ -1665,9 +1796,18 @@ op = { topic = "plant/feed/FIC-201/op", format = "number" }
         assert!(cfg.loops.values().all(LoopConfig::is_watched));
         let mqtt = cfg.mqtt.as_ref().unwrap();
         assert!(matches!(mqtt.password_from, Some(PasswordSource::File(_))));
-        // Every loop's three signals, and the modes, each on its own topic.
-        let sources: usize = cfg.loops.values().map(|l| l.sources().count()).sum();
-        assert_eq!(cfg.subscriptions().len(), sources);
+        // Every MQTT source on its own topic; skid B's loop read over Modbus in two requests
+        // (the coil, and holding registers 100-103 with 110 apart).
+        let mqtt_sources = cfg
+            .loops
+            .values()
+            .flat_map(|l| l.sources())
+            .filter(|(_, s)| s.as_mqtt().is_some())
+            .count();
+        assert_eq!(cfg.subscriptions().len(), mqtt_sources);
+        let skid = &cfg.modbus["skid-b"];
+        let plan = modbus::device_plan(&cfg.loops, "skid-b", skid).unwrap();
+        assert_eq!(plan.requests.len(), 3, "{:?}", plan.requests);
     }
 
     #[test]

@@ -72,6 +72,13 @@ impl Default for AnalysisOptions {
     }
 }
 
+impl AnalysisOptions {
+    /// The silence that counts as a data gap (s), for a loop sampled every `period_s`.
+    pub fn max_gap_for(&self, period_s: f64) -> f64 {
+        self.max_gap_s.unwrap_or(10.0 * period_s)
+    }
+}
+
 /// Everything the analysis needs to know about a loop besides its data.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LoopSetup {

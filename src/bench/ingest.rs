@@ -332,16 +332,7 @@ async fn memory_run(dir: &Path, port: u16) -> anyhow::Result<(Vec<f64>, f64)> {
     let cfg_path = dir.join("memory.toml");
     let loops = 1_000;
     std::fs::write(&cfg_path, config_text(port, &db, loops, "bench-memory"))?;
-    let exe = std::env::current_exe()?;
-    let mut child = tokio::process::Command::new(exe)
-        .args(["run", "--config"])
-        .arg(&cfg_path)
-        .env("RUST_LOG", "warn")
-        .stdout(std::process::Stdio::null())
-        .stderr(std::process::Stdio::null())
-        .kill_on_drop(true)
-        .spawn()?;
-    let pid = child.id().context("no pid")?;
+    let (mut child, pid) = super::spawn_daemon(&cfg_path)?;
     tokio::time::sleep(Duration::from_millis(1500)).await;
     // One message per signal and minute: 60 samples in a JSON array.
     let per_series = 600;

@@ -2,13 +2,18 @@
 //! compared with, in one run. A benchmark measures; it asserts nothing — the figures go in the
 //! README's performance section.
 //!
-//! Measured now:
+//! Measured now (`--only` picks parts):
 //! - analysis of a week of one loop at 1 Hz (604,800 samples, about 100 setpoint changes), from
 //!   a loaded series to verdicts, and from the CSV file to verdicts, against the 0.2 s target;
 //! - per-episode scoring + identification beside python-control `step_info` + scipy `curve_fit`
-//!   of an FOPDT model on the same episode files (run through `tests/reference/bench_python.py`).
+//!   of an FOPDT model on the same episode files (run through `tests/reference/bench_python.py`);
+//! - ingest through a Mosquitto it starts, beside the broker's and the store's ceilings, and the
+//!   daemon's memory (`ingest.rs`);
+//! - Modbus polling of 100 simulated devices by one daemon: requests per cycle, CPU, and the
+//!   fastest poll of one device (`modbus.rs`).
 
 mod ingest;
+mod modbus;
 
 use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Series, Spec};
@@ -34,6 +39,9 @@ pub struct BenchArgs {
     /// Smaller ingest runs and no memory run (a minute instead of several).
     #[arg(long)]
     pub quick: bool,
+    /// Only these parts (default: all).
+    #[arg(long, value_delimiter = ',', value_parser = ["analysis", "ingest", "modbus"])]
+    pub only: Vec<String>,
 }
 
 /// The target for a week of one loop at 1 Hz, end to end.
@@ -42,17 +50,37 @@ const WEEK_TARGET_S: f64 = 0.2;
 const SPEEDUP_TARGET: f64 = 100.0;
 
 pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
-    let repeat = args.repeat.max(1);
     writeln!(out, "headroom bench — {} CPU(s) available", cpus())?;
     writeln!(out)?;
+    let part = |name: &str| args.only.is_empty() || args.only.iter().any(|p| p == name);
+    let dir = tempfile_dir()?;
+    if part("analysis") {
+        analysis_part(args, &dir, out)?;
+    }
+    if part("ingest") {
+        ingest::run(&dir, out, args.quick)?;
+        writeln!(out)?;
+    }
+    if part("modbus") {
+        modbus::run(&dir, out, args.quick)?;
+        writeln!(out)?;
+    }
+    if let Some(mb) = proc_status_mb("self", "VmHWM:") {
+        writeln!(out, "peak resident memory of this run: {mb:.1} MB")?;
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+    Ok(())
+}
 
+/// A week of one loop, and the per-episode comparison with the Python reference libraries.
+fn analysis_part(args: &BenchArgs, dir: &Path, out: &mut dyn Write) -> anyhow::Result<()> {
+    let repeat = args.repeat.max(1);
     // 1. A week of one loop at 1 Hz.
     let (series, setup) = week_of_one_loop();
     let changes = analysis::analyze_loop(&series, &setup).episodes.len();
     let core = median_time(repeat, || {
         std::hint::black_box(analysis::analyze_loop(&series, &setup));
     });
-    let dir = tempfile_dir()?;
     let csv = dir.join("week.csv");
     write_csv(&series, &csv)?;
     let from_csv = median_time(repeat, || {
@@ -112,13 +140,22 @@ pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         Err(e) => writeln!(out, "  Python side not measured: {e:#}")?,
     }
     writeln!(out)?;
-    ingest::run(&dir, out, args.quick)?;
-    writeln!(out)?;
-    if let Some(mb) = proc_status_mb("self", "VmHWM:") {
-        writeln!(out, "peak resident memory of this run: {mb:.1} MB")?;
-    }
-    let _ = std::fs::remove_dir_all(&dir);
     Ok(())
+}
+
+/// `headroom run --config <cfg>` as a child process of this binary, logging warnings only to
+/// nowhere; killed when dropped.
+fn spawn_daemon(cfg: &Path) -> anyhow::Result<(tokio::process::Child, u32)> {
+    let child = tokio::process::Command::new(std::env::current_exe()?)
+        .args(["run", "--config"])
+        .arg(cfg)
+        .env("RUST_LOG", "warn")
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .kill_on_drop(true)
+        .spawn()?;
+    let pid = child.id().context("the daemon has no process id")?;
+    Ok((child, pid))
 }
 
 fn row(

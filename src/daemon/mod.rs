@@ -1,16 +1,19 @@
 //! The daemon (`headroom run`): the one place that wires the tasks together.
 //!
 //! ```text
-//!  MQTT task ──Ingest──> writer task ──> store (SQLite)
-//!     ^                     │  └──> live trackers (pure analysis core) ──> episodes, models, alerts
-//!     └─────Outbound────────┘        (acknowledgements after commit; alert and status messages)
+//!  MQTT task ────────Ingest──┐
+//!  Modbus task per device ───┴──> writer task ──> store (SQLite)
+//!     ^                             │  └──> live trackers (pure analysis core) ──> episodes,
+//!     └─────Outbound (to MQTT)──────┘       models, alerts, gaps
 //! ```
 //!
-//! Shutdown: `stop` turns true → the MQTT task stops forwarding messages and drops its ingest
-//! sender → the writer commits what it holds, hands over the last acknowledgements and ends →
-//! the MQTT task sends them, disconnects and ends → the store is closed. Messages that arrived
-//! after the stop are not acknowledged, so the broker redelivers them to the next run.
+//! Shutdown: `stop` turns true → the MQTT task stops forwarding messages and the Modbus tasks
+//! stop polling; each drops its ingest sender → the writer commits what it holds, hands over the
+//! last acknowledgements and ends → the MQTT task sends them, disconnects and ends → the store
+//! is closed. Messages that arrived after the stop are not acknowledged, so the broker
+//! redelivers them to the next run.
 
+pub mod modbus;
 pub mod mqtt;
 pub mod writer;
 
@@ -27,6 +30,15 @@ use std::sync::atomic::AtomicU64;
 use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, watch};
 
+/// The time polled samples are stamped with, in milliseconds since the Unix epoch. The system
+/// clock in operation; a simulated clock in the demo.
+pub type Clock = Arc<dyn Fn() -> i64 + Send + Sync>;
+
+/// The system clock.
+pub fn system_clock() -> Clock {
+    Arc::new(|| jiff::Timestamp::now().as_millisecond())
+}
+
 /// Messages from the sources to the writer.
 #[derive(Debug)]
 pub enum Ingest {
@@ -40,6 +52,12 @@ pub enum Ingest {
         reason: &'static str,
         source: String,
         detail: String,
+    },
+    /// A source failed to deliver (a device that did not answer, answered with an exception, or
+    /// could not be reached), for the counters only: the source logs it itself.
+    Failure {
+        reason: &'static str,
+        source: String,
     },
 }
 
@@ -92,6 +110,7 @@ impl RateLimitedLog {
 pub struct Daemon {
     store: Store,
     mqtt: Option<mqtt::MqttParams>,
+    devices: Vec<modbus::DeviceParams>,
     loops: HashMap<Arc<str>, writer::LoopRuntime>,
     settings: writer::WriterSettings,
     committed: Arc<AtomicU64>,
@@ -108,6 +127,7 @@ impl Daemon {
             Some(m) => Some(resolve_mqtt(config, m)?),
             None => None,
         };
+        let devices = modbus::DeviceParams::from_config(config, &system_clock())?;
         let mut loops = HashMap::new();
         for (tag, l) in config.loops.iter().filter(|(_, l)| l.is_watched()) {
             let setup: LoopSetup = l
@@ -129,10 +149,19 @@ impl Daemon {
         Ok(Daemon {
             store,
             mqtt,
+            devices,
             loops,
             settings,
             committed: Arc::new(AtomicU64::new(0)),
         })
+    }
+
+    /// Stamps polled samples with `clock` instead of the system clock.
+    pub fn with_clock(mut self, clock: Clock) -> Daemon {
+        for d in &mut self.devices {
+            d.clock = clock.clone();
+        }
+        self
     }
 
     pub fn store(&self) -> &Store {
@@ -159,13 +188,15 @@ impl Daemon {
             self.committed,
         );
         let writer = tokio::spawn(writer.run(ingest_rx));
-        let source = match self.mqtt {
-            Some(params) => Some(tokio::spawn(mqtt::run(params, ingest_tx, out_rx, stop_rx))),
-            None => {
-                drop(ingest_tx);
-                None
-            }
-        };
+        let pollers: Vec<_> = self
+            .devices
+            .into_iter()
+            .map(|d| tokio::spawn(modbus::run(d, ingest_tx.clone(), stop_rx.clone())))
+            .collect();
+        // Each source holds a sender; the writer ends once they all have stopped.
+        let source = self
+            .mqtt
+            .map(|params| tokio::spawn(mqtt::run(params, ingest_tx, out_rx, stop_rx)));
         tracing::info!(store = %store.path().display(), "headroom is running");
         let mut writer = writer;
         let early = tokio::select! {
@@ -187,6 +218,9 @@ impl Daemon {
         if let Some(s) = source {
             s.await.context("the MQTT task failed")?;
         }
+        for p in pollers {
+            p.await.context("a Modbus poll task failed")?;
+        }
         store.close().await;
         let counters = outcome.with_context(|| {
             format!("the store at {} cannot be written", store.path().display())
@@ -207,13 +241,20 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
     let setup = rt.tracker.setup().clone();
     let look_back_ms =
         (1.25 * setup.options.horizon_factor * setup.spec.settle_within_s * 1000.0) as i64;
-    let newest = store
+    let overview = store
         .loops_overview()
         .await?
         .into_iter()
-        .find(|r| r.loop_tag == tag)
-        .and_then(|r| r.last_sample_ms.get(&Signal::Pv).copied());
-    let Some(newest) = newest else { return Ok(()) };
+        .find(|r| r.loop_tag == tag);
+    let Some(overview) = overview else {
+        return Ok(());
+    };
+    for (&signal, &ts) in &overview.last_sample_ms {
+        rt.resumed_from(signal, ts);
+    }
+    let Some(&newest) = overview.last_sample_ms.get(&Signal::Pv) else {
+        return Ok(());
+    };
     let from = newest - look_back_ms;
     let (rows, _) = stored_rows(store, tag, from, newest).await?;
     let final_until = store

@@ -9,7 +9,7 @@ use crate::analysis::assess::EpisodeResult;
 use crate::analysis::live::{Aligner, LiveEvent, LoopTracker, Row};
 use crate::analysis::{LoopSetup, Model};
 use crate::sample::{Sample, Signal};
-use crate::store::{self, AlertInput, Store};
+use crate::store::{self, AlertInput, GapRow, Store};
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Arc;
 use std::sync::atomic::AtomicU64;
@@ -39,6 +39,12 @@ pub struct LoopRuntime {
     pub expected_period_s: f64,
     pub stale_after_periods: f64,
     last_seen_ms: HashMap<Signal, i64>,
+    /// The newest stored sample of each signal from before a restart, so that the silence
+    /// across the restart is recorded as a gap.
+    resumed_ms: HashMap<Signal, i64>,
+    /// A silence longer than this between two samples of a signal is recorded as a gap: the
+    /// same limit the analysis cuts episode windows at.
+    gap_after_ms: i64,
     stale: Vec<Signal>,
 }
 
@@ -52,6 +58,7 @@ impl LoopRuntime {
         let uses_mode = expected.contains(&Signal::Mode);
         // A signal that has gone quiet holds rows back for at most a few periods.
         let patience = 5.0 * expected_period_s;
+        let gap_after_ms = (setup.options.max_gap_for(expected_period_s) * 1000.0) as i64;
         LoopRuntime {
             tracker: LoopTracker::new(setup),
             aligner: Aligner::new(uses_mode, patience),
@@ -59,8 +66,15 @@ impl LoopRuntime {
             expected_period_s,
             stale_after_periods,
             last_seen_ms: HashMap::new(),
+            resumed_ms: HashMap::new(),
+            gap_after_ms,
             stale: Vec::new(),
         }
+    }
+
+    /// Tells the runtime the newest stored sample of a signal from before a restart.
+    pub fn resumed_from(&mut self, signal: Signal, ts_ms: i64) {
+        self.resumed_ms.insert(signal, ts_ms);
     }
 }
 
@@ -177,6 +191,10 @@ impl Writer {
                     Some(Ingest::Rejected { reason, source, detail }) => {
                         self.reject(reason, source, detail);
                     }
+                    Some(Ingest::Failure { reason, source }) => {
+                        *self.counters.rejected.entry(reason).or_default() += 1;
+                        *self.rejections.entry((reason, source)).or_default() += 1;
+                    }
                     None => break,
                 },
                 _ = sleep_until(deadline), if deadline.is_some() => {
@@ -274,17 +292,45 @@ impl Writer {
     /// Feeds committed samples to the trackers and stores what they find.
     async fn analyse(&mut self, samples: &[Sample]) {
         let mut touched: Vec<Arc<str>> = Vec::new();
+        let mut gaps: Vec<GapRow> = Vec::new();
         for s in samples {
             self.clock.saw(s.ts_ms);
             let Some(rt) = self.loops.get_mut(&s.loop_tag) else {
                 continue;
             };
+            let before = rt
+                .last_seen_ms
+                .get(&s.signal)
+                .or_else(|| rt.resumed_ms.get(&s.signal))
+                .copied();
+            if let Some(before) = before
+                && s.ts_ms - before > rt.gap_after_ms
+            {
+                gaps.push(GapRow {
+                    loop_tag: s.loop_tag.to_string(),
+                    signal: s.signal,
+                    from_ms: before,
+                    to_ms: s.ts_ms,
+                });
+            }
             let seen = rt.last_seen_ms.entry(s.signal).or_insert(s.ts_ms);
             *seen = (*seen).max(s.ts_ms);
             rt.aligner.push(s.signal, s.ts_ms as f64 / 1000.0, s.value);
             if !touched.contains(&s.loop_tag) {
                 touched.push(s.loop_tag.clone());
             }
+        }
+        for g in &gaps {
+            tracing::warn!(
+                loop_tag = %g.loop_tag,
+                signal = %g.signal,
+                from = %rfc3339(g.from_ms),
+                to = %rfc3339(g.to_ms),
+                "data gap: no sample of this signal in between; episodes across it are inconclusive"
+            );
+        }
+        if let Err(e) = self.store.record_gaps(&gaps).await {
+            tracing::warn!(error = %e, "could not record data gaps");
         }
         let mut found: Vec<(Arc<str>, LiveEvent)> = Vec::new();
         // The analysis is CPU work: let the runtime move other tasks off this thread meanwhile.

@@ -58,7 +58,7 @@ impl RegisterMap {
         }
     }
 
-    fn words_mut(&mut self, table: Table) -> Option<&mut Vec<u16>> {
+    pub(crate) fn words_mut(&mut self, table: Table) -> Option<&mut Vec<u16>> {
         match table {
             Table::InputRegisters => Some(&mut self.input_registers),
             Table::HoldingRegisters => Some(&mut self.holding_registers),
@@ -66,7 +66,7 @@ impl RegisterMap {
         }
     }
 
-    fn bits_mut(&mut self, table: Table) -> Option<&mut Vec<bool>> {
+    pub(crate) fn bits_mut(&mut self, table: Table) -> Option<&mut Vec<bool>> {
         match table {
             Table::Coils => Some(&mut self.coils),
             Table::DiscreteInputs => Some(&mut self.discrete_inputs),

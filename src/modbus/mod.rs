@@ -7,8 +7,11 @@
 //!   its API.
 //! - [`device`]: a simulated device (a tokio-modbus server on 127.0.0.1) that records every
 //!   function code it receives and can stall, drop the connection or answer with exceptions.
+//! - [`simloop`]: a simulated loop (process, PI controller, saturating actuator) served from a
+//!   device's registers on accelerated time.
 
 pub mod device;
 pub mod plan;
 pub mod poll;
 pub mod registers;
+pub mod simloop;

@@ -21,11 +21,13 @@
 mod alerts;
 mod episodes;
 mod error;
+mod gaps;
 mod samples;
 
 pub use alerts::{AlertInput, AlertRow, AlertState, RejectionRow};
 pub use episodes::{EpisodeRow, LoopRow, ModelRow};
 pub use error::{Error, Result};
+pub use gaps::GapRow;
 pub use samples::InsertOutcome;
 
 use crate::sample::Signal;

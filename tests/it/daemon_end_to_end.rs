@@ -6,8 +6,8 @@
 use crate::broker::{BrokerOptions, Mosquitto};
 use crate::clients::{PublishOptions, Spy, SpyOptions, publish};
 use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, headroom, open_store,
-    sample_count, stored_keys, unique,
+    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, assert_live_matches_offline,
+    episode_line, eventually, headroom, open_store, sample_count, stored_keys, unique,
 };
 use crate::plant::{messages, recent_past_ms, vessel};
 use serde_json::Value;
@@ -111,57 +111,13 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     let live: Vec<Value> =
         serde_json::from_str(&headroom(["episodes", "--db", path(&db), "--json"]).await)
             .expect("episodes --json is JSON");
-    let csv = ws.path().join("export.csv");
-    std::fs::write(
-        &csv,
-        headroom(["export", "--db", path(&db), "--loop", TAG]).await,
-    )
-    .expect("write the export");
-    let offline: Value = serde_json::from_str(
-        &headroom([
-            "analyze",
-            path(&csv),
-            "--config",
-            path(&config),
-            "--loop",
-            TAG,
-            "--json",
-        ])
-        .await,
-    )
-    .expect("analyze --json is JSON");
-    let offline_eps = offline["episodes"].as_array().expect("offline episodes");
     let finals: Vec<&Value> = live.iter().filter(|e| e["final"] == true).collect();
-    let summary = |e: &Value| {
-        format!(
-            "{} {}→{} {} settled {}",
-            e["start_time"], e["sp_from"], e["sp_to"], e["verdict"], e["settling_time_s"]
-        )
-    };
-    let live_list: Vec<String> = live.iter().map(summary).collect();
-    let offline_list: Vec<String> = offline_eps.iter().map(summary).collect();
+    let live_list: Vec<String> = live.iter().map(episode_line).collect();
     assert!(
         finals.len() >= 3,
         "the first three setpoint changes are final; live: {live_list:#?}"
     );
-    for l in &finals {
-        let at = ms(&l["start_time"]);
-        let o = offline_eps
-            .iter()
-            .find(|o| ms(&o["start_time"]) == at)
-            .unwrap_or_else(|| {
-                panic!(
-                    "offline has no episode at {}; live: {live_list:#?}, offline: {offline_list:#?}",
-                    l["start_time"]
-                )
-            });
-        assert_eq!(l["verdict"], o["verdict"], "verdict of {}", summary(l));
-        assert_eq!((&l["sp_from"], &l["sp_to"]), (&o["sp_from"], &o["sp_to"]));
-        match (l["settling_time_s"].as_f64(), o["settling_time_s"].as_f64()) {
-            (Some(a), Some(b)) => assert!((a - b).abs() < 1e-6, "settling {a} vs {b}"),
-            (a, b) => assert_eq!(a, b, "settling time of {}", summary(l)),
-        }
-    }
+    assert_live_matches_offline(&ws, &db, &config, TAG, &finals).await;
     let missed: Vec<&Value> = finals
         .iter()
         .copied()
@@ -173,7 +129,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
         miss["verdict"],
         "unreachable",
         "75 °C is beyond the 68 °C the open valve can reach: {}",
-        summary(miss)
+        episode_line(miss)
     );
     assert!(miss["settling_time_s"].is_null());
 
@@ -253,11 +209,4 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
 
 fn path(p: &std::path::Path) -> &str {
     p.to_str().expect("UTF-8 temp path")
-}
-
-/// An RFC 3339 time from JSON as epoch milliseconds.
-fn ms(v: &Value) -> i64 {
-    let s = v.as_str().unwrap_or_else(|| panic!("not a time: {v}"));
-    let t: jiff::Timestamp = s.parse().unwrap_or_else(|e| panic!("{s}: {e}"));
-    (t.as_nanosecond() as f64 / 1e6).round() as i64
 }

@@ -434,3 +434,85 @@ where
     );
     String::from_utf8(out.stdout).expect("UTF-8 output")
 }
+
+/// One episode of `episodes --json` or `analyze --json` in a line, for messages.
+pub fn episode_line(e: &serde_json::Value) -> String {
+    format!(
+        "{} {}→{} {} settled {}",
+        e["start_time"], e["sp_from"], e["sp_to"], e["verdict"], e["settling_time_s"]
+    )
+}
+
+/// The final episodes the store holds for a loop (`episodes --json`); `Err` while it cannot be
+/// read yet.
+pub async fn final_episodes(db: &Path, tag: &str) -> Result<Vec<serde_json::Value>, String> {
+    let db = db.to_str().ok_or("the store path is not UTF-8")?;
+    let out = Command::new(headroom_bin())
+        .args(["episodes", "--db", db, "--loop", tag, "--json"])
+        .output()
+        .await
+        .map_err(|e| e.to_string())?;
+    if !out.status.success() {
+        return Err(String::from_utf8_lossy(&out.stderr).into_owned());
+    }
+    let all: Vec<serde_json::Value> =
+        serde_json::from_slice(&out.stdout).map_err(|e| e.to_string())?;
+    Ok(all.into_iter().filter(|e| e["final"] == true).collect())
+}
+
+/// Exports a loop from the store, analyses the export offline with `config`, and checks that
+/// every live episode in `live` has an offline twin at the same time with the same verdict,
+/// setpoint move and settling time.
+pub async fn assert_live_matches_offline(
+    ws: &Workspace,
+    db: &Path,
+    config: &Path,
+    tag: &str,
+    live: &[&serde_json::Value],
+) {
+    let text = |p: &Path| p.to_str().expect("UTF-8 temp path").to_owned();
+    let csv = ws.path().join(format!("{tag}-export.csv"));
+    std::fs::write(
+        &csv,
+        headroom(["export", "--db", &text(db), "--loop", tag]).await,
+    )
+    .expect("write the export");
+    let offline: serde_json::Value = serde_json::from_str(
+        &headroom([
+            "analyze",
+            &text(&csv),
+            "--config",
+            &text(config),
+            "--loop",
+            tag,
+            "--json",
+        ])
+        .await,
+    )
+    .expect("analyze --json is JSON");
+    let offline = offline["episodes"].as_array().expect("offline episodes");
+    let ms = |v: &serde_json::Value| {
+        let s = v.as_str().unwrap_or_else(|| panic!("not a time: {v}"));
+        let t: jiff::Timestamp = s.parse().unwrap_or_else(|e| panic!("{s}: {e}"));
+        (t.as_nanosecond() as f64 / 1e6).round() as i64
+    };
+    let offline_list: Vec<String> = offline.iter().map(episode_line).collect();
+    for l in live {
+        let at = ms(&l["start_time"]);
+        let o = offline
+            .iter()
+            .find(|o| ms(&o["start_time"]) == at)
+            .unwrap_or_else(|| {
+                panic!(
+                    "offline has no episode at {}; offline: {offline_list:#?}",
+                    l["start_time"]
+                )
+            });
+        assert_eq!(l["verdict"], o["verdict"], "verdict of {}", episode_line(l));
+        assert_eq!((&l["sp_from"], &l["sp_to"]), (&o["sp_from"], &o["sp_to"]));
+        match (l["settling_time_s"].as_f64(), o["settling_time_s"].as_f64()) {
+            (Some(a), Some(b)) => assert!((a - b).abs() < 1e-6, "settling {a} vs {b}"),
+            (a, b) => assert_eq!(a, b, "settling time of {}", episode_line(l)),
+        }
+    }
+}

@@ -20,6 +20,7 @@ mod daemon_config_change;
 mod daemon_credentials;
 mod daemon_end_to_end;
 mod daemon_malformed;
+mod daemon_modbus;
 mod daemon_overload;
 mod daemon_shutdown;
 mod daemon_sigkill;
