@@ -12,8 +12,10 @@
 //! clock, so it ends just before now. Sample time stamps are the plant's (the daemon takes time
 //! from the data), and every stamp lies in the past, as the daemon requires of live data.
 //!
-//! Pacing: every `TICK` the plant advances by `speed` × the wall time since the last tick. Its
-//! samples are published in batches (one JSON array per signal every `PUBLISH_EVERY`, at most
+//! Pacing: every tick (`MODBUS_PERIOD_S` of plant time, 2.5 ms at 6000×) the plant advances by
+//! `speed` × the wall time since the last tick and writes its Modbus loops' values into the
+//! simulated device, which the daemon polls at the same rate. Its MQTT loops' samples are
+//! published in batches (one JSON array per signal every `PUBLISH_EVERY`, at most
 //! `MAX_BATCH` samples), so the message rate stays modest whatever the speed. When the daemon
 //! falls behind by more than `MAX_LAG_SAMPLES`, the plant waits: simulated time is not wall time,
 //! and letting a backlog pile up in the broker would only make the end slower.
@@ -26,6 +28,7 @@
 #[cfg(feature = "demo-broker")]
 pub mod broker;
 pub mod plant;
+pub mod registers;
 pub mod summary;
 
 use crate::cli::UsageError;
@@ -34,8 +37,9 @@ use std::time::Duration;
 
 /// The default acceleration: a simulated week in under two minutes.
 pub const DEFAULT_SPEED: f64 = 6_000.0;
-/// The plant advances this often (wall time).
-const TICK: Duration = Duration::from_millis(10);
+/// The Modbus loops' sample period in plant time: the demo polls their controller, and the plant
+/// advances, once per this much plant time.
+pub const MODBUS_PERIOD_S: f64 = 15.0;
 /// Buffered samples are published this often (wall time).
 const PUBLISH_EVERY: Duration = Duration::from_millis(50);
 /// At most this many samples per MQTT message (a few kilobytes of JSON, far below the daemon's

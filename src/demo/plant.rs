@@ -84,7 +84,10 @@ pub struct LoopDef {
     pub area: &'static str,
     pub link: Link,
     pub intent: Intent,
-    /// How often the controller reports SP, PV and OP (simulated seconds).
+    /// How often the controller reports SP, PV and OP (simulated seconds). The Modbus loops are
+    /// slow thermal loops reported every 15 s: the demo polls their controller once per 15 s of
+    /// plant time, which at 6000× is every 2.5 ms of wall time already; a finer period would
+    /// only load the machine, and their time constants of 25 minutes do not need it.
     pub sample_period_s: f64,
     pub settle_band_pct: f64,
     pub settle_within_s: f64,
@@ -229,7 +232,7 @@ fn cook_kettle() -> LoopDef {
         description: "Cook kettle K-120 temperature; 12 kW electric heater EH-120 (thyristor)",
         pv_unit: "°C",
         area: "cook",
-        link: Link::Mqtt,
+        link: Link::Modbus,
         intent: Intent::ActuatorBound,
         sample_period_s: 15.0,
         settle_band_pct: 2.0,
@@ -276,7 +279,7 @@ fn hot_water_tank() -> LoopDef {
         description: "Hot-water tank T-130 temperature; steam valve TV-130",
         pv_unit: "°C",
         area: "utilities",
-        link: Link::Mqtt,
+        link: Link::Modbus,
         intent: Intent::SluggishTuning,
         sample_period_s: 15.0,
         settle_band_pct: 2.0,
@@ -391,7 +394,8 @@ fn buffer_tank_level() -> LoopDef {
     }
 }
 
-/// A loop's setpoint changes over a day: (hour of the plant day, new setpoint).
+/// A loop's setpoint changes over a day: (hour of the day, counted from the start of the run,
+/// new setpoint).
 fn daily_setpoints(tag: &str) -> &'static [(f64, f64)] {
     match tag {
         // The feed rate follows the production plan, a change every two to three hours.
@@ -460,13 +464,14 @@ fn daily_setpoints(tag: &str) -> &'static [(f64, f64)] {
     }
 }
 
-/// On the first day, a trial recipe asks the kettle for 88 °C: more than the heater can hold
-/// with the product flowing through (it tops out near 87 °C), so the PV can never settle there.
-/// It replaces the 12:00 step to 74 °C and lasts until the 14:30 step.
+/// On the first day (hours here count from the start of the run), a trial recipe asks the
+/// kettle for 88 °C: more than the heater can hold with the product flowing through (it tops
+/// out near 87 °C), so the PV can never settle there. It replaces the 12 h step to 74 °C and
+/// lasts until the 14.5 h step.
 const TRIAL_STEP: (f64, f64) = (12.0, 88.0);
 
-/// On the first night, LT-150's signal is lost from 19:30 to 03:30 (a loose connector, found by
-/// the morning shift).
+/// From 19.5 h to 27.5 h after the start, LT-150's signal is lost (a loose connector, found by
+/// the next shift).
 const DROPOUT: (f64, f64) = (19.5 * HOUR_S, 27.5 * HOUR_S);
 
 /// A loop's setpoint schedule over `duration_s`: (time s, setpoint), in time order. Each day's

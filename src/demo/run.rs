@@ -2,13 +2,15 @@
 //! module docs of `demo`).
 
 use super::plant::{Link, LoopDef, Plant, Reading};
+use super::registers::{self, Register};
 use super::{
-    CONFIG_FILE, DemoArgs, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL, PUBLISH_EVERY,
-    STALE_AFTER_S, STORE_FILE, TICK, broker, summary,
+    CONFIG_FILE, DemoArgs, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL, MODBUS_PERIOD_S,
+    PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
 };
 use crate::cli::UsageError;
 use crate::config::Config;
-use crate::daemon::Daemon;
+use crate::daemon::{Clock, Daemon};
+use crate::modbus::device::{RegisterMap, SimDevice};
 use crate::store::Store;
 use anyhow::Context;
 use rumqttc::{AsyncClient, EventLoop, MqttOptions, QoS};
@@ -74,8 +76,9 @@ fn topic(def: &LoopDef, signal: &str) -> String {
     format!("{TOPIC_ROOT}/{}/{}/{signal}", def.area, def.tag)
 }
 
-/// The daemon's configuration for the plant, as a TOML file a user can read and reuse.
-pub fn config_text(defs: &[LoopDef], mqtt_port: u16) -> String {
+/// The daemon's configuration for the plant, as a TOML file a user can read and reuse. `speed`
+/// sets the Modbus poll period: once per `MODBUS_PERIOD_S` of plant time.
+pub fn config_text(defs: &[LoopDef], mqtt_port: u16, modbus_port: u16, speed: f64) -> String {
     let mut t = String::new();
     let _ = writeln!(
         t,
@@ -89,7 +92,16 @@ pub fn config_text(defs: &[LoopDef], mqtt_port: u16) -> String {
          url = \"mqtt://127.0.0.1:{mqtt_port}\"\n\
          client_id = \"headroom-demo\"\n\
          alert_topic = \"headroom/heronreach/alerts\"\n\
-         status_topic = \"headroom/heronreach/status\""
+         status_topic = \"headroom/heronreach/status\"\n\n\
+         [modbus.{device}]\n\
+         # The cook area's controller, simulated by the demo: TIC-120 and TIC-130.\n\
+         address = \"127.0.0.1:{modbus_port}\"\n\
+         unit_id = 1\n\
+         # Once per {MODBUS_PERIOD_S} s of plant time, which runs {speed}× as fast as the wall clock.\n\
+         poll_period_s = {poll:?}\n\
+         timeout_s = 1.0",
+        device = registers::DEVICE,
+        poll = MODBUS_PERIOD_S / speed,
     );
     for d in defs {
         let _ = writeln!(
@@ -97,8 +109,7 @@ pub fn config_text(defs: &[LoopDef], mqtt_port: u16) -> String {
             "\n[loops.{tag}]\ndescription = \"{desc}\"\npv_unit = \"{unit}\"\n\
              op_min = {op_min:?}\nop_max = {op_max:?}\nexpected_period_s = {period:?}\n\
              # {STALE_AFTER_S} s of plant time: see `demo::STALE_AFTER_S`.\n\
-             stale_after_periods = {stale:?}\n\n[loops.{tag}.spec]\n\
-             settle_band_pct = {band:?}\nsettle_within_s = {within:?}",
+             stale_after_periods = {stale:?}",
             tag = d.tag,
             desc = d.description,
             unit = d.pv_unit,
@@ -106,27 +117,45 @@ pub fn config_text(defs: &[LoopDef], mqtt_port: u16) -> String {
             op_max = d.op_max(),
             period = d.sample_period_s,
             stale = (STALE_AFTER_S / d.sample_period_s).ceil(),
-            band = d.settle_band_pct,
-            within = d.settle_within_s,
+        );
+        let layout = registers::layout(d.tag).filter(|_| d.link == Link::Modbus);
+        if let Some(layout) = &layout {
+            let _ = writeln!(
+                t,
+                "{}\n\
+                 # A poll that runs late by a few wall-clock milliseconds is minutes of plant time;\n\
+                 # a gap only counts when it is longer than 40 periods.\n\
+                 analysis = {{ max_gap_s = 600.0 }}",
+                layout_sources(layout),
+            );
+        } else {
+            for s in ["sp", "pv", "op"] {
+                let _ = writeln!(
+                    t,
+                    "{s} = {{ topic = \"{}\", format = \"json\", value_field = \"v\", time_field = \"t\" }}",
+                    topic(d, s)
+                );
+            }
+        }
+        let _ = write!(
+            t,
+            "\n[loops.{}.spec]\nsettle_band_pct = {:?}\nsettle_within_s = {:?}\n",
+            d.tag, d.settle_band_pct, d.settle_within_s
         );
         if let Some(o) = d.max_overshoot_pct {
             let _ = writeln!(t, "max_overshoot_pct = {o:?}");
         }
-        match d.link {
-            Link::Mqtt | Link::Modbus => {
-                for s in ["sp", "pv", "op"] {
-                    let _ = writeln!(
-                        t,
-                        "\n[loops.{}.{s}]\ntopic = \"{}\"\nformat = \"json\"\n\
-                         value_field = \"v\"\ntime_field = \"t\"",
-                        d.tag,
-                        topic(d, s)
-                    );
-                }
-            }
-        }
     }
     t
+}
+
+fn layout_sources(layout: &[Register; 3]) -> String {
+    ["sp", "pv", "op"]
+        .iter()
+        .zip(layout)
+        .map(|(s, r)| format!("{s} = {}", r.toml()))
+        .collect::<Vec<_>>()
+        .join("\n")
 }
 
 /// Samples waiting to be published, per loop and signal.
@@ -193,6 +222,112 @@ struct Shared {
     published: AtomicU64,
 }
 
+/// A running daemon and how to stop it.
+struct RunningDaemon {
+    config: Config,
+    committed: Arc<AtomicU64>,
+    stop: oneshot::Sender<()>,
+    task: tokio::task::JoinHandle<anyhow::Result<()>>,
+}
+
+impl RunningDaemon {
+    /// Writes the configuration for `speed`, builds the daemon (which resumes each loop from the
+    /// store, as after any restart) and runs it with the plant's clock for polled samples.
+    async fn start(
+        files: &Files,
+        defs: &[LoopDef],
+        ports: (u16, u16),
+        speed: f64,
+        clock: Clock,
+    ) -> anyhow::Result<RunningDaemon> {
+        std::fs::write(&files.config, config_text(defs, ports.0, ports.1, speed))
+            .with_context(|| format!("cannot write {}", files.config.display()))?;
+        let config = Config::load(&files.config)
+            .with_context(|| format!("the demo's configuration {}", files.config.display()))?;
+        let daemon = Daemon::build(&config, &files.config)
+            .await?
+            .with_clock(clock);
+        let committed = daemon.committed();
+        let (stop, stopped) = oneshot::channel::<()>();
+        let task = tokio::spawn(daemon.run(async {
+            let _ = stopped.await;
+        }));
+        Ok(RunningDaemon {
+            config,
+            committed,
+            stop,
+            task,
+        })
+    }
+
+    /// Stops it through its own shutdown path: it commits what has arrived and closes the store.
+    async fn stop(self) -> anyhow::Result<()> {
+        let _ = self.stop.send(());
+        match self.task.await {
+            Ok(r) => r.context("the daemon failed"),
+            Err(e) => Err(anyhow::anyhow!("the daemon task failed: {e}")),
+        }
+    }
+}
+
+/// The plant and where its values go.
+struct PlantSide {
+    plant: Plant,
+    defs: Vec<LoopDef>,
+    outbox: Outbox,
+    device: SimDevice,
+    /// Register layouts of the Modbus loops, by loop index.
+    layouts: Vec<Option<[Register; 3]>>,
+    shared: Arc<Shared>,
+    start_ms: i64,
+    publish_tx: mpsc::Sender<(String, Vec<u8>)>,
+}
+
+impl PlantSide {
+    /// Advances the plant to `t_s`, queues the MQTT loops' samples, and writes the Modbus loops'
+    /// current values into the device together with the clock, under the device's lock. A poll
+    /// then sees values and a clock of the same moment — or, when the plant moves on between
+    /// the poller reading the clock and reading the registers, values one tick newer than their
+    /// stamp, as a real poller's jitter would give.
+    fn advance(&mut self, t_s: f64) {
+        let outbox = &mut self.outbox;
+        let defs = &self.defs;
+        self.plant.advance_to(t_s, &mut |i, r| {
+            if defs[i].link == Link::Mqtt {
+                outbox.push(i, r);
+            }
+        });
+        let now_ms = self.start_ms + (self.plant.time_s() * 1000.0) as i64;
+        let plant = &self.plant;
+        let layouts = &self.layouts;
+        let shared = &self.shared;
+        self.device.with_map(|map| {
+            for (i, layout) in layouts.iter().enumerate() {
+                let Some(layout) = layout else { continue };
+                let r = plant.current(i);
+                for (reg, v) in layout.iter().zip([Some(r.sp), r.pv, Some(r.op)]) {
+                    if let Some(v) = v {
+                        reg.write(map, v);
+                    }
+                }
+            }
+            shared.clock_ms.store(now_ms, Ordering::Relaxed);
+        });
+    }
+
+    /// Publishes everything queued, counting the samples.
+    async fn publish(&mut self) -> anyhow::Result<()> {
+        for (topic, payload, n) in self.outbox.drain(&self.defs) {
+            self.publish_tx
+                .send((topic, payload))
+                .await
+                .context("the demo's MQTT publisher stopped")?;
+            self.shared.published.fetch_add(n, Ordering::Relaxed);
+        }
+        Ok(())
+    }
+}
+
 /// `headroom demo`.
 pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
     let duration_s = args.duration_s()?;
@@ -205,7 +340,16 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         broker::BrokerError::PortInUse { .. } => anyhow::Error::new(UsageError(e.to_string())),
         e => anyhow::Error::new(e),
     })?;
-    let mqtt_port = broker.addr.port();
+    let device = SimDevice::start(args.modbus_port, RegisterMap::new(registers::MAP_LEN))
+        .await
+        .map_err(|e| {
+            UsageError(format!(
+                "cannot start the simulated Modbus device on 127.0.0.1:{}: {e}; choose another \
+                 port with --modbus-port, or 0 for any free port",
+                args.modbus_port
+            ))
+        })?;
+    let ports = (broker.addr.port(), device.addr().port());
 
     // Schedules run on past the demo's end when it keeps running, so the plant stays lively.
     let horizon_s = if args.keep_running {
@@ -213,43 +357,62 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
     } else {
         duration_s
     };
-    let mut plant = Plant::new(horizon_s);
+    let plant = Plant::new(horizon_s);
     let defs: Vec<LoopDef> = plant.defs().to_vec();
-    std::fs::write(&files.config, config_text(&defs, mqtt_port))
-        .with_context(|| format!("cannot write {}", files.config.display()))?;
-    let config = Config::load(&files.config)
-        .with_context(|| format!("the demo's configuration {}", files.config.display()))?;
-    let daemon = Daemon::build(&config, &files.config).await?;
-    let committed = daemon.committed();
-    let (stop_daemon, daemon_stop) = oneshot::channel::<()>();
-    let mut daemon_task = tokio::spawn(daemon.run(async {
-        let _ = daemon_stop.await;
-    }));
-    let reader = Store::open_read_only(&files.store)
-        .await
-        .context("cannot open the demo's store for reading")?;
-
     let now_ms = jiff::Timestamp::now().as_millisecond();
     // Whole seconds, so the plant's sample stamps are round.
     let start_ms = (now_ms - (duration_s * 1000.0) as i64).div_euclid(1000) * 1000;
     let shared = Arc::new(Shared::default());
     shared.clock_ms.store(start_ms, Ordering::Relaxed);
+    let clock: Clock = {
+        let shared = shared.clone();
+        Arc::new(move || shared.clock_ms.load(Ordering::Relaxed))
+    };
 
-    let (publish_tx, stop_publisher) = start_publisher(mqtt_port);
+    let mut daemon = RunningDaemon::start(&files, &defs, ports, speed, clock.clone()).await?;
+    let committed = daemon.committed.clone();
+    let reader = Store::open_read_only(&files.store)
+        .await
+        .context("cannot open the demo's store for reading")?;
+    let (publish_tx, stop_publisher) = start_publisher(ports.0);
+    let mut side = PlantSide {
+        layouts: defs
+            .iter()
+            .map(|d| registers::layout(d.tag).filter(|_| d.link == Link::Modbus))
+            .collect(),
+        outbox: Outbox::new(defs.len(), start_ms),
+        plant,
+        defs: defs.clone(),
+        device,
+        shared: shared.clone(),
+        start_ms,
+        publish_tx,
+    };
+
+    let via = |link: Link| {
+        defs.iter()
+            .filter(|d| d.link == link)
+            .map(|d| d.tag)
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
     writeln!(
         out,
         "Heron Reach pilot plant, simulated: {} loops, {:.1} days of plant time at {speed:.0}× real time.\n\
-         Embedded MQTT broker: mqtt://{} (the plant publishes on {TOPIC_ROOT}/#, headroom on headroom/#)\n\
-         headroom is watching; its store is {} and its log {}.",
+         MQTT broker (embedded):    mqtt://{}  {} publish on {TOPIC_ROOT}/#, headroom on headroom/#\n\
+         Modbus device (simulated): {}  {} in its registers\n\
+         headroom's store: {}   log: {}",
         defs.len(),
         duration_s / 86_400.0,
         broker.addr,
+        via(Link::Mqtt),
+        side.device.addr(),
+        via(Link::Modbus),
         files.store.display(),
         files.log.display()
     )?;
     out.flush()?;
     let wall_start = Instant::now();
-
     let progress = Progress::start(
         shared.clone(),
         committed.clone(),
@@ -260,19 +423,18 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
 
     let interrupt = crate::cli::shutdown_signal();
     tokio::pin!(interrupt);
-    let mut outbox = Outbox::new(defs.len(), start_ms);
     let mut interrupted = false;
 
-    // The first samples go out until the daemon has stored some: messages published before its
+    // The first samples go out until the daemon has stored them: messages published before its
     // subscription is in place are dropped by the broker, and inserts are idempotent, so sending
     // the same samples again is harmless.
-    plant.advance_to(0.0, &mut |i, r| outbox.push(i, r));
-    let first = outbox.drain(&defs);
+    side.advance(0.0);
+    let first = side.outbox.drain(&defs);
     let first_count: u64 = first.iter().map(|m| m.2).sum();
     let deadline = Instant::now() + FIRST_SAMPLES_TIMEOUT;
-    while committed.load(Ordering::Relaxed) == 0 {
+    while committed.load(Ordering::Relaxed) < first_count {
         for (t, p, _) in &first {
-            publish_tx
+            side.publish_tx
                 .send((t.clone(), p.clone()))
                 .await
                 .context("the demo's MQTT publisher stopped")?;
@@ -291,22 +453,25 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
     }
     shared.published.fetch_add(first_count, Ordering::Relaxed);
 
-    // The accelerated run.
+    // The accelerated run. One tick is one Modbus sample period of plant time (at least 1 ms,
+    // tokio's timer resolution), so each poll finds new values.
+    let tick_wall = Duration::from_secs_f64((MODBUS_PERIOD_S / speed).clamp(0.001, 0.05));
+    let max_step = MAX_TICK_WALL.max(2 * tick_wall);
     let mut sim_s = 0.0f64;
     let mut last = Instant::now();
     let mut last_publish = Instant::now();
-    let mut tick = tokio::time::interval(TICK);
+    let mut tick = tokio::time::interval(tick_wall);
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
-    while !interrupted && plant.time_s() < duration_s {
+    while !interrupted && side.plant.time_s() < duration_s {
         tokio::select! {
             _ = tick.tick() => {}
             _ = &mut interrupt => { interrupted = true; }
-            res = &mut daemon_task => {
+            res = &mut daemon.task => {
                 progress.stop().await;
                 return Err(daemon_ended(res));
             }
         }
-        let dt = last.elapsed().min(MAX_TICK_WALL);
+        let dt = last.elapsed().min(max_step);
         last = Instant::now();
         let lag = shared
             .published
@@ -315,52 +480,57 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         if lag < MAX_LAG_SAMPLES {
             sim_s = (sim_s + speed * dt.as_secs_f64()).min(duration_s);
         }
-        plant.advance_to(sim_s.floor(), &mut |i, r| outbox.push(i, r));
-        shared.clock_ms.store(
-            start_ms + (plant.time_s() * 1000.0) as i64,
-            Ordering::Relaxed,
-        );
-        if last_publish.elapsed() >= PUBLISH_EVERY || plant.time_s() >= duration_s {
+        side.advance(sim_s.floor());
+        if last_publish.elapsed() >= PUBLISH_EVERY || side.plant.time_s() >= duration_s {
             last_publish = Instant::now();
-            publish(&mut outbox, &defs, &publish_tx, &shared).await?;
+            side.publish().await?;
         }
     }
-    publish(&mut outbox, &defs, &publish_tx, &shared).await?;
+    side.publish().await?;
     let caught_up = wait_for_commits(&shared, &committed).await;
     let run_wall = wall_start.elapsed();
     progress.stop().await;
     if !caught_up {
         tracing::warn!("the daemon had not committed everything it was sent when the demo ended");
     }
+    let config = daemon.config.clone();
+    // The daemon closes the store last, so SQLite folds its write-ahead log back into the file.
+    reader.close().await;
+    daemon.stop().await?;
 
-    let write_summary = |out: &mut dyn Write, summaries: &[summary::LoopSummary]| {
-        summary::render(
-            summaries,
-            &summary::RunFacts {
-                simulated_s: plant_time(&shared, start_ms),
-                wall: run_wall,
-                speed,
-                interrupted,
-                files: summary::FilePaths {
-                    config: files.config.clone(),
-                    store: files.store.clone(),
-                    log: files.log.clone(),
-                },
+    let reader = Store::open_read_only(&files.store)
+        .await
+        .context("cannot open the demo's store for reading")?;
+    let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
+    summary::render(
+        &summaries,
+        &summary::RunFacts {
+            simulated_s: plant_time(&shared, start_ms),
+            wall: run_wall,
+            speed,
+            interrupted,
+            files: summary::FilePaths {
+                config: files.config.clone(),
+                store: files.store.clone(),
+                log: files.log.clone(),
             },
-            out,
-        )
-    };
+        },
+        out,
+    )?;
+    reader.close().await;
 
     if args.keep_running && !interrupted {
-        let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
-        write_summary(out, &summaries)?;
+        // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
+        let mut daemon = RunningDaemon::start(&files, &defs, ports, 1.0, clock).await?;
         writeln!(
             out,
-            "\nStill running in real time: the broker at mqtt://{addr}, the plant and the daemon. \
-             Watch with any MQTT client, e.g.\n  mosquitto_sub -h 127.0.0.1 -p {port} -t '{TOPIC_ROOT}/#' -t 'headroom/#' -v\n\
+            "\nStill running, now in real time: the plant, the broker at mqtt://{addr}, the Modbus \
+             device at {dev} and the daemon. Watch with any MQTT client, e.g.\n  \
+             mosquitto_sub -h 127.0.0.1 -p {port} -t '{TOPIC_ROOT}/#' -t 'headroom/#' -v\n\
              Ctrl-C stops.",
             addr = broker.addr,
-            port = mqtt_port,
+            dev = side.device.addr(),
+            port = ports.0,
         )?;
         out.flush()?;
         let mut tick = tokio::time::interval(Duration::from_millis(250));
@@ -369,33 +539,17 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
             tokio::select! {
                 _ = tick.tick() => {}
                 _ = &mut interrupt => break,
-                res = &mut daemon_task => return Err(daemon_ended(res)),
+                res = &mut daemon.task => return Err(daemon_ended(res)),
             }
             sim_s += last.elapsed().as_secs_f64();
             last = Instant::now();
-            plant.advance_to(sim_s.floor(), &mut |i, r| outbox.push(i, r));
-            shared.clock_ms.store(
-                start_ms + (plant.time_s() * 1000.0) as i64,
-                Ordering::Relaxed,
-            );
-            publish(&mut outbox, &defs, &publish_tx, &shared).await?;
+            side.advance(sim_s.floor());
+            side.publish().await?;
         }
+        daemon.stop().await?;
     }
-
-    // The daemon's own shutdown path: it commits what has arrived and closes the store.
-    let _ = stop_daemon.send(());
-    let daemon_result = daemon_task.await;
-    drop(publish_tx);
+    drop(side);
     stop_publisher.send_replace(true);
-    match daemon_result {
-        Ok(r) => r.context("the daemon failed")?,
-        Err(e) => return Err(anyhow::anyhow!("the daemon task failed: {e}")),
-    }
-    if !args.keep_running || interrupted {
-        let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
-        write_summary(out, &summaries)?;
-    }
-    reader.close().await;
     Ok(())
 }
 
@@ -409,22 +563,6 @@ fn daemon_ended(res: Result<anyhow::Result<()>, tokio::task::JoinError>) -> anyh
         Ok(Err(e)) => e.context("the daemon stopped"),
         Err(e) => anyhow::anyhow!("the daemon task failed: {e}"),
     }
-}
-
-/// Publishes everything pending, counting the samples.
-async fn publish(
-    outbox: &mut Outbox,
-    defs: &[LoopDef],
-    tx: &mpsc::Sender<(String, Vec<u8>)>,
-    shared: &Shared,
-) -> anyhow::Result<()> {
-    for (topic, payload, n) in outbox.drain(defs) {
-        tx.send((topic, payload))
-            .await
-            .context("the demo's MQTT publisher stopped")?;
-        shared.published.fetch_add(n, Ordering::Relaxed);
-    }
-    Ok(())
 }
 
 /// Waits until the daemon has committed at least what was published and its count holds still;
@@ -607,7 +745,7 @@ mod tests {
     #[test]
     fn the_written_configuration_is_valid_and_watches_every_loop() {
         let defs = super::super::plant::loops();
-        let text = config_text(&defs, 18_830);
+        let text = config_text(&defs, 18_830, 15_020, 6_000.0);
         let cfg = Config::parse(&text, Path::new("heronreach.toml")).expect("valid");
         assert_eq!(cfg.loops.len(), defs.len());
         assert!(cfg.loops.values().all(|l| l.is_watched()));

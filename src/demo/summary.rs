@@ -224,13 +224,13 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     writeln!(out)?;
     writeln!(
         out,
-        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<28} advice",
+        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} advice",
         "loop", "via", "changes", "met", "settling", "spec", "misses"
     )?;
     for l in loops {
         writeln!(
             out,
-            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<28} {}",
+            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} {}",
             l.tag,
             link_word(l.link),
             l.episodes.len(),
