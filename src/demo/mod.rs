@@ -41,10 +41,10 @@ pub const DEFAULT_SPEED: f64 = 6_000.0;
 /// advances, once per this much plant time.
 pub const MODBUS_PERIOD_S: f64 = 15.0;
 /// Buffered samples are published this often (wall time).
-const PUBLISH_EVERY: Duration = Duration::from_millis(50);
+pub const PUBLISH_EVERY: Duration = Duration::from_millis(50);
 /// At most this many samples per MQTT message (a few kilobytes of JSON, far below the daemon's
 /// 64 KiB payload limit).
-const MAX_BATCH: usize = 400;
+pub const MAX_BATCH: usize = 400;
 /// The plant waits while more samples than this are published but not yet committed: about
 /// 25 minutes of the plant's data, a quarter of a second of the daemon's work at 6000×. It
 /// keeps the daemon's view of every loop close to the plant's clock, which its stale-tag check
@@ -52,7 +52,7 @@ const MAX_BATCH: usize = 400;
 pub const MAX_LAG_SAMPLES: u64 = 10_000;
 /// The plant advances at most this much wall time's worth per tick, so a stalled tick (a busy
 /// machine) does not turn into one huge jump.
-const MAX_TICK_WALL: Duration = Duration::from_millis(100);
+pub const MAX_TICK_WALL: Duration = Duration::from_millis(100);
 /// A signal silent for this long (simulated) is stale. Samples reach the daemon's staleness check
 /// up to a few tenths of a second of wall time after their data time (batched publishing, commits
 /// every 100 ms, a check every second): at 6000× that is up to half an hour of plant time. Two

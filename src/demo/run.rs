@@ -3,6 +3,7 @@
 
 use super::plant::{Link, LoopDef, Plant, Reading};
 use super::registers::{self, Register};
+use super::summary::thousands;
 use super::{
     CONFIG_FILE, DemoArgs, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL, MODBUS_PERIOD_S,
     PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
@@ -716,19 +717,6 @@ fn status_line(frac: f64, clock_ms: i64, samples: u64, episodes: usize, alerts: 
     )
 }
 
-/// 1234567 → "1,234,567".
-pub fn thousands(n: u64) -> String {
-    let digits = n.to_string();
-    let mut out = String::new();
-    for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i).is_multiple_of(3) {
-            out.push(',');
-        }
-        out.push(c);
-    }
-    out
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -750,13 +738,5 @@ mod tests {
         assert_eq!(cfg.loops.len(), defs.len());
         assert!(cfg.loops.values().all(|l| l.is_watched()));
         assert_eq!(cfg.mqtt.as_ref().map(|m| m.port), Some(18_830));
-    }
-
-    #[test]
-    fn numbers_get_thousands_separators() {
-        assert_eq!(thousands(0), "0");
-        assert_eq!(thousands(999), "999");
-        assert_eq!(thousands(1_000), "1,000");
-        assert_eq!(thousands(1_234_567), "1,234,567");
     }
 }

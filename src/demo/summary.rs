@@ -4,7 +4,6 @@
 //! computed from the simulator's own knowledge of the plant.
 
 use super::plant::{Link, LoopDef};
-use super::run::thousands;
 use crate::analysis::assess::{Action, Recommendation, VerdictCounts, recommend};
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
@@ -303,4 +302,43 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
         facts.files.config.display()
     )?;
     Ok(())
+}
+
+/// 1234567 → "1,234,567".
+pub fn thousands(n: u64) -> String {
+    let digits = n.to_string();
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_get_thousands_separators() {
+        assert_eq!(thousands(0), "0");
+        assert_eq!(thousands(999), "999");
+        assert_eq!(thousands(1_000), "1,000");
+        assert_eq!(thousands(1_234_567), "1,234,567");
+    }
+
+    #[test]
+    fn misses_name_each_reason_with_its_count() {
+        let c = VerdictCounts {
+            met: 3,
+            tuning_limited: 1,
+            actuator_limited: 7,
+            unreachable: 1,
+            inconclusive: 0,
+        };
+        assert_eq!(misses(&c), "1 tuning, 7 actuator, 1 unreachable");
+        assert_eq!(misses(&VerdictCounts::default()), "—");
+    }
 }
