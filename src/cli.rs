@@ -29,6 +29,9 @@ pub enum Command {
     /// Run the daemon: collect SP, PV and OP, store them, score every setpoint change live, and
     /// raise alerts. Stops gracefully on Ctrl-C or SIGTERM.
     Run(RunArgs),
+    /// The showcase: a simulated pilot plant, an embedded MQTT broker and the daemon, in
+    /// accelerated time; ends with a summary per loop. Nothing needs to be installed.
+    Demo(crate::demo::DemoArgs),
     /// Validate a configuration file and print what it would watch.
     CheckConfig(CheckConfigArgs),
     /// Each loop's status: last samples, last episode, model, open alerts.

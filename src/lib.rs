@@ -9,6 +9,7 @@ pub mod cli;
 pub mod config;
 pub mod csvload;
 pub mod daemon;
+pub mod demo;
 pub mod ingest;
 pub mod modbus;
 pub mod queries;

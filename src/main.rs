@@ -20,6 +20,9 @@ fn main() -> ExitCode {
             init_logging(&args.log_format);
             runtime().and_then(|rt| rt.block_on(cli::run(args)))
         }
+        Command::Demo(args) => init_demo_logging(&args.out).and_then(|()| {
+            runtime().and_then(|rt| rt.block_on(headroom::demo::run(args, &mut out)))
+        }),
         Command::Loops(args) => {
             runtime().and_then(|rt| rt.block_on(headroom::queries::loops(args, &mut out)))
         }
@@ -70,6 +73,25 @@ fn init_logging(format: &str) {
     } else {
         builder.init();
     }
+}
+
+/// The demo draws a status line on the terminal, so its logs go to a file in its folder,
+/// filtered by RUST_LOG (default `info`). The embedded broker logs benign events (a client's
+/// probe, a closed connection) as errors, so it is silenced unless RUST_LOG names it.
+fn init_demo_logging(dir: &std::path::Path) -> anyhow::Result<()> {
+    use anyhow::Context;
+    std::fs::create_dir_all(dir).with_context(|| format!("cannot create {}", dir.display()))?;
+    let path = dir.join(headroom::demo::LOG_FILE);
+    let file = std::fs::File::create(&path)
+        .with_context(|| format!("cannot create the log file {}", path.display()))?;
+    let filter = tracing_subscriber::EnvFilter::try_from_default_env()
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new("info,rumqttd=off"));
+    tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_ansi(false)
+        .with_writer(std::sync::Mutex::new(file))
+        .init();
+    Ok(())
 }
 
 /// Output piped into a program that closed early (`| head`) is not an error.

@@ -56,7 +56,7 @@ impl Verdict {
 }
 
 /// Everything known about one setpoint change. Field names are a contract (JSON output); the
-/// store keeps it as that JSON, and the reports read it back.
+/// store keeps it as that JSON and reads it back (`Deserialize`) for reports and summaries.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct EpisodeResult {
     /// Time of the change (t0), on the data's time axis (s).

@@ -5,6 +5,7 @@
 //!  Modbus task per device ───┴──> writer task ──> store (SQLite)
 //!     ^                             │  └──> live trackers (pure analysis core) ──> episodes,
 //!     └─────Outbound (to MQTT)──────┘       models, alerts, gaps
+//!  weekly summary task (with `[report]`) ──> reads the store, writes the report folder
 //! ```
 //!
 //! Shutdown: `stop` turns true → the MQTT task stops forwarding messages and the Modbus tasks

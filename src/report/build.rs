@@ -355,10 +355,15 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             && a.last_seen_ms >= period.from_ms()
             && a.first_seen_ms < period.to_ms()
     }) {
+        // Alert messages start with their loop's tag; it is said once.
+        let message = a
+            .message
+            .strip_prefix(&format!("{}: ", a.loop_tag))
+            .unwrap_or(&a.message);
         data_quality.push(format!(
             "{}: stale tag — {} (from {} to {}, {} time(s))",
             a.loop_tag,
-            a.message,
+            message,
             local(a.first_seen_ms, &tz),
             local(a.last_seen_ms, &tz),
             a.count

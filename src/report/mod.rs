@@ -81,11 +81,10 @@ pub async fn gather(
     for tag in tags {
         let cfg = config.and_then(|c| c.loops.get(&tag));
         let setup = cfg.and_then(|l| l.setup(&tag).ok());
+        // The silence the daemon records as a gap for this loop (the writer's own rule).
         let gap_ms = setup.as_ref().and_then(|s| {
-            s.options
-                .max_gap_s
-                .or(s.options.expected_period_s.map(|p| 10.0 * p))
-                .map(|g| (g * 1000.0) as i64)
+            let period = s.options.expected_period_s?;
+            Some((s.options.max_gap_for(period) * 1000.0) as i64)
         });
         let mut coverage = Vec::new();
         for (_, signal) in series.iter().filter(|(t, _)| *t == tag) {

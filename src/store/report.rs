@@ -35,10 +35,6 @@ pub struct KeptReport {
     pub bytes: u64,
 }
 
-/// With no expected sample period known, a silence longer than this many mean sample
-/// intervals of the period counts as a gap (the analysis uses ten periods for its gaps too).
-const GAP_FACTOR: i64 = 10;
-
 impl Store {
     /// Final and provisional episodes whose change happened in `[from_ms, to_ms)`, by start.
     pub async fn episodes_between(&self, from_ms: i64, to_ms: i64) -> Result<Vec<EpisodeRow>> {
@@ -117,9 +113,10 @@ impl Store {
         .map_err(self.fail("looking for data in a period"))
     }
 
-    /// How well one signal was covered in `[from_ms, to_ms)`. A silence counts as a gap when it
-    /// is longer than `gap_threshold_ms`, or, without one, than ten mean sample intervals of the
-    /// period.
+    /// How well one signal was covered in `[from_ms, to_ms)`: its samples, and the data gaps the
+    /// daemon recorded for it (see `record_gaps`), clipped to the period. `gap_threshold_ms` is
+    /// the silence the daemon counts as a gap for this loop, for the wording; without it (a loop
+    /// no longer configured) no gaps are reported.
     pub async fn coverage(
         &self,
         loop_tag: &str,
@@ -141,27 +138,22 @@ impl Store {
         .fetch_one(&self.pool)
         .await
         .map_err(self.fail(DOING))?;
-        let threshold = match (gap_threshold_ms, first_ms, last_ms) {
-            (Some(t), ..) => t,
-            (None, Some(a), Some(b)) if samples > 1 => GAP_FACTOR * (b - a) / (samples - 1),
-            _ => i64::MAX,
-        }
-        .max(1);
-        let (gaps, gap_ms, longest): (i64, Option<i64>, Option<i64>) = sqlx::query_as(
-            "WITH d AS (
-                 SELECT ts_ms - LAG(ts_ms) OVER (ORDER BY ts_ms) AS dt FROM samples
-                 WHERE series_id = (SELECT id FROM series WHERE loop_tag = ?1 AND signal = ?2)
-                   AND ts_ms >= ?3 AND ts_ms < ?4)
-             SELECT COUNT(*), SUM(dt), MAX(dt) FROM d WHERE dt > ?5",
-        )
-        .bind(loop_tag)
-        .bind(signal.as_str())
-        .bind(from_ms)
-        .bind(to_ms)
-        .bind(threshold)
-        .fetch_one(&self.pool)
-        .await
-        .map_err(self.fail(DOING))?;
+        let (gaps, gap_ms, longest): (i64, Option<i64>, Option<i64>) = match gap_threshold_ms {
+            None => (0, None, None),
+            Some(_) => sqlx::query_as(
+                "SELECT COUNT(*), SUM(MIN(to_ms, ?4) - MAX(from_ms, ?3)),
+                        MAX(MIN(to_ms, ?4) - MAX(from_ms, ?3))
+                 FROM gaps
+                 WHERE loop_tag = ?1 AND signal = ?2 AND to_ms > ?3 AND from_ms < ?4",
+            )
+            .bind(loop_tag)
+            .bind(signal.as_str())
+            .bind(from_ms)
+            .bind(to_ms)
+            .fetch_one(&self.pool)
+            .await
+            .map_err(self.fail(DOING))?,
+        };
         Ok(SeriesCoverage {
             loop_tag: loop_tag.to_string(),
             signal,
@@ -171,7 +163,7 @@ impl Store {
             gaps: gaps.max(0) as u64,
             gap_ms: gap_ms.unwrap_or(0),
             longest_gap_ms: longest.unwrap_or(0),
-            gap_threshold_ms: threshold,
+            gap_threshold_ms: gap_threshold_ms.unwrap_or(i64::MAX),
         })
     }
 
@@ -287,32 +279,48 @@ mod tests {
     }
 
     #[tokio::test]
-    async fn coverage_counts_samples_and_silences_longer_than_the_threshold() {
+    async fn coverage_counts_samples_and_the_recorded_gaps_inside_the_period() {
         let (_dir, store) = fresh_store().await;
-        // Every second from 0 to 100 s, except nothing between 40 s and 70 s.
+        // Every second from 0 to 100 s, except nothing between 40 s and 70 s, which the daemon
+        // recorded as a gap; and a gap from before the period that runs into it.
         let rows: Vec<_> = (0..=100)
             .filter(|s| !(41..70).contains(s))
             .map(|s| sample("TIC-101", Signal::Pv, s * 1_000, 1.0))
             .collect();
         store.insert_samples(&rows).await.unwrap();
+        let gap = |from_ms, to_ms| crate::store::GapRow {
+            loop_tag: "TIC-101".into(),
+            signal: Signal::Pv,
+            from_ms,
+            to_ms,
+        };
+        store
+            .record_gaps(&[gap(-20_000, 0), gap(40_000, 70_000)])
+            .await
+            .unwrap();
         let c = store
             .coverage("TIC-101", Signal::Pv, 0, 101_000, Some(10_000))
             .await
             .unwrap();
         assert_eq!(c.samples, 72);
         assert_eq!((c.first_ms, c.last_ms), (Some(0), Some(100_000)));
+        // The first gap ends where the period starts: nothing of it is inside.
         assert_eq!((c.gaps, c.gap_ms, c.longest_gap_ms), (1, 30_000, 30_000));
+        let c = store
+            .coverage("TIC-101", Signal::Pv, 50_000, 101_000, Some(10_000))
+            .await
+            .unwrap();
+        assert_eq!((c.gaps, c.gap_ms), (1, 20_000), "clipped to the period");
 
-        // Without a threshold: ten mean intervals, 10 × 100 s / 71 ≈ 14 s; the gap still counts.
+        // Without the loop's threshold no gaps are claimed.
         let c = store
             .coverage("TIC-101", Signal::Pv, 0, 101_000, None)
             .await
             .unwrap();
-        assert_eq!(c.gap_threshold_ms, 10 * 100_000 / 71);
-        assert_eq!(c.gaps, 1);
+        assert_eq!((c.samples, c.gaps), (72, 0));
 
         let none = store
-            .coverage("TIC-101", Signal::Op, 0, 101_000, None)
+            .coverage("TIC-101", Signal::Op, 0, 101_000, Some(10_000))
             .await
             .unwrap();
         assert_eq!((none.samples, none.gaps, none.first_ms), (0, 0, None));

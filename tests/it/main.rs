@@ -3,6 +3,7 @@
 
 mod cli;
 mod corpus;
+mod demo;
 mod example_data;
 mod helpers;
 mod reference_python;

@@ -7,7 +7,7 @@ use headroom::analysis::segment::{ChangeShape, WindowEnd};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use headroom::analysis::{EpisodeResult, Model, Verdict};
 use headroom::sample::{Sample, Signal};
-use headroom::store::{AlertInput, Store};
+use headroom::store::{AlertInput, GapRow, Store};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::Arc;
@@ -314,6 +314,17 @@ async fn seeded_store(path: &Path) -> Store {
         }
     }
     store.insert_samples(&level).await.unwrap();
+    // The daemon records the silence as a gap of each signal when the samples come back.
+    let silence: Vec<GapRow> = [Signal::Sp, Signal::Pv, Signal::Op]
+        .into_iter()
+        .map(|signal| GapRow {
+            loop_tag: "LIC-301".into(),
+            signal,
+            from_ms: day(4, 0) + 119 * 10_000,
+            to_ms: day(4, 0) + 300 * 10_000,
+        })
+        .collect();
+    store.record_gaps(&silence).await.unwrap();
     store
         .raise_alert(AlertInput {
             loop_tag: "LIC-301".into(),

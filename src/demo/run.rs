@@ -1,0 +1,772 @@
+//! The demo's orchestration: broker, configuration, daemon, plant, progress, summary (see the
+//! module docs of `demo`).
+
+use super::plant::{Link, LoopDef, Plant, Reading};
+use super::registers::{self, Register};
+use super::summary::thousands;
+use super::{
+    CONFIG_FILE, DemoArgs, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL, MODBUS_PERIOD_S,
+    PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
+};
+use crate::cli::UsageError;
+use crate::config::Config;
+use crate::daemon::{Clock, Daemon};
+use crate::modbus::device::{RegisterMap, SimDevice};
+use crate::store::Store;
+use anyhow::Context;
+use rumqttc::{AsyncClient, EventLoop, MqttOptions, QoS};
+use std::fmt::Write as _;
+use std::io::{IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+use std::sync::atomic::{AtomicI64, AtomicU64, Ordering};
+use std::time::{Duration, Instant};
+use tokio::sync::{mpsc, oneshot, watch};
+
+/// The topic prefix of the plant's controllers.
+const TOPIC_ROOT: &str = "heronreach";
+/// How long the daemon may take to receive the plant's first samples.
+const FIRST_SAMPLES_TIMEOUT: Duration = Duration::from_secs(20);
+/// How long the end of the run waits for the daemon to commit what it was sent.
+const DRAIN_TIMEOUT: Duration = Duration::from_secs(60);
+/// The committed count must hold still this long to call the daemon caught up.
+const QUIET_FOR: Duration = Duration::from_millis(500);
+
+/// Where the demo's files go.
+struct Files {
+    dir: PathBuf,
+    config: PathBuf,
+    store: PathBuf,
+    log: PathBuf,
+}
+
+impl Files {
+    fn new(dir: &Path) -> Files {
+        Files {
+            dir: dir.to_owned(),
+            config: dir.join(CONFIG_FILE),
+            store: dir.join(STORE_FILE),
+            log: dir.join(LOG_FILE),
+        }
+    }
+
+    /// Creates the folder and removes the previous run's store (with SQLite's side files).
+    fn prepare(&self) -> anyhow::Result<()> {
+        std::fs::create_dir_all(&self.dir)
+            .with_context(|| format!("cannot create the folder {}", self.dir.display()))?;
+        for suffix in ["", "-wal", "-shm"] {
+            let mut p = self.store.clone().into_os_string();
+            p.push(suffix);
+            let p = PathBuf::from(p);
+            match std::fs::remove_file(&p) {
+                Ok(()) => {}
+                Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+                Err(e) => {
+                    return Err(e).with_context(|| {
+                        format!("cannot remove the previous demo store {}", p.display())
+                    });
+                }
+            }
+        }
+        Ok(())
+    }
+}
+
+/// The MQTT topic of one loop signal.
+fn topic(def: &LoopDef, signal: &str) -> String {
+    format!("{TOPIC_ROOT}/{}/{}/{signal}", def.area, def.tag)
+}
+
+/// The daemon's configuration for the plant, as a TOML file a user can read and reuse. `speed`
+/// sets the Modbus poll period: once per `MODBUS_PERIOD_S` of plant time.
+pub fn config_text(defs: &[LoopDef], mqtt_port: u16, modbus_port: u16, speed: f64) -> String {
+    let mut t = String::new();
+    let _ = writeln!(
+        t,
+        "# headroom configuration for the Heron Reach pilot plant, written by `headroom demo`.\n\
+         # The plant is simulated; `headroom check-config --config {CONFIG_FILE}` describes it.\n\n\
+         [store]\npath = \"{STORE_FILE}\"\n\
+         # The demo's data span at most 60 days; keep every raw sample.\n\
+         raw_retention_days = 90\n\n\
+         [mqtt]\n\
+         # The demo's embedded broker; it runs only while the demo does.\n\
+         url = \"mqtt://127.0.0.1:{mqtt_port}\"\n\
+         client_id = \"headroom-demo\"\n\
+         alert_topic = \"headroom/heronreach/alerts\"\n\
+         status_topic = \"headroom/heronreach/status\"\n\n\
+         [modbus.{device}]\n\
+         # The cook area's controller, simulated by the demo: TIC-120 and TIC-130.\n\
+         address = \"127.0.0.1:{modbus_port}\"\n\
+         unit_id = 1\n\
+         # Once per {MODBUS_PERIOD_S} s of plant time, which runs {speed}× as fast as the wall clock.\n\
+         poll_period_s = {poll:?}\n\
+         timeout_s = 1.0",
+        device = registers::DEVICE,
+        poll = MODBUS_PERIOD_S / speed,
+    );
+    for d in defs {
+        let _ = writeln!(
+            t,
+            "\n[loops.{tag}]\ndescription = \"{desc}\"\npv_unit = \"{unit}\"\n\
+             op_min = {op_min:?}\nop_max = {op_max:?}\nexpected_period_s = {period:?}\n\
+             # {STALE_AFTER_S} s of plant time: see `demo::STALE_AFTER_S`.\n\
+             stale_after_periods = {stale:?}",
+            tag = d.tag,
+            desc = d.description,
+            unit = d.pv_unit,
+            op_min = d.op_min(),
+            op_max = d.op_max(),
+            period = d.sample_period_s,
+            stale = (STALE_AFTER_S / d.sample_period_s).ceil(),
+        );
+        let layout = registers::layout(d.tag).filter(|_| d.link == Link::Modbus);
+        if let Some(layout) = &layout {
+            let _ = writeln!(
+                t,
+                "{}\n\
+                 # A poll that runs late by a few wall-clock milliseconds is minutes of plant time;\n\
+                 # a gap only counts when it is longer than 40 periods.\n\
+                 analysis = {{ max_gap_s = 600.0 }}",
+                layout_sources(layout),
+            );
+        } else {
+            for s in ["sp", "pv", "op"] {
+                let _ = writeln!(
+                    t,
+                    "{s} = {{ topic = \"{}\", format = \"json\", value_field = \"v\", time_field = \"t\" }}",
+                    topic(d, s)
+                );
+            }
+        }
+        let _ = write!(
+            t,
+            "\n[loops.{}.spec]\nsettle_band_pct = {:?}\nsettle_within_s = {:?}\n",
+            d.tag, d.settle_band_pct, d.settle_within_s
+        );
+        if let Some(o) = d.max_overshoot_pct {
+            let _ = writeln!(t, "max_overshoot_pct = {o:?}");
+        }
+    }
+    t
+}
+
+fn layout_sources(layout: &[Register; 3]) -> String {
+    ["sp", "pv", "op"]
+        .iter()
+        .zip(layout)
+        .map(|(s, r)| format!("{s} = {}", r.toml()))
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+/// Samples waiting to be published, per loop and signal.
+struct Outbox {
+    /// `[loop][sp, pv, op]` → (epoch ms, value).
+    pending: Vec<[Vec<(i64, f64)>; 3]>,
+    start_ms: i64,
+}
+
+impl Outbox {
+    fn new(loops: usize, start_ms: i64) -> Outbox {
+        Outbox {
+            pending: (0..loops).map(|_| Default::default()).collect(),
+            start_ms,
+        }
+    }
+
+    fn push(&mut self, index: usize, r: Reading) {
+        let ms = self.start_ms + (r.time_s * 1000.0).round() as i64;
+        let p = &mut self.pending[index];
+        p[0].push((ms, r.sp));
+        if let Some(pv) = r.pv {
+            p[1].push((ms, pv));
+        }
+        p[2].push((ms, r.op));
+    }
+
+    /// The messages for everything pending: (topic, JSON array payload, samples).
+    fn drain(&mut self, defs: &[LoopDef]) -> Vec<(String, Vec<u8>, u64)> {
+        let mut out = Vec::new();
+        for (d, signals) in defs.iter().zip(self.pending.iter_mut()) {
+            for (s, samples) in ["sp", "pv", "op"].into_iter().zip(signals.iter_mut()) {
+                for chunk in samples.chunks(MAX_BATCH) {
+                    out.push((topic(d, s), payload(chunk), chunk.len() as u64));
+                }
+                samples.clear();
+            }
+        }
+        out
+    }
+}
+
+/// A JSON batch: `[{"t":1732345678000,"v":61.2346}, ...]`. Values carry four decimals, finer
+/// than any of the plant's transmitters resolve.
+fn payload(samples: &[(i64, f64)]) -> Vec<u8> {
+    let mut s = String::with_capacity(samples.len() * 32 + 2);
+    s.push('[');
+    for (i, (t, v)) in samples.iter().enumerate() {
+        if i > 0 {
+            s.push(',');
+        }
+        let _ = write!(s, "{{\"t\":{t},\"v\":{v:.4}}}");
+    }
+    s.push(']');
+    s.into_bytes()
+}
+
+/// Counters shared between the plant, the progress line and the end of the run.
+#[derive(Default)]
+struct Shared {
+    /// The plant's clock, epoch ms.
+    clock_ms: AtomicI64,
+    /// Samples handed to the MQTT publisher.
+    published: AtomicU64,
+}
+
+/// A running daemon and how to stop it.
+struct RunningDaemon {
+    config: Config,
+    committed: Arc<AtomicU64>,
+    stop: oneshot::Sender<()>,
+    task: tokio::task::JoinHandle<anyhow::Result<()>>,
+}
+
+impl RunningDaemon {
+    /// Writes the configuration for `speed`, builds the daemon (which resumes each loop from the
+    /// store, as after any restart) and runs it with the plant's clock for polled samples.
+    async fn start(
+        files: &Files,
+        defs: &[LoopDef],
+        ports: (u16, u16),
+        speed: f64,
+        clock: Clock,
+    ) -> anyhow::Result<RunningDaemon> {
+        std::fs::write(&files.config, config_text(defs, ports.0, ports.1, speed))
+            .with_context(|| format!("cannot write {}", files.config.display()))?;
+        let config = Config::load(&files.config)
+            .with_context(|| format!("the demo's configuration {}", files.config.display()))?;
+        let daemon = Daemon::build(&config, &files.config)
+            .await?
+            .with_clock(clock);
+        let committed = daemon.committed();
+        let (stop, stopped) = oneshot::channel::<()>();
+        let task = tokio::spawn(daemon.run(async {
+            let _ = stopped.await;
+        }));
+        Ok(RunningDaemon {
+            config,
+            committed,
+            stop,
+            task,
+        })
+    }
+
+    /// Stops it through its own shutdown path: it commits what has arrived and closes the store.
+    async fn stop(self) -> anyhow::Result<()> {
+        let _ = self.stop.send(());
+        match self.task.await {
+            Ok(r) => r.context("the daemon failed"),
+            Err(e) => Err(anyhow::anyhow!("the daemon task failed: {e}")),
+        }
+    }
+}
+
+/// The plant and where its values go.
+struct PlantSide {
+    plant: Plant,
+    defs: Vec<LoopDef>,
+    outbox: Outbox,
+    device: SimDevice,
+    /// Register layouts of the Modbus loops, by loop index.
+    layouts: Vec<Option<[Register; 3]>>,
+    shared: Arc<Shared>,
+    start_ms: i64,
+    publish_tx: mpsc::Sender<(String, Vec<u8>)>,
+}
+
+impl PlantSide {
+    /// Advances the plant to `t_s`, queues the MQTT loops' samples, and writes the Modbus loops'
+    /// current values into the device together with the clock, under the device's lock. A poll
+    /// then sees values and a clock of the same moment — or, when the plant moves on between
+    /// the poller reading the clock and reading the registers, values one tick newer than their
+    /// stamp, as a real poller's jitter would give.
+    fn advance(&mut self, t_s: f64) {
+        let outbox = &mut self.outbox;
+        let defs = &self.defs;
+        self.plant.advance_to(t_s, &mut |i, r| {
+            if defs[i].link == Link::Mqtt {
+                outbox.push(i, r);
+            }
+        });
+        let now_ms = self.start_ms + (self.plant.time_s() * 1000.0) as i64;
+        let plant = &self.plant;
+        let layouts = &self.layouts;
+        let shared = &self.shared;
+        self.device.with_map(|map| {
+            for (i, layout) in layouts.iter().enumerate() {
+                let Some(layout) = layout else { continue };
+                let r = plant.current(i);
+                for (reg, v) in layout.iter().zip([Some(r.sp), r.pv, Some(r.op)]) {
+                    if let Some(v) = v {
+                        reg.write(map, v);
+                    }
+                }
+            }
+            shared.clock_ms.store(now_ms, Ordering::Relaxed);
+        });
+    }
+
+    /// Publishes everything queued, counting the samples.
+    async fn publish(&mut self) -> anyhow::Result<()> {
+        for (topic, payload, n) in self.outbox.drain(&self.defs) {
+            self.publish_tx
+                .send((topic, payload))
+                .await
+                .context("the demo's MQTT publisher stopped")?;
+            self.shared.published.fetch_add(n, Ordering::Relaxed);
+        }
+        Ok(())
+    }
+}
+
+/// `headroom demo`.
+pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
+    let duration_s = args.duration_s()?;
+    let speed = args.checked_speed()?;
+    let files = Files::new(&args.out);
+    files.prepare()?;
+
+    // A port in use is the user's to fix (exit code 2).
+    let broker = broker::start(args.mqtt_port).map_err(|e| match e {
+        broker::BrokerError::PortInUse { .. } => anyhow::Error::new(UsageError(e.to_string())),
+        e => anyhow::Error::new(e),
+    })?;
+    let device = SimDevice::start(args.modbus_port, RegisterMap::new(registers::MAP_LEN))
+        .await
+        .map_err(|e| {
+            UsageError(format!(
+                "cannot start the simulated Modbus device on 127.0.0.1:{}: {e}; choose another \
+                 port with --modbus-port, or 0 for any free port",
+                args.modbus_port
+            ))
+        })?;
+    let ports = (broker.addr.port(), device.addr().port());
+
+    // Schedules run on past the demo's end when it keeps running, so the plant stays lively.
+    let horizon_s = if args.keep_running {
+        duration_s + 30.0 * super::plant::DAY_S
+    } else {
+        duration_s
+    };
+    let plant = Plant::new(horizon_s);
+    let defs: Vec<LoopDef> = plant.defs().to_vec();
+    let now_ms = jiff::Timestamp::now().as_millisecond();
+    // Whole seconds, so the plant's sample stamps are round.
+    let start_ms = (now_ms - (duration_s * 1000.0) as i64).div_euclid(1000) * 1000;
+    let shared = Arc::new(Shared::default());
+    shared.clock_ms.store(start_ms, Ordering::Relaxed);
+    let clock: Clock = {
+        let shared = shared.clone();
+        Arc::new(move || shared.clock_ms.load(Ordering::Relaxed))
+    };
+
+    let mut daemon = RunningDaemon::start(&files, &defs, ports, speed, clock.clone()).await?;
+    let committed = daemon.committed.clone();
+    let reader = Store::open_read_only(&files.store)
+        .await
+        .context("cannot open the demo's store for reading")?;
+    let (publish_tx, stop_publisher) = start_publisher(ports.0);
+    let mut side = PlantSide {
+        layouts: defs
+            .iter()
+            .map(|d| registers::layout(d.tag).filter(|_| d.link == Link::Modbus))
+            .collect(),
+        outbox: Outbox::new(defs.len(), start_ms),
+        plant,
+        defs: defs.clone(),
+        device,
+        shared: shared.clone(),
+        start_ms,
+        publish_tx,
+    };
+
+    let via = |link: Link| {
+        defs.iter()
+            .filter(|d| d.link == link)
+            .map(|d| d.tag)
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    writeln!(
+        out,
+        "Heron Reach pilot plant, simulated: {} loops, {:.1} days of plant time at {speed:.0}× real time.\n\
+         MQTT broker (embedded):    mqtt://{}  {} publish on {TOPIC_ROOT}/#, headroom on headroom/#\n\
+         Modbus device (simulated): {}  {} in its registers\n\
+         headroom's store: {}   log: {}",
+        defs.len(),
+        duration_s / 86_400.0,
+        broker.addr,
+        via(Link::Mqtt),
+        side.device.addr(),
+        via(Link::Modbus),
+        files.store.display(),
+        files.log.display()
+    )?;
+    out.flush()?;
+    let wall_start = Instant::now();
+    let progress = Progress::start(
+        shared.clone(),
+        committed.clone(),
+        reader.clone(),
+        start_ms,
+        duration_s,
+    );
+
+    let interrupt = crate::cli::shutdown_signal();
+    tokio::pin!(interrupt);
+    let mut interrupted = false;
+
+    // The first samples go out until the daemon has stored them: messages published before its
+    // subscription is in place are dropped by the broker, and inserts are idempotent, so sending
+    // the same samples again is harmless.
+    side.advance(0.0);
+    let first = side.outbox.drain(&defs);
+    let first_count: u64 = first.iter().map(|m| m.2).sum();
+    let deadline = Instant::now() + FIRST_SAMPLES_TIMEOUT;
+    while committed.load(Ordering::Relaxed) < first_count {
+        for (t, p, _) in &first {
+            side.publish_tx
+                .send((t.clone(), p.clone()))
+                .await
+                .context("the demo's MQTT publisher stopped")?;
+        }
+        anyhow::ensure!(
+            Instant::now() < deadline,
+            "the daemon received nothing from the embedded broker at {} within {} s; see {}",
+            broker.addr,
+            FIRST_SAMPLES_TIMEOUT.as_secs(),
+            files.log.display()
+        );
+        tokio::select! {
+            _ = tokio::time::sleep(Duration::from_millis(300)) => {}
+            _ = &mut interrupt => { interrupted = true; break; }
+        }
+    }
+    shared.published.fetch_add(first_count, Ordering::Relaxed);
+
+    // The accelerated run. One tick is one Modbus sample period of plant time (at least 1 ms,
+    // tokio's timer resolution), so each poll finds new values.
+    let tick_wall = Duration::from_secs_f64((MODBUS_PERIOD_S / speed).clamp(0.001, 0.05));
+    let max_step = MAX_TICK_WALL.max(2 * tick_wall);
+    let mut sim_s = 0.0f64;
+    let mut last = Instant::now();
+    let mut last_publish = Instant::now();
+    let mut tick = tokio::time::interval(tick_wall);
+    tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+    while !interrupted && side.plant.time_s() < duration_s {
+        tokio::select! {
+            _ = tick.tick() => {}
+            _ = &mut interrupt => { interrupted = true; }
+            res = &mut daemon.task => {
+                progress.stop().await;
+                return Err(daemon_ended(res));
+            }
+        }
+        let dt = last.elapsed().min(max_step);
+        last = Instant::now();
+        let lag = shared
+            .published
+            .load(Ordering::Relaxed)
+            .saturating_sub(committed.load(Ordering::Relaxed));
+        if lag < MAX_LAG_SAMPLES {
+            sim_s = (sim_s + speed * dt.as_secs_f64()).min(duration_s);
+        }
+        side.advance(sim_s.floor());
+        if last_publish.elapsed() >= PUBLISH_EVERY || side.plant.time_s() >= duration_s {
+            last_publish = Instant::now();
+            side.publish().await?;
+        }
+    }
+    side.publish().await?;
+    let caught_up = wait_for_commits(&shared, &committed).await;
+    let run_wall = wall_start.elapsed();
+    progress.stop().await;
+    if !caught_up {
+        tracing::warn!("the daemon had not committed everything it was sent when the demo ended");
+    }
+    let config = daemon.config.clone();
+    // The daemon closes the store last, so SQLite folds its write-ahead log back into the file.
+    reader.close().await;
+    daemon.stop().await?;
+
+    let reader = Store::open_read_only(&files.store)
+        .await
+        .context("cannot open the demo's store for reading")?;
+    let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
+    let reports = write_report(&reader, &config, &files, start_ms, plant_end_ms(&shared)).await?;
+    summary::render(
+        &summaries,
+        &summary::RunFacts {
+            simulated_s: plant_time(&shared, start_ms),
+            wall: run_wall,
+            speed,
+            interrupted,
+            files: summary::FilePaths {
+                config: files.config.clone(),
+                store: files.store.clone(),
+                log: files.log.clone(),
+                reports,
+            },
+        },
+        out,
+    )?;
+    reader.close().await;
+
+    if args.keep_running && !interrupted {
+        // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
+        let mut daemon = RunningDaemon::start(&files, &defs, ports, 1.0, clock).await?;
+        writeln!(
+            out,
+            "\nStill running, now in real time: the plant, the broker at mqtt://{addr}, the Modbus \
+             device at {dev} and the daemon. Watch with any MQTT client, e.g.\n  \
+             mosquitto_sub -h 127.0.0.1 -p {port} -t '{TOPIC_ROOT}/#' -t 'headroom/#' -v\n\
+             Ctrl-C stops.",
+            addr = broker.addr,
+            dev = side.device.addr(),
+            port = ports.0,
+        )?;
+        out.flush()?;
+        let mut tick = tokio::time::interval(Duration::from_millis(250));
+        let mut last = Instant::now();
+        loop {
+            tokio::select! {
+                _ = tick.tick() => {}
+                _ = &mut interrupt => break,
+                res = &mut daemon.task => return Err(daemon_ended(res)),
+            }
+            sim_s += last.elapsed().as_secs_f64();
+            last = Instant::now();
+            side.advance(sim_s.floor());
+            side.publish().await?;
+        }
+        daemon.stop().await?;
+    }
+    drop(side);
+    stop_publisher.send_replace(true);
+    Ok(())
+}
+
+fn plant_end_ms(shared: &Shared) -> i64 {
+    shared.clock_ms.load(Ordering::Relaxed)
+}
+
+/// The loop-health summary of the whole run (the weekly report over the simulated span), in
+/// every format, beside the store.
+async fn write_report(
+    store: &Store,
+    config: &crate::config::Config,
+    files: &Files,
+    from_ms: i64,
+    to_ms: i64,
+) -> anyhow::Result<Vec<PathBuf>> {
+    use crate::report::{Format, Period};
+    let tz = jiff::tz::TimeZone::UTC;
+    let at = |ms: i64| {
+        jiff::Timestamp::from_millisecond(ms)
+            .map(|t| t.to_string())
+            .context("the plant's clock left the calendar")
+    };
+    let period = Period::range(&at(from_ms)?, &at(to_ms)?, &tz)?;
+    let report =
+        crate::report::gather(store, Some(config), &period, jiff::Timestamp::now()).await?;
+    let dir = files.store.parent().unwrap_or(Path::new("."));
+    let written = crate::report::write_files(&report, &period, &Format::ALL, dir)?;
+    Ok(written.into_iter().map(|(p, _)| p).collect())
+}
+
+fn plant_time(shared: &Shared, start_ms: i64) -> f64 {
+    (shared.clock_ms.load(Ordering::Relaxed) - start_ms) as f64 / 1000.0
+}
+
+fn daemon_ended(res: Result<anyhow::Result<()>, tokio::task::JoinError>) -> anyhow::Error {
+    match res {
+        Ok(Ok(())) => anyhow::anyhow!("the daemon stopped before the demo ended"),
+        Ok(Err(e)) => e.context("the daemon stopped"),
+        Err(e) => anyhow::anyhow!("the daemon task failed: {e}"),
+    }
+}
+
+/// Waits until the daemon has committed at least what was published and its count holds still;
+/// `false` when that did not happen within `DRAIN_TIMEOUT`.
+async fn wait_for_commits(shared: &Shared, committed: &AtomicU64) -> bool {
+    let deadline = Instant::now() + DRAIN_TIMEOUT;
+    let mut seen = committed.load(Ordering::Relaxed);
+    let mut since = Instant::now();
+    while Instant::now() < deadline {
+        tokio::time::sleep(Duration::from_millis(50)).await;
+        let now = committed.load(Ordering::Relaxed);
+        if now != seen {
+            seen = now;
+            since = Instant::now();
+        } else if now >= shared.published.load(Ordering::Relaxed) && since.elapsed() >= QUIET_FOR {
+            return true;
+        }
+    }
+    false
+}
+
+/// The plant's MQTT publisher: a client whose event loop runs in its own task, fed through a
+/// bounded channel (when it is full the plant waits). Returns the channel and the stop switch
+/// for the event loop.
+fn start_publisher(port: u16) -> (mpsc::Sender<(String, Vec<u8>)>, watch::Sender<bool>) {
+    let mut o = MqttOptions::new("heronreach-plant", "127.0.0.1", port);
+    o.set_keep_alive(Duration::from_secs(30));
+    o.set_inflight(200);
+    o.set_max_packet_size(1 << 20, 1 << 20);
+    let (client, eventloop) = AsyncClient::new(o, 256);
+    let (tx, mut rx) = mpsc::channel::<(String, Vec<u8>)>(64);
+    let (stop_tx, stop_rx) = watch::channel(false);
+    tokio::spawn(drive(eventloop, stop_rx));
+    tokio::spawn(async move {
+        while let Some((topic, payload)) = rx.recv().await {
+            if client
+                .publish(topic, QoS::AtLeastOnce, false, payload)
+                .await
+                .is_err()
+            {
+                break;
+            }
+        }
+        let _ = client.disconnect().await;
+    });
+    (tx, stop_tx)
+}
+
+/// Polls the publisher's event loop until stopped, waiting a moment after an error (rumqttc
+/// reconnects at once otherwise, a busy spin).
+async fn drive(mut eventloop: EventLoop, mut stop: watch::Receiver<bool>) {
+    loop {
+        tokio::select! {
+            ev = eventloop.poll() => {
+                if let Err(e) = ev {
+                    tracing::debug!(error = %e, "demo publisher connection");
+                    tokio::time::sleep(Duration::from_millis(200)).await;
+                }
+            }
+            _ = stop.changed() => break,
+        }
+    }
+}
+
+/// The live status line: a bar, simulated time, samples stored, episodes scored, alerts raised.
+/// On a terminal it redraws one line; otherwise it prints a line at every tenth of the run.
+struct Progress {
+    stop: oneshot::Sender<()>,
+    task: tokio::task::JoinHandle<()>,
+}
+
+impl Progress {
+    fn start(
+        shared: Arc<Shared>,
+        committed: Arc<AtomicU64>,
+        store: Store,
+        start_ms: i64,
+        duration_s: f64,
+    ) -> Progress {
+        let (stop, mut stopped) = oneshot::channel::<()>();
+        let task = tokio::spawn(async move {
+            let tty = std::io::stderr().is_terminal();
+            let mut tick =
+                tokio::time::interval(Duration::from_millis(if tty { 250 } else { 500 }));
+            let mut printed_tenth = -1i64;
+            let mut printed_line = String::new();
+            let mut counts = (0usize, 0u64);
+            loop {
+                let last = tokio::select! {
+                    _ = tick.tick() => false,
+                    _ = &mut stopped => true,
+                };
+                if let (Ok(e), Ok(a)) =
+                    (store.episodes(None, None).await, store.alerts(false).await)
+                {
+                    counts = (
+                        e.iter().filter(|e| e.is_final).count(),
+                        a.iter().map(|a| a.count).sum(),
+                    );
+                }
+                let sim_s = (shared.clock_ms.load(Ordering::Relaxed) - start_ms) as f64 / 1000.0;
+                let frac = (sim_s / duration_s).clamp(0.0, 1.0);
+                let line = status_line(
+                    frac,
+                    shared.clock_ms.load(Ordering::Relaxed),
+                    committed.load(Ordering::Relaxed),
+                    counts.0,
+                    counts.1,
+                );
+                let mut err = std::io::stderr().lock();
+                if tty {
+                    let _ = write!(err, "\r\x1b[2K{line}");
+                    if last {
+                        let _ = writeln!(err);
+                    }
+                } else {
+                    let tenth = (frac * 10.0).floor() as i64;
+                    if tenth > printed_tenth || (last && line != printed_line) {
+                        printed_line.clone_from(&line);
+                        printed_tenth = tenth;
+                        let _ = writeln!(err, "{line}");
+                    }
+                }
+                let _ = err.flush();
+                if last {
+                    break;
+                }
+            }
+        });
+        Progress { stop, task }
+    }
+
+    async fn stop(self) {
+        let _ = self.stop.send(());
+        let _ = self.task.await;
+    }
+}
+
+/// `[██████████░░░░░░░░░░]  52 %  plant time 2026-11-19 14:05  samples 1,234,567  episodes 123  alerts 9`
+fn status_line(frac: f64, clock_ms: i64, samples: u64, episodes: usize, alerts: u64) -> String {
+    const WIDTH: usize = 24;
+    let filled = (frac * WIDTH as f64).round() as usize;
+    let bar: String = "█".repeat(filled) + &"░".repeat(WIDTH - filled);
+    let when = jiff::Timestamp::from_millisecond(clock_ms)
+        .map(|t| t.strftime("%Y-%m-%d %H:%M").to_string())
+        .unwrap_or_default();
+    format!(
+        "[{bar}] {:>3.0} %  plant time {when} UTC  samples {}  episodes {episodes}  alerts {alerts}",
+        frac * 100.0,
+        thousands(samples)
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn batches_are_json_arrays_the_decoder_reads() {
+        let p = payload(&[(1_700_000_000_000, 61.23456), (1_700_000_001_000, -0.5)]);
+        let v: serde_json::Value = serde_json::from_slice(&p).unwrap();
+        assert_eq!(v[0]["t"], 1_700_000_000_000i64);
+        assert_eq!(v[0]["v"], 61.2346);
+        assert_eq!(v[1]["v"], -0.5);
+    }
+
+    #[test]
+    fn the_written_configuration_is_valid_and_watches_every_loop() {
+        let defs = super::super::plant::loops();
+        let text = config_text(&defs, 18_830, 15_020, 6_000.0);
+        let cfg = Config::parse(&text, Path::new("heronreach.toml")).expect("valid");
+        assert_eq!(cfg.loops.len(), defs.len());
+        assert!(cfg.loops.values().all(|l| l.is_watched()));
+        assert_eq!(cfg.mqtt.as_ref().map(|m| m.port), Some(18_830));
+    }
+}

@@ -1,0 +1,354 @@
+//! The demo's closing summary, per loop, from the store the daemon wrote: the setpoint changes it
+//! scored, its latest process model, and the recommendation the analysis core derives from them
+//! ([`crate::analysis::assess::recommend`], the same function `analyze` uses). Nothing here is
+//! computed from the simulator's own knowledge of the plant.
+
+use super::plant::{Link, LoopDef};
+use crate::analysis::assess::{Action, Recommendation, VerdictCounts, recommend};
+use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
+use crate::config::Config;
+use crate::store::Store;
+use anyhow::Context;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::time::Duration;
+
+/// One loop's results.
+#[derive(Debug, Clone)]
+pub struct LoopSummary {
+    pub tag: String,
+    pub link: Link,
+    pub settle_within_s: f64,
+    /// The final (closed) episodes the daemon scored, oldest first.
+    pub episodes: Vec<EpisodeResult>,
+    /// Stored episodes whose detail could not be read back (none, unless the store was damaged).
+    pub unreadable: usize,
+    pub counts: VerdictCounts,
+    pub model: Option<Model>,
+    pub recommendation: Recommendation,
+    /// Alerts raised for the loop: (kind, times raised).
+    pub alerts: Vec<(String, u64)>,
+}
+
+impl LoopSummary {
+    /// Conclusive changes that met the spec, as a share of the conclusive ones.
+    pub fn met_share(&self) -> Option<f64> {
+        let conclusive = self.episodes.len() - self.counts.inconclusive;
+        (conclusive > 0).then(|| self.counts.met as f64 / conclusive as f64)
+    }
+
+    /// The median settling time of the conclusive changes; infinite when most never settled.
+    pub fn typical_settling_s(&self) -> Option<f64> {
+        let mut t: Vec<f64> = self
+            .episodes
+            .iter()
+            .filter(|e| e.verdict != Verdict::Inconclusive)
+            .map(|e| e.settling_time_s.unwrap_or(f64::INFINITY))
+            .collect();
+        if t.is_empty() {
+            return None;
+        }
+        t.sort_by(f64::total_cmp);
+        Some(t[t.len() / 2])
+    }
+}
+
+/// Reads each loop's episodes, model and alerts from the store and derives its recommendation.
+pub async fn gather(
+    store: &Store,
+    config: &Config,
+    config_path: &Path,
+    defs: &[LoopDef],
+) -> anyhow::Result<Vec<LoopSummary>> {
+    let models = store
+        .latest_models()
+        .await
+        .context("cannot read the models")?;
+    let alerts = store
+        .alerts(false)
+        .await
+        .context("cannot read the alerts")?;
+    let mut out = Vec::new();
+    for d in defs {
+        let rows = store
+            .episodes(Some(d.tag), None)
+            .await
+            .with_context(|| format!("cannot read the episodes of {}", d.tag))?;
+        let mut episodes = Vec::new();
+        let mut unreadable = 0;
+        for r in rows.iter().filter(|r| r.is_final) {
+            match serde_json::from_value::<EpisodeResult>(r.detail.clone()) {
+                Ok(e) => episodes.push(e),
+                Err(_) => unreadable += 1,
+            }
+        }
+        let model = models
+            .iter()
+            .find(|m| m.loop_tag == d.tag)
+            .map(|m| m.model());
+        let setup = config
+            .loop_setup(d.tag, config_path)
+            .with_context(|| format!("loop {}", d.tag))?;
+        let recommendation = recommend(&episodes, model.as_ref(), &setup, d.sample_period_s);
+        out.push(LoopSummary {
+            tag: d.tag.to_string(),
+            link: d.link,
+            settle_within_s: d.settle_within_s,
+            counts: VerdictCounts::of(&episodes),
+            episodes,
+            unreadable,
+            model,
+            recommendation,
+            alerts: alerts
+                .iter()
+                .filter(|a| a.loop_tag == d.tag)
+                .map(|a| (a.kind.clone(), a.count))
+                .collect(),
+        });
+    }
+    Ok(out)
+}
+
+/// Facts about the run for the summary's heading and footer.
+#[derive(Debug, Clone)]
+pub struct RunFacts {
+    pub simulated_s: f64,
+    pub wall: Duration,
+    pub speed: f64,
+    pub interrupted: bool,
+    pub files: FilePaths,
+}
+
+#[derive(Debug, Clone)]
+pub struct FilePaths {
+    pub config: PathBuf,
+    pub store: PathBuf,
+    pub log: PathBuf,
+    /// The loop-health summary of the run, one file per format.
+    pub reports: Vec<PathBuf>,
+}
+
+fn action_word(a: Action) -> &'static str {
+    match a {
+        Action::None => "none needed",
+        Action::Retune => "retune",
+        Action::Renegotiate => "renegotiate spec",
+        Action::Upgrade => "upgrade actuator",
+        Action::Undecided => "undecided",
+    }
+}
+
+fn link_word(l: Link) -> &'static str {
+    match l {
+        Link::Mqtt => "MQTT",
+        Link::Modbus => "Modbus",
+    }
+}
+
+fn seconds(s: Option<f64>) -> String {
+    match s {
+        None => "—".into(),
+        Some(x) if !x.is_finite() => "never".into(),
+        Some(x) => format!("{x:.0} s"),
+    }
+}
+
+fn wall(d: Duration) -> String {
+    let s = d.as_secs_f64();
+    if s < 60.0 {
+        format!("{s:.1} s")
+    } else {
+        format!("{} min {:02.0} s", (s / 60.0).floor(), s % 60.0)
+    }
+}
+
+/// The misses by reason, e.g. "7 actuator, 1 unreachable".
+fn misses(c: &VerdictCounts) -> String {
+    let parts: Vec<String> = [
+        (c.tuning_limited, "tuning"),
+        (c.actuator_limited, "actuator"),
+        (c.unreachable, "unreachable"),
+        (c.inconclusive, "inconclusive"),
+    ]
+    .iter()
+    .filter(|(n, _)| *n > 0)
+    .map(|(n, w)| format!("{n} {w}"))
+    .collect();
+    if parts.is_empty() {
+        "—".into()
+    } else {
+        parts.join(", ")
+    }
+}
+
+/// Writes `text` wrapped at `width` columns, every line after the first indented by `indent`.
+fn wrapped(
+    out: &mut dyn Write,
+    first: &str,
+    text: &str,
+    indent: usize,
+    width: usize,
+) -> std::io::Result<()> {
+    let mut line = first.to_string();
+    let mut col = line.chars().count();
+    for word in text.split_whitespace() {
+        let w = word.chars().count();
+        if col > indent && col + 1 + w > width {
+            writeln!(out, "{line}")?;
+            line = " ".repeat(indent);
+            col = indent;
+        }
+        if col > indent {
+            line.push(' ');
+            col += 1;
+        }
+        line.push_str(word);
+        col += w;
+    }
+    writeln!(out, "{line}")
+}
+
+/// The summary for people.
+pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> std::io::Result<()> {
+    writeln!(
+        out,
+        "\nHeron Reach pilot plant: {:.1} days of plant time in {} ({:.0}× real time){}",
+        facts.simulated_s / 86_400.0,
+        wall(facts.wall),
+        facts.speed,
+        if facts.interrupted {
+            ", interrupted"
+        } else {
+            ""
+        }
+    )?;
+    writeln!(out)?;
+    writeln!(
+        out,
+        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} advice",
+        "loop", "via", "changes", "met", "settling", "spec", "misses"
+    )?;
+    for l in loops {
+        writeln!(
+            out,
+            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} {}",
+            l.tag,
+            link_word(l.link),
+            l.episodes.len(),
+            l.met_share()
+                .map_or("—".into(), |m| format!("{:.0} %", 100.0 * m)),
+            seconds(l.typical_settling_s()),
+            format!("{:.0} s", l.settle_within_s),
+            misses(&l.counts),
+            action_word(l.recommendation.action),
+        )?;
+    }
+    writeln!(
+        out,
+        "(changes: setpoint changes scored; met: share of the conclusive ones that met the spec; \
+         settling: typical, vs the spec's limit)"
+    )?;
+    writeln!(out, "\nRecommendations")?;
+    for l in loops {
+        wrapped(
+            out,
+            &format!("  {:<8} ", l.tag),
+            &l.recommendation.summary,
+            11,
+            100,
+        )?;
+    }
+    // Every recommendation above carries the same caution; it is shown once, right below them.
+    wrapped(out, "  ", CAUTION, 2, 100)?;
+
+    let raised: Vec<String> = loops
+        .iter()
+        .flat_map(|l| {
+            l.alerts
+                .iter()
+                .map(move |(k, n)| format!("{} {k} ×{n}", l.tag))
+        })
+        .collect();
+    writeln!(out)?;
+    wrapped(
+        out,
+        "Alerts raised:",
+        &if raised.is_empty() {
+            "none".to_string()
+        } else {
+            raised.join(", ")
+        },
+        4,
+        100,
+    )?;
+    let unreadable: usize = loops.iter().map(|l| l.unreadable).sum();
+    if unreadable > 0 {
+        writeln!(
+            out,
+            "({} stored episode(s) could not be read back and are left out.)",
+            thousands(unreadable as u64)
+        )?;
+    }
+    let db = facts.files.store.display();
+    writeln!(out, "\nFiles")?;
+    writeln!(out, "  store   {db}")?;
+    writeln!(out, "  config  {}", facts.files.config.display())?;
+    writeln!(out, "  log     {}", facts.files.log.display())?;
+    for r in &facts.files.reports {
+        writeln!(out, "  report  {}", r.display())?;
+    }
+    writeln!(out, "\nContinue with")?;
+    writeln!(out, "  headroom episodes --db {db} --loop TIC-120")?;
+    writeln!(out, "  headroom alerts --db {db}")?;
+    writeln!(out, "  headroom loops --db {db}")?;
+    writeln!(
+        out,
+        "  headroom report --db {db} --config {} --format html --out .",
+        facts.files.config.display()
+    )?;
+    writeln!(
+        out,
+        "  headroom export --db {db} --loop TIC-130 > tic-130.csv\n  headroom analyze tic-130.csv --config {} --loop TIC-130",
+        facts.files.config.display()
+    )?;
+    Ok(())
+}
+
+/// 1234567 → "1,234,567".
+pub fn thousands(n: u64) -> String {
+    let digits = n.to_string();
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_get_thousands_separators() {
+        assert_eq!(thousands(0), "0");
+        assert_eq!(thousands(999), "999");
+        assert_eq!(thousands(1_000), "1,000");
+        assert_eq!(thousands(1_234_567), "1,234,567");
+    }
+
+    #[test]
+    fn misses_name_each_reason_with_its_count() {
+        let c = VerdictCounts {
+            met: 3,
+            tuning_limited: 1,
+            actuator_limited: 7,
+            unreachable: 1,
+            inconclusive: 0,
+        };
+        assert_eq!(misses(&c), "1 tuning, 7 actuator, 1 unreachable");
+        assert_eq!(misses(&VerdictCounts::default()), "—");
+    }
+}

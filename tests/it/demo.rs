@@ -1,0 +1,182 @@
+//! `headroom demo`, shortened to one simulated day, run as a user runs it (the built binary).
+//!
+//! - Every loop of the plant gets scored setpoint changes, and the verdicts are the ones each
+//!   loop is built to show: the well-tuned pre-heater meets its spec, the sluggish hot-water
+//!   tank is tuning-limited, the kettle's heater is actuator-limited and its 88 °C trial step is
+//!   unreachable, the buffer tank's lost level transmitter raises a stale-tag alert — and no
+//!   other loop is called stale.
+//! - The store passes SQLite's integrity check.
+//! - The demo leaves nothing behind: a second demo on the same fixed ports starts and finishes,
+//!   and the ports are free afterwards.
+
+use crate::helpers::headroom_bin;
+use headroom::analysis::Verdict;
+use headroom::store::{EpisodeRow, Store};
+use std::net::{Ipv4Addr, TcpListener};
+use std::path::Path;
+use std::process::Stdio;
+use std::time::Duration;
+
+/// A day of plant time at 8000× is about 11 s of wall time.
+const DURATION: &str = "1d";
+const SPEED: &str = "8000";
+/// Generous: the machine may be busy with every other test.
+const RUN_DEADLINE: Duration = Duration::from_secs(180);
+
+fn free_port() -> u16 {
+    TcpListener::bind((Ipv4Addr::LOCALHOST, 0))
+        .and_then(|l| l.local_addr())
+        .expect("a free port")
+        .port()
+}
+
+fn port_is_free(port: u16) -> bool {
+    TcpListener::bind((Ipv4Addr::LOCALHOST, port)).is_ok()
+}
+
+struct Finished {
+    stdout: String,
+    stderr: String,
+}
+
+/// Runs the demo to its end; panics with its output when it fails or hangs.
+async fn run_demo(out: &Path, mqtt_port: u16, modbus_port: u16) -> Finished {
+    let child = tokio::process::Command::new(headroom_bin())
+        .args(["demo", "--duration", DURATION, "--speed", SPEED, "--out"])
+        .arg(out)
+        .args(["--mqtt-port", &mqtt_port.to_string()])
+        .args(["--modbus-port", &modbus_port.to_string()])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .kill_on_drop(true)
+        .spawn()
+        .expect("start headroom demo");
+    let output = tokio::time::timeout(RUN_DEADLINE, child.wait_with_output())
+        .await
+        .expect("the demo finishes")
+        .expect("the demo's output");
+    let done = Finished {
+        stdout: String::from_utf8_lossy(&output.stdout).into_owned(),
+        stderr: String::from_utf8_lossy(&output.stderr).into_owned(),
+    };
+    let log = std::fs::read_to_string(out.join("demo.log")).unwrap_or_default();
+    assert!(
+        output.status.success(),
+        "demo failed ({:?})\nstdout:\n{}\nstderr:\n{}\nlog (end):\n{}",
+        output.status,
+        done.stdout,
+        done.stderr,
+        &log[log.len().saturating_sub(4000)..]
+    );
+    done
+}
+
+fn finals(rows: &[EpisodeRow], tag: &str) -> Vec<EpisodeRow> {
+    rows.iter()
+        .filter(|r| r.loop_tag == tag && r.is_final)
+        .cloned()
+        .collect()
+}
+
+fn count(rows: &[EpisodeRow], v: Verdict) -> usize {
+    rows.iter().filter(|r| r.verdict == v).count()
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_short_demo_shows_each_loops_story_and_leaves_nothing_behind() {
+    let dir = tempfile::Builder::new()
+        .prefix("headroom-demo-")
+        .tempdir()
+        .expect("temp dir");
+    let (mqtt_port, modbus_port) = (free_port(), free_port());
+
+    let first = run_demo(&dir.path().join("first"), mqtt_port, modbus_port).await;
+    assert!(
+        port_is_free(mqtt_port) && port_is_free(modbus_port),
+        "the demo left a port open"
+    );
+
+    let db = dir.path().join("first").join("heronreach.db");
+    let store = Store::open_read_only(&db).await.expect("the demo's store");
+    assert_eq!(
+        store.integrity_check().await.expect("integrity check"),
+        "ok"
+    );
+    let rows = store.episodes(None, None).await.expect("episodes");
+    let tags = [
+        "FIC-101", "TIC-110", "TIC-120", "TIC-130", "TIC-140", "LIC-150",
+    ];
+    for tag in tags {
+        assert!(
+            !finals(&rows, tag).is_empty(),
+            "{tag} has no scored setpoint change"
+        );
+        assert!(
+            first.stdout.contains(tag),
+            "the summary leaves out {tag}:\n{}",
+            first.stdout
+        );
+    }
+
+    // The well-tuned pre-heater meets its spec.
+    let pre = finals(&rows, "TIC-110");
+    assert!(count(&pre, Verdict::Met) >= 5, "TIC-110: {pre:#?}");
+    assert_eq!(
+        count(&pre, Verdict::TuningLimited)
+            + count(&pre, Verdict::ActuatorLimited)
+            + count(&pre, Verdict::Unreachable),
+        0,
+        "TIC-110 should meet its spec: {pre:#?}"
+    );
+
+    // The sluggish hot-water tank misses for its tuning, with the actuator to spare.
+    let tank = finals(&rows, "TIC-130");
+    let tuning = count(&tank, Verdict::TuningLimited);
+    assert!(
+        tuning >= 3 && tuning > count(&tank, Verdict::Met) + count(&tank, Verdict::ActuatorLimited),
+        "TIC-130 should be tuning-limited: {tank:#?}"
+    );
+
+    // The kettle's heater: actuator-limited rises, and the 88 °C trial unreachable.
+    let kettle = finals(&rows, "TIC-120");
+    assert!(
+        count(&kettle, Verdict::ActuatorLimited) >= 2,
+        "TIC-120 should be actuator-limited: {kettle:#?}"
+    );
+    let trial: Vec<&EpisodeRow> = kettle
+        .iter()
+        .filter(|r| r.detail["sp_to"].as_f64() == Some(88.0))
+        .collect();
+    assert_eq!(trial.len(), 1, "the trial step: {kettle:#?}");
+    assert_eq!(trial[0].verdict, Verdict::Unreachable, "{:#?}", trial[0]);
+
+    // The lost level transmitter raises a stale-tag alert, and nothing else is called stale.
+    let alerts = store.alerts(false).await.expect("alerts");
+    let stale: Vec<&str> = alerts
+        .iter()
+        .filter(|a| a.kind == "stale_tag")
+        .map(|a| a.loop_tag.as_str())
+        .collect();
+    assert_eq!(stale, ["LIC-150"], "stale alerts: {alerts:#?}");
+
+    // The summary carries the caution with its recommendations.
+    assert!(
+        first.stdout.contains("Advisory only"),
+        "no caution in the summary:\n{}",
+        first.stdout
+    );
+    store.close().await;
+
+    // Again on the same ports: nothing of the first run is in the way.
+    let second = run_demo(&dir.path().join("second"), mqtt_port, modbus_port).await;
+    assert!(
+        second.stdout.contains("TIC-120"),
+        "second run:\n{}\n{}",
+        second.stdout,
+        second.stderr
+    );
+    assert!(
+        port_is_free(mqtt_port) && port_is_free(modbus_port),
+        "the second demo left a port open"
+    );
+}
