@@ -359,6 +359,15 @@ pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, Str
     Ok(svg)
 }
 
+/// A period's label short enough for a trend axis: `W48` for an ISO week, the end's month and
+/// day (`12-02`) for a free range.
+fn axis_label(label: &str) -> String {
+    match label.split_once(" to ") {
+        Some((_, end)) => end.get(5..10).unwrap_or(end).to_string(),
+        None => label.rsplit('-').next().unwrap_or(label).to_string(),
+    }
+}
+
 fn draw_trend(
     root: &DrawingArea<SVGBackend, Shift>,
     weeks: &[TrendWeek],
@@ -367,10 +376,7 @@ fn draw_trend(
     root.fill(&WHITE)?;
     let (left, right) = root.split_horizontally(380);
     let n = weeks.len().max(1);
-    let labels: Vec<String> = weeks
-        .iter()
-        .map(|w| w.label.rsplit('-').next().unwrap_or(&w.label).to_string())
-        .collect();
+    let labels: Vec<String> = weeks.iter().map(|w| axis_label(&w.label)).collect();
     let label_of = |x: &f64| {
         let i = x.round();
         if (x - i).abs() < 1e-6 && i >= 0.0 {
@@ -478,6 +484,12 @@ fn draw_segments(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn trend_axis_labels_are_short() {
+        assert_eq!(axis_label("2026-W48"), "W48");
+        assert_eq!(axis_label("2026-11-25 08:03 to 2026-12-02 08:03"), "12-02");
+    }
 
     #[test]
     fn saturated_stretches_cover_the_samples_at_either_limit() {
