@@ -367,7 +367,7 @@ impl LoopTracker {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+    use crate::analysis::sim::{LoopSim, LoopSimConfig};
     use crate::analysis::{AnalysisOptions, OpRange, Spec, analyze_loop};
 
     fn setup() -> LoopSetup {
@@ -390,25 +390,7 @@ mod tests {
     }
 
     fn simulated() -> Vec<Row> {
-        let mut sim = LoopSim::new(LoopSimConfig {
-            process: Process {
-                gain: 0.8,
-                time_constant_s: 300.0,
-                second_time_constant_s: 0.0,
-                dead_time_s: 30.0,
-                bias: 20.0,
-            },
-            controller: PiController {
-                gain: 6.25,
-                integral_time_s: 240.0,
-                op_min: 0.0,
-                op_max: 60.0,
-            },
-            step_s: 0.2,
-            noise_sd: 0.02,
-            seed: 3,
-            initial_sp: 50.0,
-        });
+        let mut sim = LoopSim::new(LoopSimConfig::jacketed_vessel(60.0, 3));
         let schedule = [
             (600.0, 55.0),
             (4200.0, 66.0),

@@ -20,6 +20,40 @@ pub struct Process {
     pub bias: f64,
 }
 
+impl Process {
+    /// The jacketed vessel the examples, tests and bench use: K = 0.8 °C/% of steam valve,
+    /// τ = 300 s, θ = 30 s, ambient 20 °C (invented; with the valve at 60 % the PV can reach at
+    /// most 20 + 0.8 · 60 = 68 °C).
+    pub const JACKETED_VESSEL: Process = Process {
+        gain: 0.8,
+        time_constant_s: 300.0,
+        second_time_constant_s: 0.0,
+        dead_time_s: 30.0,
+        bias: 20.0,
+    };
+}
+
+impl LoopSimConfig {
+    /// [`Process::JACKETED_VESSEL`] under a PI controller (Kc 6.25 %/°C, τI 240 s) whose valve
+    /// saturates at `op_max`, stepped every 0.2 s with 0.02 °C of measurement noise, starting at
+    /// steady state at 50 °C.
+    pub fn jacketed_vessel(op_max: f64, seed: u64) -> LoopSimConfig {
+        LoopSimConfig {
+            process: Process::JACKETED_VESSEL,
+            controller: PiController {
+                gain: 6.25,
+                integral_time_s: 240.0,
+                op_min: 0.0,
+                op_max,
+            },
+            step_s: 0.2,
+            noise_sd: 0.02,
+            seed,
+            initial_sp: 50.0,
+        }
+    }
+}
+
 /// A PI controller in velocity form acting on the error `SP − PV`, with the output clamped to
 /// the actuator range. The velocity form stops integrating while the output is clamped, which is
 /// the usual anti-windup of industrial controllers (common practice).

@@ -192,13 +192,7 @@ fn median_time(n: usize, mut f: impl FnMut()) -> f64 {
 /// alternating sizes so every verdict kind can occur.
 pub fn week_of_one_loop() -> (Series, LoopSetup) {
     let mut sim = LoopSim::new(LoopSimConfig {
-        process: Process {
-            gain: 0.8,
-            time_constant_s: 300.0,
-            second_time_constant_s: 0.0,
-            dead_time_s: 30.0,
-            bias: 20.0,
-        },
+        process: Process::JACKETED_VESSEL,
         controller: PiController {
             gain: 4.0,
             integral_time_s: 300.0,

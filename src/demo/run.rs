@@ -154,7 +154,7 @@ fn layout_sources(layout: &[Register; 3]) -> String {
     ["sp", "pv", "op"]
         .iter()
         .zip(layout)
-        .map(|(s, r)| format!("{s} = {}", r.toml()))
+        .map(|(s, r)| format!("{s} = {}", registers::toml(r)))
         .collect::<Vec<_>>()
         .join("\n")
 }
@@ -308,7 +308,7 @@ impl PlantSide {
                 let r = plant.current(i);
                 for (reg, v) in layout.iter().zip([Some(r.sp), r.pv, Some(r.op)]) {
                     if let Some(v) = v {
-                        reg.write(map, v);
+                        map.put(reg, v);
                     }
                 }
             }

@@ -7,7 +7,7 @@
 //!
 //! The server task ends when the [`SimDevice`] is dropped; its open connections end with it.
 
-use super::registers::{DataType, Order, RegisterError, Table, encode};
+use super::registers::{DataType, Order, RegisterError, Source, Table, encode};
 use std::future::{Ready, ready};
 use std::io;
 use std::net::{Ipv4Addr, SocketAddr};
@@ -55,6 +55,37 @@ impl RegisterMap {
             discrete_inputs: vec![false; len],
             input_registers: vec![0; len],
             holding_registers: vec![0; len],
+        }
+    }
+
+    /// Stores `value` (engineering units) where `source` reads it, as a device would hold it:
+    /// the raw value the source's scaling turns back into `value`, integer types rounded and
+    /// kept in range. A bit source is set when `value` is not 0. Out of the map: nothing is
+    /// stored.
+    pub fn put(&mut self, source: &Source, value: f64) {
+        let start = usize::from(source.address.get());
+        if let Some(bits) = self.bits_mut(source.table) {
+            if let Some(b) = bits.get_mut(start) {
+                *b = value != 0.0;
+            }
+            return;
+        }
+        let raw = source.scaling.raw_for(value);
+        let raw = match source.data_type {
+            DataType::U16 => raw.round().clamp(0.0, f64::from(u16::MAX)),
+            DataType::I16 => raw.round().clamp(f64::from(i16::MIN), f64::from(i16::MAX)),
+            DataType::U32 => raw.round().clamp(0.0, f64::from(u32::MAX)),
+            DataType::I32 => raw.round().clamp(f64::from(i32::MIN), f64::from(i32::MAX)),
+            _ => raw,
+        };
+        let (Ok(words), Some(table)) = (
+            encode(raw, source.data_type, source.order),
+            self.words_mut(source.table),
+        ) else {
+            return;
+        };
+        if let Some(slot) = table.get_mut(start..start + words.len()) {
+            slot.copy_from_slice(&words);
         }
     }
 

@@ -479,6 +479,19 @@ impl Scaling {
         })
     }
 
+    /// The raw value that [`Scaling::apply`] turns into `eng` (what a simulated device stores).
+    pub fn raw_for(self, eng: f64) -> f64 {
+        match self {
+            Scaling::Linear { scale, offset } => (eng - offset) / scale,
+            Scaling::Range {
+                raw_lo,
+                raw_hi,
+                eng_lo,
+                eng_hi,
+            } => raw_lo + (eng - eng_lo) * (raw_hi - raw_lo) / (eng_hi - eng_lo),
+        }
+    }
+
     pub fn apply(self, raw: f64) -> f64 {
         match self {
             Scaling::Linear { scale, offset } => raw * scale + offset,
@@ -776,6 +789,20 @@ mod tests {
         assert!(Scaling::range(5.0, 5.0, 0.0, 1.0).is_err());
         assert!(Scaling::range(0.0, 1.0, 2.0, 2.0).is_err());
         assert!(Scaling::range(0.0, f64::INFINITY, 0.0, 1.0).is_err());
+    }
+
+    #[test]
+    fn raw_for_undoes_apply() {
+        // A 0-27648 count for 0-150 °C: 50 °C is a third of the count.
+        let range = Scaling::range(0.0, 27_648.0, 0.0, 150.0).unwrap();
+        assert_eq!(range.raw_for(50.0), 9_216.0);
+        let linear = Scaling::linear(0.1, -5.0).unwrap();
+        assert_eq!(linear.raw_for(20.0), 250.0);
+        for s in [range, linear, Scaling::IDENTITY] {
+            for eng in [-3.5, 0.0, 72.25] {
+                assert!((s.apply(s.raw_for(eng)) - eng).abs() < 1e-9, "{s:?} {eng}");
+            }
+        }
     }
 
     #[test]

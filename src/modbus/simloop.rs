@@ -12,7 +12,7 @@
 //! test can watch hours of plant in minutes.
 
 use super::device::SimDevice;
-use super::registers::{DataType, Order, Table, encode};
+use super::registers::{Address, DataType, Order, Scaling, Source, Table};
 use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use std::sync::{Arc, Weak};
 use std::time::Duration;
@@ -118,25 +118,37 @@ impl ServedLoop {
     }
 }
 
-/// Writes one loop's values into the device's registers.
+/// Writes one loop's values into the device's registers, and sets its auto flag.
 fn publish(device: &SimDevice, layout: LoopLayout, sp: f64, pv: f64, op: f64) {
     device.with_map(|m| {
         for (address, value) in [(layout.sp(), sp), (layout.pv(), pv), (layout.op(), op)] {
-            let words = encode(f64::from(value as f32), DataType::F32, Order::Abcd)
-                .expect("an f32 always encodes");
-            if let Some(t) = m.words_mut(Table::HoldingRegisters) {
-                let a = usize::from(address);
-                if a + 2 <= t.len() {
-                    t[a..a + 2].copy_from_slice(&words);
-                }
-            }
+            m.put(&value_source(address), value);
         }
-        if let Some(bits) = m.bits_mut(Table::Coils)
-            && let Some(b) = bits.get_mut(usize::from(layout.auto_coil))
-        {
-            *b = true;
-        }
+        m.put(&auto_source(layout.auto_coil), 1.0);
     });
+}
+
+/// An f32 (ABCD) in two holding registers from `address`.
+fn value_source(address: u16) -> Source {
+    Source::new(
+        Table::HoldingRegisters,
+        Address::new(address),
+        DataType::F32,
+        Order::Abcd,
+        Scaling::IDENTITY,
+    )
+    .expect("an f32 fits below the last address of a loop layout")
+}
+
+fn auto_source(coil: u16) -> Source {
+    Source::new(
+        Table::Coils,
+        Address::new(coil),
+        DataType::Bool,
+        Order::Abcd,
+        Scaling::IDENTITY,
+    )
+    .expect("a coil is a valid bit source")
 }
 
 impl SimDevice {

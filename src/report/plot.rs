@@ -387,24 +387,14 @@ fn draw_trend(
     };
     let x_range = -0.5..(n as f64 - 0.5);
 
-    let mut chart = ChartBuilder::on(&left)
-        .caption(
-            "met the spec (% of judged changes)",
-            (FONT, 15).into_font().color(&INK),
-        )
-        .margin(8)
-        .x_label_area_size(22)
-        .y_label_area_size(40)
-        .build_cartesian_2d(x_range.clone(), 0.0..105.0)?;
-    chart
-        .configure_mesh()
-        .light_line_style(WHITE)
-        .bold_line_style(GRID_BOLD)
-        .x_labels(n)
-        .x_label_formatter(&label_of)
-        .y_labels(6)
-        .label_style((FONT, 14).into_font().color(&INK))
-        .draw()?;
+    let mut chart = trend_chart(
+        &left,
+        "met the spec (% of judged changes)",
+        40,
+        (x_range.clone(), 0.0..105.0),
+        &label_of,
+        n,
+    )?;
     let shares: Vec<Option<(f64, f64)>> = weeks
         .iter()
         .enumerate()
@@ -424,24 +414,14 @@ fn draw_trend(
         .chain(spec.map(|s| s.settle_within_s))
         .fold(1.0_f64, f64::max)
         * 1.15;
-    let mut chart = ChartBuilder::on(&right)
-        .caption(
-            "median settling time (s); dashed: spec",
-            (FONT, 15).into_font().color(&INK),
-        )
-        .margin(8)
-        .x_label_area_size(22)
-        .y_label_area_size(48)
-        .build_cartesian_2d(x_range, 0.0..top)?;
-    chart
-        .configure_mesh()
-        .light_line_style(WHITE)
-        .bold_line_style(GRID_BOLD)
-        .x_labels(n)
-        .x_label_formatter(&label_of)
-        .y_labels(6)
-        .label_style((FONT, 14).into_font().color(&INK))
-        .draw()?;
+    let mut chart = trend_chart(
+        &right,
+        "median settling time (s); dashed: spec",
+        48,
+        (x_range, 0.0..top),
+        &label_of,
+        n,
+    )?;
     if let Some(s) = spec {
         chart.draw_series(DashedLineSeries::new(
             [
@@ -457,12 +437,42 @@ fn draw_trend(
     Ok(())
 }
 
+type TrendChart<'a, 'b> = ChartContext<
+    'a,
+    SVGBackend<'b>,
+    Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+>;
+
+/// One of the two trend charts: its caption, axes and grid, with week labels on the x axis.
+fn trend_chart<'a, 'b>(
+    area: &'a DrawingArea<SVGBackend<'b>, Shift>,
+    caption: &str,
+    y_label_area: u32,
+    (x, y): (std::ops::Range<f64>, std::ops::Range<f64>),
+    label_of: &dyn Fn(&f64) -> String,
+    weeks: usize,
+) -> Result<TrendChart<'a, 'b>, Box<dyn std::error::Error>> {
+    let mut chart = ChartBuilder::on(area)
+        .caption(caption, (FONT, 15).into_font().color(&INK))
+        .margin(8)
+        .x_label_area_size(22)
+        .y_label_area_size(y_label_area)
+        .build_cartesian_2d(x, y)?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .x_labels(weeks)
+        .x_label_formatter(label_of)
+        .y_labels(6)
+        .label_style((FONT, 14).into_font().color(&INK))
+        .draw()?;
+    Ok(chart)
+}
+
 /// A line through the weeks that have a value, broken where one has none, with a dot per week.
 fn draw_segments(
-    chart: &mut ChartContext<
-        SVGBackend,
-        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
-    >,
+    chart: &mut TrendChart,
     points: &[Option<(f64, f64)>],
     colour: RGBColor,
 ) -> DrawResult {

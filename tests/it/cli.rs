@@ -1,31 +1,13 @@
 //! The `headroom analyze` command as users meet it: table, JSON contract, flags and exit codes.
 
 use crate::helpers::headroom_bin;
-use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use headroom::analysis::sim::{LoopSim, LoopSimConfig};
 use std::io::Write;
 use std::process::{Command, Output};
 
 /// Writes a CSV of a simulated heating loop (K 0.8, τ 300 s, θ 30 s) with three setpoint steps.
 fn loop_csv(dir: &std::path::Path, rfc3339: bool) -> std::path::PathBuf {
-    let mut sim = LoopSim::new(LoopSimConfig {
-        process: Process {
-            gain: 0.8,
-            time_constant_s: 300.0,
-            second_time_constant_s: 0.0,
-            dead_time_s: 30.0,
-            bias: 20.0,
-        },
-        controller: PiController {
-            gain: 6.25,
-            integral_time_s: 240.0,
-            op_min: 0.0,
-            op_max: 100.0,
-        },
-        step_s: 0.2,
-        noise_sd: 0.02,
-        seed: 5,
-        initial_sp: 50.0,
-    });
+    let mut sim = LoopSim::new(LoopSimConfig::jacketed_vessel(100.0, 5));
     let samples = sim.run(
         &[(600.0, 55.0), (4200.0, 52.0), (7800.0, 57.0)],
         11_400.0,

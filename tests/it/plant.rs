@@ -5,32 +5,13 @@
 
 use crate::clients::Message;
 use crate::harness::{LoopTopics, SampleKey};
-use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process, SimSample};
+use headroom::analysis::sim::{LoopSim, LoopSimConfig, SimSample};
 use headroom::sample::Signal;
 
-/// The jacketed vessel of the analysis tests: K = 0.8 °C/%, τ = 300 s, θ = 30 s, ambient 20 °C,
-/// under a PI controller (Kc 6.25 %/°C, τI 240 s) whose steam valve saturates at `op_max`.
-/// With `op_max` = 60 the PV can reach at most 20 + 0.8 · 60 = 68 °C.
+/// The simulator's jacketed vessel (`LoopSimConfig::jacketed_vessel`), its steam valve
+/// saturating at `op_max`.
 pub fn vessel(op_max: f64, seed: u64) -> LoopSim {
-    LoopSim::new(LoopSimConfig {
-        process: Process {
-            gain: 0.8,
-            time_constant_s: 300.0,
-            second_time_constant_s: 0.0,
-            dead_time_s: 30.0,
-            bias: 20.0,
-        },
-        controller: PiController {
-            gain: 6.25,
-            integral_time_s: 240.0,
-            op_min: 0.0,
-            op_max,
-        },
-        step_s: 0.2,
-        noise_sd: 0.02,
-        seed,
-        initial_sp: 50.0,
-    })
+    LoopSim::new(LoopSimConfig::jacketed_vessel(op_max, seed))
 }
 
 /// Whole epoch milliseconds, `ago_s` seconds before now, rounded down to a whole second.

@@ -2,7 +2,7 @@
 //! `export`, on a store filled through the store's own API.
 
 use crate::helpers::headroom_bin;
-use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use headroom::analysis::sim::{LoopSim, LoopSimConfig};
 use headroom::analysis::{AnalysisOptions, LoopSetup, OpRange, Series, Spec, analyze_loop};
 use headroom::sample::{Sample, Signal};
 use headroom::store::{AlertInput, Store};
@@ -22,23 +22,9 @@ fn run(args: &[&str]) -> (i32, String, String) {
 async fn filled_store(path: &std::path::Path) -> (Store, i64) {
     let store = Store::open(path).await.unwrap();
     let mut sim = LoopSim::new(LoopSimConfig {
-        process: Process {
-            gain: 0.8,
-            time_constant_s: 300.0,
-            second_time_constant_s: 0.0,
-            dead_time_s: 30.0,
-            bias: 20.0,
-        },
-        controller: PiController {
-            gain: 6.25,
-            integral_time_s: 240.0,
-            op_min: 0.0,
-            op_max: 100.0,
-        },
         step_s: 0.5,
         noise_sd: 0.0,
-        seed: 1,
-        initial_sp: 50.0,
+        ..LoopSimConfig::jacketed_vessel(100.0, 1)
     });
     let rows = sim.run(&[(600.0, 55.0), (4200.0, 52.0)], 7200.0, 5.0);
     let origin = jiff::Timestamp::now().as_millisecond() - 3 * 3_600_000;

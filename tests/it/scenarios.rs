@@ -57,13 +57,7 @@ pub fn analyze(s: &Scenario, seed: u64) -> LoopReport {
 /// A jacketed vessel heated through a valve: K = 0.8 °C/%, τ = 300 s, θ = 30 s, ambient 20 °C.
 fn vessel(kc: f64, ti: f64, op_max: f64, schedule: Vec<(f64, f64)>) -> Scenario {
     Scenario {
-        process: Process {
-            gain: 0.8,
-            time_constant_s: 300.0,
-            second_time_constant_s: 0.0,
-            dead_time_s: 30.0,
-            bias: 20.0,
-        },
+        process: Process::JACKETED_VESSEL,
         controller: PiController {
             gain: kc,
             integral_time_s: ti,
