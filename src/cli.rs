@@ -2,8 +2,8 @@
 //! glue the library together. Errors here carry context for people (anyhow); `main` maps them to
 //! exit codes.
 
-use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Spec};
-use crate::config::{self, Config};
+use crate::analysis::{self, AutoValues, LoopSetup, Setting, Spec};
+use crate::config::Config;
 use crate::csvload::{self, CsvColumns, CsvOptions};
 use crate::render;
 use anyhow::Context;
@@ -171,7 +171,9 @@ pub struct AnalyzeArgs {
     /// Name of an optional mode column; windows end where the loop leaves automatic.
     #[arg(long, value_name = "NAME")]
     pub mode_col: Option<String>,
-    /// Mode values that mean automatic (comma-separated; any non-zero number also does).
+    /// Mode values that mean automatic (comma-separated; default AUTO, CAS, ON, TRUE, or the
+    /// loop's auto_values with --config). Numbers in the list are the only automatic numbers;
+    /// without any, every non-zero number means automatic.
     #[arg(long, value_delimiter = ',', value_name = "LIST")]
     pub auto_values: Option<Vec<String>>,
 
@@ -214,11 +216,26 @@ pub struct AnalyzeArgs {
 pub struct UsageError(pub String);
 
 impl AnalyzeArgs {
-    /// Resolves flags and config into one analysis setup; flags win over the config file.
-    pub fn setup(&self) -> anyhow::Result<LoopSetup> {
+    /// Resolves flags and config into one analysis setup and CSV options; flags win over the
+    /// config file. Every number is checked by the core's rules before any analysis runs, and a
+    /// refused one is named by its flag.
+    pub fn setup(&self) -> anyhow::Result<(LoopSetup, CsvOptions)> {
+        let mut csv = CsvOptions {
+            columns: CsvColumns {
+                time: self.time_col.clone(),
+                sp: self.sp_col.clone(),
+                pv: self.pv_col.clone(),
+                op: self.op_col.clone(),
+                mode: self.mode_col.clone(),
+            },
+            ..CsvOptions::default()
+        };
         let mut setup = match (&self.config, &self.loop_tag) {
             (Some(path), Some(tag)) => {
                 let cfg = Config::load(path).map_err(|e| UsageError(e.to_string()))?;
+                if let Some(mode) = cfg.loops.get(tag).and_then(|l| l.mode.as_ref()) {
+                    csv.auto_values = mode.auto_values.clone();
+                }
                 cfg.loop_setup(tag, path)
                     .map_err(|e| UsageError(e.to_string()))?
             }
@@ -230,24 +247,16 @@ impl AnalyzeArgs {
                             .into(),
                     )
                 })?;
-                LoopSetup {
-                    tag: self
-                        .file
-                        .file_stem()
-                        .map_or("loop".into(), |s| s.to_string_lossy().into_owned()),
-                    op: OpRange {
-                        min: 0.0,
-                        max: 100.0,
-                    },
-                    spec: Spec {
-                        settle_band_pct: 2.0,
-                        settle_within_s: within,
-                        max_overshoot_pct: None,
-                    },
-                    options: AnalysisOptions::default(),
-                }
+                let tag = self
+                    .file
+                    .file_stem()
+                    .map_or("loop".into(), |s| s.to_string_lossy().into_owned());
+                LoopSetup::new(tag, Spec::within(within))
             }
         };
+        if let Some(v) = &self.auto_values {
+            csv.auto_values = AutoValues::new(v);
+        }
         if let Some(v) = self.op_min {
             setup.op.min = v;
         }
@@ -272,41 +281,34 @@ impl AnalyzeArgs {
         if let Some(t) = &self.tag {
             setup.tag = t.clone();
         }
-        if !(setup.op.min.is_finite() && setup.op.max.is_finite() && setup.op.min < setup.op.max) {
-            return Err(UsageError(format!(
-                "--op-min ({}) must be below --op-max ({})",
-                setup.op.min, setup.op.max
-            ))
-            .into());
-        }
-        config::validate_spec(&setup.spec).map_err(UsageError)?;
-        Ok(setup)
+        setup
+            .validate()
+            .map_err(|p| UsageError(p.message(analyze_flag)))?;
+        Ok((setup, csv))
     }
+}
 
-    fn csv_options(&self) -> CsvOptions {
-        let mut o = CsvOptions {
-            columns: CsvColumns {
-                time: self.time_col.clone(),
-                sp: self.sp_col.clone(),
-                pv: self.pv_col.clone(),
-                op: self.op_col.clone(),
-                mode: self.mode_col.clone(),
-            },
-            ..CsvOptions::default()
-        };
-        if let Some(v) = &self.auto_values {
-            o.auto_values = v.clone();
-        }
-        o
+/// A setting's name as `analyze` takes it: its flag, or its key in the config file where no
+/// flag sets it.
+fn analyze_flag(setting: Setting) -> &'static str {
+    match setting {
+        Setting::SettleBandPct => "--settle-band-pct",
+        Setting::SettleWithinS => "--settle-within-s",
+        Setting::MaxOvershootPct => "--max-overshoot-pct",
+        Setting::OpMin => "--op-min",
+        Setting::OpMax => "--op-max",
+        Setting::SpDeadband => "--sp-deadband",
+        Setting::MaxGapS => "--max-gap-s",
+        other => other.key(),
     }
 }
 
 /// `headroom analyze`: load, analyse, print.
 pub fn analyze(args: &AnalyzeArgs, out: &mut dyn std::io::Write) -> anyhow::Result<()> {
-    let setup = args.setup()?;
+    let (setup, csv_options) = args.setup()?;
     let file = std::fs::File::open(&args.file)
         .with_context(|| format!("cannot open {}", args.file.display()))?;
-    let loaded = csvload::load_csv(std::io::BufReader::new(file), &args.csv_options())
+    let loaded = csvload::load_csv(std::io::BufReader::new(file), &csv_options)
         .map_err(|e| UsageError(format!("{}: {e}", args.file.display())))?;
     let report = analysis::analyze_loop(&loaded.series, &setup);
     if args.json {

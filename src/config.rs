@@ -46,7 +46,7 @@
 //!   Modbus TCP device (`[modbus.<name>]`, see [`modbus`]); one loop may mix both. Register
 //!   sources that overlap on one device are refused, like overlapping topic filters.
 
-use crate::analysis::{AnalysisOptions, LoopSetup, OpRange, Spec};
+use crate::analysis::{self, AnalysisOptions, AutoValues, LoopSetup, OpRange, Setting, Spec};
 use crate::ingest::topic;
 use crate::sample::Signal;
 use serde::Deserialize;
@@ -82,11 +82,12 @@ pub enum ConfigError {
         path: PathBuf,
         problems: Vec<Problem>,
     },
-    #[error("{path}: loop {tag}: {message}")]
+    #[error("{path}: loop {tag}: {problem}")]
     Loop {
         path: PathBuf,
         tag: String,
-        message: String,
+        #[source]
+        problem: analysis::Problem,
     },
     #[error("{path}: no loop tagged {tag} (loops in this file: {known})")]
     UnknownLoop {
@@ -336,7 +337,7 @@ pub struct SpecConfig {
 }
 
 fn default_band() -> f64 {
-    2.0
+    Spec::DEFAULT_SETTLE_BAND_PCT
 }
 
 /// Optional analysis settings per loop; anything left out is derived from the data.
@@ -411,95 +412,6 @@ pub struct ModeSource {
     pub auto_values: AutoValues,
 }
 
-/// The mode values that mean automatic (or cascade); any other value means not automatic.
-///
-/// Words compare ignoring case. Numbers: when the list holds numbers, a numeric mode is automatic
-/// exactly when it equals one of them (for controllers that publish an enumeration such as
-/// 0 manual, 1 auto, 2 cascade, 3 tracking); when the list holds only words, any non-zero
-/// number is automatic (a 0/1 flag), as in a CSV export's mode column. Text that reads as a
-/// number counts as that number; JSON `true`/`false` count as 1/0.
-#[derive(Debug, Clone, PartialEq)]
-pub struct AutoValues {
-    /// As written, for display.
-    written: Vec<String>,
-    /// The non-numeric values, lower-cased.
-    words: Vec<String>,
-    /// The numeric values.
-    numbers: Vec<f64>,
-}
-
-/// The automatic values when the config gives none: the usual words, and any non-zero number.
-pub const DEFAULT_AUTO_VALUES: [&str; 4] = ["AUTO", "CAS", "ON", "TRUE"];
-
-impl AutoValues {
-    pub fn new<S: AsRef<str>>(values: &[S]) -> AutoValues {
-        let mut words = Vec::new();
-        let mut numbers = Vec::new();
-        for v in values {
-            let v = v.as_ref().trim();
-            match v.parse::<f64>() {
-                Ok(n) if n.is_finite() => numbers.push(n),
-                _ => words.push(v.to_lowercase()),
-            }
-        }
-        AutoValues {
-            written: values.iter().map(|v| v.as_ref().to_owned()).collect(),
-            words,
-            numbers,
-        }
-    }
-
-    /// Whether a numeric mode value means automatic.
-    pub fn is_auto_number(&self, value: f64) -> bool {
-        if self.numbers.is_empty() {
-            value != 0.0
-        } else {
-            self.numbers.contains(&value)
-        }
-    }
-
-    /// Whether a text mode value means automatic; text that reads as a finite number is judged
-    /// as that number.
-    pub fn is_auto_text(&self, text: &str) -> bool {
-        let text = text.trim();
-        match text.parse::<f64>() {
-            Ok(n) if n.is_finite() => self.is_auto_number(n),
-            _ => {
-                if text.is_ascii() {
-                    self.words.iter().any(|w| text.eq_ignore_ascii_case(w))
-                } else {
-                    self.words.contains(&text.to_lowercase())
-                }
-            }
-        }
-    }
-
-    /// The values as written in the config.
-    pub fn written(&self) -> &[String] {
-        &self.written
-    }
-
-    /// The rule in words, e.g. `AUTO, CAS (any case) or any non-zero number`.
-    pub fn describe(&self) -> String {
-        let (words, numbers): (Vec<&String>, Vec<&String>) = self
-            .written
-            .iter()
-            .partition(|w| !matches!(w.trim().parse::<f64>(), Ok(n) if n.is_finite()));
-        let join = |v: &[&String]| v.iter().map(|s| s.as_str()).collect::<Vec<_>>().join(", ");
-        match (words.is_empty(), numbers.is_empty()) {
-            (false, true) => format!("{} (any case) or any non-zero number", join(&words)),
-            (false, false) => format!("{} (any case) or one of {}", join(&words), join(&numbers)),
-            (true, _) => format!("one of {}", join(&numbers)),
-        }
-    }
-}
-
-impl Default for AutoValues {
-    fn default() -> Self {
-        AutoValues::new(&DEFAULT_AUTO_VALUES)
-    }
-}
-
 impl LoopConfig {
     /// The source of one signal.
     pub fn source(&self, signal: Signal) -> Option<&Source> {
@@ -531,32 +443,44 @@ impl LoopConfig {
     }
 
     /// Turns the loop's section into an analysis setup, checking the spec's values.
-    pub fn setup(&self, tag: &str) -> Result<LoopSetup, String> {
-        let spec = Spec {
-            settle_band_pct: self.spec.settle_band_pct,
-            settle_within_s: self.spec.settle_within_s,
-            max_overshoot_pct: self.spec.max_overshoot_pct,
+    pub fn setup(&self, tag: &str) -> Result<LoopSetup, analysis::Problem> {
+        let op = OpRange {
+            min: self.op_min,
+            max: self.op_max,
         };
-        validate_spec(&spec)?;
-        let mut options = AnalysisOptions {
-            sp_deadband: self.analysis.sp_deadband,
-            sp_hold_s: self.analysis.sp_hold_s,
-            max_gap_s: self.analysis.max_gap_s,
-            expected_period_s: self.expected_period_s,
-            ..AnalysisOptions::default()
-        };
-        if let Some(r) = self.analysis.upgrade_ratio_limit {
-            options.upgrade_ratio_limit = r;
-        }
-        Ok(LoopSetup {
-            tag: tag.to_owned(),
-            op: OpRange {
-                min: self.op_min,
-                max: self.op_max,
-            },
-            spec,
-            options,
-        })
+        let setup = setup_as_written(tag, op, &self.spec, &self.analysis, self.expected_period_s);
+        setup.validate()?;
+        Ok(setup)
+    }
+}
+
+/// A loop's analysis setup as written, before the core's validation.
+fn setup_as_written(
+    tag: &str,
+    op: OpRange,
+    spec: &SpecConfig,
+    analysis: &AnalysisConfig,
+    expected_period_s: Option<f64>,
+) -> LoopSetup {
+    let mut options = AnalysisOptions {
+        sp_deadband: analysis.sp_deadband,
+        sp_hold_s: analysis.sp_hold_s,
+        max_gap_s: analysis.max_gap_s,
+        expected_period_s,
+        ..AnalysisOptions::default()
+    };
+    if let Some(r) = analysis.upgrade_ratio_limit {
+        options.upgrade_ratio_limit = r;
+    }
+    LoopSetup {
+        tag: tag.to_owned(),
+        op,
+        spec: Spec {
+            settle_band_pct: spec.settle_band_pct,
+            settle_within_s: spec.settle_within_s,
+            max_overshoot_pct: spec.max_overshoot_pct,
+        },
+        options,
     }
 }
 
@@ -710,10 +634,10 @@ impl Config {
                 tag: tag.to_owned(),
                 known: self.loops.keys().cloned().collect::<Vec<_>>().join(", "),
             })?;
-        l.setup(tag).map_err(|message| ConfigError::Loop {
+        l.setup(tag).map_err(|problem| ConfigError::Loop {
             path: path.to_owned(),
             tag: tag.to_owned(),
-            message,
+            problem,
         })
     }
 
@@ -1191,47 +1115,33 @@ impl Checker<'_> {
         if let Some(m) = tag_problem(tag) {
             self.problem(&["loops", tag], m);
         }
-        if !(raw.op_min.is_finite() && raw.op_max.is_finite() && raw.op_min < raw.op_max) {
-            self.problem(
-                &at("op_max"),
-                format!(
-                    "op_min ({}) must be below op_max ({})",
-                    raw.op_min, raw.op_max
-                ),
-            );
-        }
-        let spec = Spec {
-            settle_band_pct: raw.spec.settle_band_pct,
-            settle_within_s: raw.spec.settle_within_s,
-            max_overshoot_pct: raw.spec.max_overshoot_pct,
+        let op = OpRange {
+            min: raw.op_min,
+            max: raw.op_max,
         };
-        for (key, message) in spec_problems(&spec) {
-            self.problem(&["loops", tag, "spec", key], message);
-        }
-        let a = raw.analysis;
-        for (key, v, zero_ok) in [
-            ("sp_deadband", a.sp_deadband, true),
-            ("sp_hold_s", a.sp_hold_s, false),
-            ("max_gap_s", a.max_gap_s, false),
-            ("upgrade_ratio_limit", a.upgrade_ratio_limit, false),
-        ] {
-            if let Some(v) = v
-                && !(v.is_finite() && (v > 0.0 || (zero_ok && v == 0.0)))
-            {
-                let want = if zero_ok { "0 or more" } else { "above 0" };
-                self.problem(
-                    &["loops", tag, "analysis", key],
-                    format!("must be a number {want} (got {v})"),
-                );
-            }
-        }
-        if let Some(p) = raw.expected_period_s
-            && !(p.is_finite() && p > 0.0)
-        {
-            self.problem(
-                &at("expected_period_s"),
-                format!("must be a positive number of seconds (got {p})"),
-            );
+        let written = setup_as_written(tag, op, &raw.spec, &raw.analysis, raw.expected_period_s);
+        for p in written.problems() {
+            let section = match p.setting {
+                Setting::SettleBandPct | Setting::SettleWithinS | Setting::MaxOvershootPct => {
+                    Some("spec")
+                }
+                Setting::SpDeadband
+                | Setting::SpHoldS
+                | Setting::MaxGapS
+                | Setting::UpgradeRatioLimit => Some("analysis"),
+                Setting::OpMin | Setting::OpMax | Setting::ExpectedPeriodS => None,
+            };
+            // An inverted range is reported at op_max, the end usually mistyped.
+            let key = match p.other {
+                Some((other, _)) => other.key(),
+                None => p.setting.key(),
+            };
+            let keys: Vec<&str> = ["loops", tag]
+                .into_iter()
+                .chain(section)
+                .chain([key])
+                .collect();
+            self.problem(&keys, p.to_string());
         }
         let stale_after_periods = raw
             .stale_after_periods
@@ -1638,46 +1548,6 @@ fn key_path(keys: &[&str]) -> String {
         .join(".")
 }
 
-/// Checks a spec's numbers; the message names the offending key.
-pub fn validate_spec(spec: &Spec) -> Result<(), String> {
-    match spec_problems(spec).into_iter().next() {
-        Some((_, message)) => Err(message),
-        None => Ok(()),
-    }
-}
-
-/// Every problem with a spec's numbers, each with its key.
-fn spec_problems(spec: &Spec) -> Vec<(&'static str, String)> {
-    let mut out = Vec::new();
-    if !(spec.settle_band_pct > 0.0 && spec.settle_band_pct < 100.0) {
-        out.push((
-            "settle_band_pct",
-            format!(
-                "settle_band_pct must be between 0 and 100 (got {})",
-                spec.settle_band_pct
-            ),
-        ));
-    }
-    if !(spec.settle_within_s.is_finite() && spec.settle_within_s > 0.0) {
-        out.push((
-            "settle_within_s",
-            format!(
-                "settle_within_s must be a positive number of seconds (got {})",
-                spec.settle_within_s
-            ),
-        ));
-    }
-    if let Some(o) = spec.max_overshoot_pct
-        && !(o.is_finite() && o >= 0.0)
-    {
-        out.push((
-            "max_overshoot_pct",
-            format!("max_overshoot_pct must be 0 or more (got {o})"),
-        ));
-    }
-    out
-}
-
 /// 1-based line and column of a byte offset.
 fn line_col(text: &str, offset: usize) -> (usize, usize) {
     let before = &text[..offset.min(text.len())];
@@ -1762,8 +1632,8 @@ impl Checker<'_> {
                 ),
             );
         }
-        if let Err(message) = crate::report::period::time_zone(&raw.time_zone) {
-            self.problem(&["report", "time_zone"], message);
+        if let Err(e) = crate::units::time_zone(&raw.time_zone) {
+            self.problem(&["report", "time_zone"], e.to_string());
         }
         if raw.folder.as_os_str().is_empty() {
             self.problem(&["report", "folder"], "the report folder cannot be empty");

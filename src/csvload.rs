@@ -27,8 +27,9 @@
 //! - **Values.** A blank, non-numeric (quality text such as `Bad Input`) or non-finite SP, PV or
 //!   OP drops the row, counted per column and reason. Surrounding whitespace is fine.
 //! - **Mode** (optional column). Blank drops the row, because carrying the last mode forward would
-//!   be a guess. A value in [`CsvOptions::auto_values`] (any case) or a non-zero number means
-//!   automatic; anything else means manual, and the report lists the texts it read as manual.
+//!   be a guess. Whether a value means automatic is the product's one rule,
+//!   [`AutoValues`](crate::analysis::AutoValues) (the same as for a live mode signal); anything
+//!   else means manual, and the report lists the texts it read as manual.
 //! - **Order.** Rows are sorted stably by time, counting those that were out of order. Rows that
 //!   repeat a time with identical values are removed; rows that repeat a time with different
 //!   values lose to the last such row in the file. Both are counted.
@@ -44,7 +45,7 @@ use std::io::{self, Read};
 use serde::Serialize;
 use thiserror::Error;
 
-use crate::analysis::{Series, SeriesError};
+use crate::analysis::{AutoValues, Series, SeriesError};
 
 /// The fewest usable rows a load may produce: with fewer there is no response to analyse.
 pub const MIN_ROWS: usize = 3;
@@ -85,24 +86,11 @@ impl Default for CsvColumns {
 }
 
 /// What to read and how to interpret the mode column.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, Default, PartialEq)]
 pub struct CsvOptions {
     pub columns: CsvColumns,
-    /// Mode texts meaning automatic (or cascade), matched ignoring case and surrounding
-    /// whitespace. Any finite non-zero number also means automatic.
-    pub auto_values: Vec<String>,
-}
-
-impl Default for CsvOptions {
-    fn default() -> Self {
-        CsvOptions {
-            columns: CsvColumns::default(),
-            auto_values: ["auto", "cas", "1", "true", "on"]
-                .into_iter()
-                .map(str::to_owned)
-                .collect(),
-        }
-    }
+    /// Which mode values mean automatic (or cascade).
+    pub auto_values: AutoValues,
 }
 
 /// A successful load: the series for the analysis and the account of how it was obtained.
@@ -1097,8 +1085,8 @@ struct Start {
 /// Applies the module's policy to one data row at a time, then orders and checks the rows kept.
 struct Loader {
     layout: Layout,
-    /// The automatic mode texts, trimmed and lower-case.
-    auto_values: Vec<String>,
+    /// Which mode values mean automatic.
+    auto_values: AutoValues,
     report: LoadReport,
     /// The file's time format and the row that fixed it.
     time_kind: Option<(TimeFormat, u64)>,
@@ -1115,11 +1103,7 @@ impl Loader {
         opts: &CsvOptions,
     ) -> Result<Loader, CsvError> {
         let layout = Layout::from_header(header, row, &opts.columns)?;
-        let auto_values: Vec<String> = opts
-            .auto_values
-            .iter()
-            .map(|v| v.trim().to_lowercase())
-            .collect();
+        let auto_values = opts.auto_values.clone();
         let report = LoadReport::empty(&layout, char::from(start.delimiter), start.bom_stripped);
         let kept = Kept::with_capacity(start.rows_hint, layout.mode.is_some());
         Ok(Loader {
@@ -1655,9 +1639,8 @@ enum ModeCell {
     Manual(Option<usize>),
 }
 
-fn read_mode(text: &str, auto_values: &[String], manual_texts: &mut Vec<String>) -> ModeCell {
-    let numeric_auto = matches!(finite_number(text), Some(Ok(v)) if v != 0.0);
-    if numeric_auto || is_auto_text(text, auto_values) {
+fn read_mode(text: &str, auto_values: &AutoValues, manual_texts: &mut Vec<String>) -> ModeCell {
+    if auto_values.is_auto_text(text) {
         return ModeCell::Auto;
     }
     // Texts up to EXCERPT_CHARS bytes are their own excerpt, so only longer ones are shortened.
@@ -1676,17 +1659,6 @@ fn read_mode(text: &str, auto_values: &[String], manual_texts: &mut Vec<String>)
         None => None,
     };
     ModeCell::Manual(index)
-}
-
-/// Whether `text` lower-cased is one of `auto_values` (which are lower-case already).
-fn is_auto_text(text: &str, auto_values: &[String]) -> bool {
-    if text.is_ascii() {
-        // ASCII text lower-cases to ASCII, byte for byte, so comparing ignoring ASCII case gives
-        // the same answer without building the lower-case copy.
-        auto_values.iter().any(|v| text.eq_ignore_ascii_case(v))
-    } else {
-        auto_values.contains(&text.to_lowercase())
-    }
 }
 
 /// A cell's text shortened for quoting back to the user.
@@ -2122,7 +2094,7 @@ mod tests {
     #[test]
     fn custom_auto_values_replace_the_defaults() {
         let mut opts = with_mode("mode");
-        opts.auto_values = vec!["Automatic".into()];
+        opts.auto_values = AutoValues::new(&["Automatic"]);
         let text = "time,sp,pv,op,mode\n0,1,2,3,automatic\n1,1,2,3,auto\n2,1,2,3,5\n";
         let l = load_csv(text.as_bytes(), &opts).unwrap();
         assert_eq!(

@@ -17,3 +17,4 @@ pub mod render;
 pub mod report;
 pub mod sample;
 pub mod store;
+pub mod units;

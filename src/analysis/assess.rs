@@ -46,6 +46,18 @@ impl Verdict {
         }
     }
 
+    /// The verdict as people read it (tables, reports, alerts, logs): `met`, `tuning-limited`,
+    /// `actuator-limited`, `unreachable`, `inconclusive`. JSON keeps [`Verdict::as_str`].
+    pub fn label(self) -> &'static str {
+        match self {
+            Verdict::Met => "met",
+            Verdict::TuningLimited => "tuning-limited",
+            Verdict::ActuatorLimited => "actuator-limited",
+            Verdict::Unreachable => "unreachable",
+            Verdict::Inconclusive => "inconclusive",
+        }
+    }
+
     /// Whether the episode missed its spec for a known reason.
     pub fn is_miss(self) -> bool {
         matches!(

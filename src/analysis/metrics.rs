@@ -10,20 +10,7 @@
 //! - saturation duty: fraction of samples from t0 until settled (or the window end) whose OP lies
 //!   within `saturation_margin` of the OP span from a limit.
 
-use serde::Serialize;
-
-/// The actuator range of a loop, in OP units.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct OpRange {
-    pub min: f64,
-    pub max: f64,
-}
-
-impl OpRange {
-    pub fn span(&self) -> f64 {
-        self.max - self.min
-    }
-}
+pub use super::setup::OpRange;
 
 /// The samples of one episode window: time, setpoint, PV and OP, starting at t0.
 #[derive(Debug, Clone, Copy)]

@@ -16,7 +16,8 @@
 //! - A poll that runs late skips the ticks it missed rather than bursting to catch up.
 
 use super::{Clock, Ingest, RateLimitedLog};
-use crate::config::{AutoValues, Config, ModbusDevice};
+use crate::analysis::AutoValues;
+use crate::config::{Config, ModbusDevice};
 use crate::modbus::plan::Plan;
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers;

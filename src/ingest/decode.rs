@@ -29,7 +29,8 @@
 //! Times become whole epoch milliseconds, rounded to the nearest (the store's key has
 //! millisecond resolution).
 
-use crate::config::{AutoValues, Config, JsonFields, MqttSettings, PayloadFormat};
+use crate::analysis::AutoValues;
+use crate::config::{Config, JsonFields, MqttSettings, PayloadFormat};
 use crate::ingest::topic;
 use crate::sample::{Sample, Signal};
 use serde_json::Value;

@@ -34,7 +34,7 @@ pub async fn run(args: &ReportArgs, out: &mut dyn Write) -> anyhow::Result<()> {
                 .map(|r| r.time_zone.clone())
         })
         .unwrap_or_else(|| "UTC".into());
-    let tz = super::period::time_zone(&zone_name).map_err(UsageError)?;
+    let tz = crate::units::time_zone(&zone_name).map_err(|e| UsageError(e.to_string()))?;
     let mut formats: Vec<Format> = args
         .format
         .iter()

@@ -199,19 +199,6 @@ fn short(z: &Zoned) -> String {
     }
 }
 
-/// Loads a time zone by its IANA name from the system's database (/usr/share/zoneinfo).
-pub fn time_zone(name: &str) -> Result<TimeZone, String> {
-    if name.eq_ignore_ascii_case("UTC") {
-        return Ok(TimeZone::UTC);
-    }
-    TimeZone::get(name).map_err(|e| {
-        format!(
-            "unknown time zone {name:?} ({e}); use an IANA name such as Europe/Berlin, and \
-             install the tzdata package if /usr/share/zoneinfo is missing"
-        )
-    })
-}
-
 #[cfg(test)]
 mod tests {
     //! Expected dates and lengths were checked with Python's `datetime.date.fromisocalendar`
@@ -219,7 +206,8 @@ mod tests {
     use super::*;
 
     fn tz(name: &str) -> TimeZone {
-        time_zone(name).expect("the tests need the tzdata package (/usr/share/zoneinfo)")
+        crate::units::time_zone(name)
+            .expect("the tests need the tzdata package (/usr/share/zoneinfo)")
     }
 
     #[test]

@@ -39,7 +39,7 @@ impl Schedule {
         Ok(Schedule {
             weekday: s.weekday,
             time: s.time,
-            time_zone: super::period::time_zone(&s.time_zone)?,
+            time_zone: crate::units::time_zone(&s.time_zone).map_err(|e| e.to_string())?,
             folder: s.folder.clone(),
             formats: s.formats.iter().filter_map(|f| Format::parse(f)).collect(),
         })
@@ -164,7 +164,7 @@ mod tests {
         Schedule {
             weekday,
             time: time.parse().unwrap(),
-            time_zone: super::super::period::time_zone(zone)
+            time_zone: crate::units::time_zone(zone)
                 .expect("the tests need the tzdata package (/usr/share/zoneinfo)"),
             folder: PathBuf::from("reports"),
             formats: vec![Format::Html],

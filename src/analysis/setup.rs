@@ -1,0 +1,386 @@
+//! What the analysis needs to know about a loop besides its data — the spec, the OP range and the
+//! analysis options — with their defaults and their validation, defined once. The config file,
+//! the command line and the demo build a [`LoopSetup`] and check it here; each edge names a
+//! refused [`Setting`] in its own spelling (a TOML key, a command-line flag).
+
+use super::identify;
+use serde::Serialize;
+
+/// A loop's design spec for setpoint changes.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Spec {
+    /// Half-width of the settling band as a percentage of |Δ| (2 % by default).
+    pub settle_band_pct: f64,
+    /// The PV must be inside the band for good within this many seconds of the change.
+    pub settle_within_s: f64,
+    /// Largest allowed overshoot as a percentage of |Δ|; `None` when the spec sets none.
+    pub max_overshoot_pct: Option<f64>,
+}
+
+impl Spec {
+    /// The settling band when the spec gives none: ±2 % of the change (common practice).
+    pub const DEFAULT_SETTLE_BAND_PCT: f64 = 2.0;
+
+    /// A spec with the default band and no overshoot limit.
+    pub fn within(settle_within_s: f64) -> Spec {
+        Spec {
+            settle_band_pct: Spec::DEFAULT_SETTLE_BAND_PCT,
+            settle_within_s,
+            max_overshoot_pct: None,
+        }
+    }
+
+    /// The band as a fraction of |Δ| (0.02 for 2 %).
+    pub fn band_fraction(&self) -> f64 {
+        crate::units::pct_to_fraction(self.settle_band_pct)
+    }
+
+    /// Every problem with the spec's numbers, in the order of its fields.
+    pub fn problems(&self) -> Vec<Problem> {
+        let mut out = Vec::new();
+        if !(self.settle_band_pct > 0.0 && self.settle_band_pct < 100.0) {
+            out.push(Problem::new(
+                Setting::SettleBandPct,
+                "must be above 0 and below 100 %",
+                self.settle_band_pct,
+            ));
+        }
+        if !(self.settle_within_s.is_finite() && self.settle_within_s > 0.0) {
+            out.push(Problem::new(
+                Setting::SettleWithinS,
+                "must be a positive number of seconds",
+                self.settle_within_s,
+            ));
+        }
+        if let Some(o) = self.max_overshoot_pct
+            && !(o.is_finite() && o >= 0.0)
+        {
+            out.push(Problem::new(
+                Setting::MaxOvershootPct,
+                "must be 0 % or more",
+                o,
+            ));
+        }
+        out
+    }
+}
+
+/// The actuator range of a loop, in OP units.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct OpRange {
+    pub min: f64,
+    pub max: f64,
+}
+
+impl OpRange {
+    /// The OP range when none is given: 0 to 100 (% of output, common practice).
+    pub const DEFAULT: OpRange = OpRange {
+        min: 0.0,
+        max: 100.0,
+    };
+
+    pub fn span(&self) -> f64 {
+        self.max - self.min
+    }
+
+    /// The range's problem, if any: both ends finite and the lower one below the upper.
+    pub fn problems(&self) -> Vec<Problem> {
+        let mut out = Vec::new();
+        for (setting, v) in [(Setting::OpMin, self.min), (Setting::OpMax, self.max)] {
+            if !v.is_finite() {
+                out.push(Problem::new(setting, "must be a finite number", v));
+            }
+        }
+        if out.is_empty() && self.min >= self.max {
+            out.push(Problem {
+                setting: Setting::OpMin,
+                requirement: "must be below the upper OP limit",
+                got: self.min,
+                other: Some((Setting::OpMax, self.max)),
+            });
+        }
+        out
+    }
+}
+
+impl Default for OpRange {
+    fn default() -> Self {
+        OpRange::DEFAULT
+    }
+}
+
+/// Tuning knobs of the analysis; every `None` is derived from the data.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct AnalysisOptions {
+    /// SP moves no larger than this (SP units) are jitter. Default: 0.1 % of the largest |SP|.
+    pub sp_deadband: Option<f64>,
+    /// How long the SP must hold still to end a move (s). Default: 3 sample periods.
+    pub sp_hold_s: Option<f64>,
+    /// Silence between samples that counts as a data gap (s). Default:
+    /// [`AnalysisOptions::GAP_PERIODS`] sample periods.
+    pub max_gap_s: Option<f64>,
+    /// How often samples are expected (s); the default hold and gap limits are multiples of it.
+    /// Without it, the median sample interval of the data is used.
+    pub expected_period_s: Option<f64>,
+    /// Episode windows are cut at this multiple of the spec time after the change.
+    pub horizon_factor: f64,
+    /// OP within this percentage of the OP span from a limit counts as saturated.
+    pub saturation_margin_pct: f64,
+    /// An actuator-limited loop is advised an upgrade when the capacity needed is at most this
+    /// multiple of today's; beyond it, renegotiating the spec is advised.
+    pub upgrade_ratio_limit: f64,
+    pub identify: identify::IdentifySettings,
+}
+
+impl AnalysisOptions {
+    /// A silence longer than this many sample periods is a data gap, unless `max_gap_s` says.
+    pub const GAP_PERIODS: f64 = 10.0;
+    /// The SP must hold still this many sample periods to end a move, unless `sp_hold_s` says.
+    pub const HOLD_PERIODS: f64 = 3.0;
+    /// Episode windows end this many spec times after the change.
+    pub const DEFAULT_HORIZON_FACTOR: f64 = 10.0;
+    /// OP within this % of its span from a limit counts as saturated (DESIGN: 0.5 %).
+    pub const DEFAULT_SATURATION_MARGIN_PCT: f64 = 0.5;
+    /// Upgrades up to this multiple of today's capacity are advised; beyond, renegotiation.
+    pub const DEFAULT_UPGRADE_RATIO_LIMIT: f64 = 2.0;
+
+    /// The silence that counts as a data gap (s), for a loop sampled every `period_s`.
+    pub fn max_gap_for(&self, period_s: f64) -> f64 {
+        self.max_gap_s
+            .unwrap_or(AnalysisOptions::GAP_PERIODS * period_s)
+    }
+
+    /// Every problem with the options' numbers.
+    pub fn problems(&self) -> Vec<Problem> {
+        let mut out = Vec::new();
+        let zero_or_more = "must be a number 0 or more";
+        let above_zero = "must be a number above 0";
+        for (setting, value, zero_ok) in [
+            (Setting::SpDeadband, self.sp_deadband, true),
+            (Setting::SpHoldS, self.sp_hold_s, false),
+            (Setting::MaxGapS, self.max_gap_s, false),
+            (Setting::ExpectedPeriodS, self.expected_period_s, false),
+        ] {
+            if let Some(v) = value
+                && !(v.is_finite() && (v > 0.0 || (zero_ok && v == 0.0)))
+            {
+                let want = if zero_ok { zero_or_more } else { above_zero };
+                out.push(Problem::new(setting, want, v));
+            }
+        }
+        if !(self.upgrade_ratio_limit.is_finite() && self.upgrade_ratio_limit > 0.0) {
+            out.push(Problem::new(
+                Setting::UpgradeRatioLimit,
+                above_zero,
+                self.upgrade_ratio_limit,
+            ));
+        }
+        out
+    }
+}
+
+impl Default for AnalysisOptions {
+    fn default() -> Self {
+        AnalysisOptions {
+            sp_deadband: None,
+            sp_hold_s: None,
+            max_gap_s: None,
+            expected_period_s: None,
+            horizon_factor: AnalysisOptions::DEFAULT_HORIZON_FACTOR,
+            saturation_margin_pct: AnalysisOptions::DEFAULT_SATURATION_MARGIN_PCT,
+            upgrade_ratio_limit: AnalysisOptions::DEFAULT_UPGRADE_RATIO_LIMIT,
+            identify: identify::IdentifySettings::default(),
+        }
+    }
+}
+
+/// Everything the analysis needs to know about a loop besides its data.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LoopSetup {
+    /// The loop's tag, e.g. `TIC-101`.
+    pub tag: String,
+    pub op: OpRange,
+    pub spec: Spec,
+    pub options: AnalysisOptions,
+}
+
+impl LoopSetup {
+    /// A setup with the default OP range and options.
+    pub fn new(tag: impl Into<String>, spec: Spec) -> LoopSetup {
+        LoopSetup {
+            tag: tag.into(),
+            op: OpRange::DEFAULT,
+            spec,
+            options: AnalysisOptions::default(),
+        }
+    }
+
+    /// Every problem with the setup's numbers: OP range, spec, options.
+    pub fn problems(&self) -> Vec<Problem> {
+        let mut out = self.op.problems();
+        out.extend(self.spec.problems());
+        out.extend(self.options.problems());
+        out
+    }
+
+    /// The first problem, if any; the analysis may only be given a setup that passes.
+    pub fn validate(&self) -> Result<(), Problem> {
+        match self.problems().into_iter().next() {
+            Some(p) => Err(p),
+            None => Ok(()),
+        }
+    }
+}
+
+/// A setting of a loop that a [`Problem`] can name. Each edge spells it its own way: the config
+/// file by [`Setting::key`], the command line by its flag.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Setting {
+    SettleBandPct,
+    SettleWithinS,
+    MaxOvershootPct,
+    OpMin,
+    OpMax,
+    SpDeadband,
+    SpHoldS,
+    MaxGapS,
+    ExpectedPeriodS,
+    UpgradeRatioLimit,
+}
+
+impl Setting {
+    /// The setting's name in the config file (and in JSON).
+    pub fn key(self) -> &'static str {
+        match self {
+            Setting::SettleBandPct => "settle_band_pct",
+            Setting::SettleWithinS => "settle_within_s",
+            Setting::MaxOvershootPct => "max_overshoot_pct",
+            Setting::OpMin => "op_min",
+            Setting::OpMax => "op_max",
+            Setting::SpDeadband => "sp_deadband",
+            Setting::SpHoldS => "sp_hold_s",
+            Setting::MaxGapS => "max_gap_s",
+            Setting::ExpectedPeriodS => "expected_period_s",
+            Setting::UpgradeRatioLimit => "upgrade_ratio_limit",
+        }
+    }
+}
+
+/// A refused setting: which one, what it must be, and the value given (and, for a pair such as
+/// the OP range, the other end). [`Problem::message`] words it with the edge's spelling.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{}", self.message(|s| s.key()))]
+pub struct Problem {
+    pub setting: Setting,
+    pub requirement: &'static str,
+    pub got: f64,
+    pub other: Option<(Setting, f64)>,
+}
+
+impl Problem {
+    fn new(setting: Setting, requirement: &'static str, got: f64) -> Problem {
+        Problem {
+            setting,
+            requirement,
+            got,
+            other: None,
+        }
+    }
+
+    /// The problem in words, each setting spelled by `name`: e.g. with flags,
+    /// `--settle-band-pct must be above 0 and below 100 % (got 0)`.
+    pub fn message(&self, name: impl Fn(Setting) -> &'static str) -> String {
+        match self.other {
+            Some((other, value)) => format!(
+                "{} ({}) must be below {} ({})",
+                name(self.setting),
+                self.got,
+                name(other),
+                value
+            ),
+            None => format!(
+                "{} {} (got {})",
+                name(self.setting),
+                self.requirement,
+                self.got
+            ),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn setup() -> LoopSetup {
+        LoopSetup::new("TIC-1", Spec::within(120.0))
+    }
+
+    #[test]
+    fn a_default_setup_passes() {
+        assert_eq!(setup().validate(), Ok(()));
+        assert_eq!(setup().spec.band_fraction(), 0.02);
+    }
+
+    #[test]
+    fn each_bad_number_is_named_by_its_setting() {
+        type Spoil = fn(&mut LoopSetup);
+        let cases: [(Spoil, Setting); 9] = [
+            (|s| s.spec.settle_band_pct = 0.0, Setting::SettleBandPct),
+            (|s| s.spec.settle_band_pct = 100.0, Setting::SettleBandPct),
+            (
+                |s| s.spec.settle_band_pct = f64::NAN,
+                Setting::SettleBandPct,
+            ),
+            (|s| s.spec.settle_within_s = -1.0, Setting::SettleWithinS),
+            (
+                |s| s.spec.max_overshoot_pct = Some(-0.5),
+                Setting::MaxOvershootPct,
+            ),
+            (|s| s.options.max_gap_s = Some(-5.0), Setting::MaxGapS),
+            (|s| s.options.sp_deadband = Some(-1.0), Setting::SpDeadband),
+            (|s| s.options.sp_hold_s = Some(f64::NAN), Setting::SpHoldS),
+            (|s| s.op.max = f64::INFINITY, Setting::OpMax),
+        ];
+        for (spoil, setting) in cases {
+            let mut s = setup();
+            spoil(&mut s);
+            let problem = s.validate().expect_err("refused");
+            assert_eq!(problem.setting, setting, "{problem}");
+        }
+    }
+
+    #[test]
+    fn a_zero_deadband_is_allowed_but_a_zero_gap_is_not() {
+        let mut s = setup();
+        s.options.sp_deadband = Some(0.0);
+        assert_eq!(s.validate(), Ok(()));
+        s.options.max_gap_s = Some(0.0);
+        assert_eq!(s.validate().unwrap_err().setting, Setting::MaxGapS);
+    }
+
+    #[test]
+    fn an_inverted_op_range_names_both_ends_in_the_edge_spelling() {
+        let mut s = setup();
+        s.op = OpRange {
+            min: 100.0,
+            max: 0.0,
+        };
+        let p = s.validate().unwrap_err();
+        assert_eq!(p.to_string(), "op_min (100) must be below op_max (0)");
+        let flag = |s: Setting| match s {
+            Setting::OpMin => "--op-min",
+            Setting::OpMax => "--op-max",
+            _ => "other",
+        };
+        assert_eq!(p.message(flag), "--op-min (100) must be below --op-max (0)");
+    }
+
+    #[test]
+    fn the_default_gap_rule_is_ten_sample_periods() {
+        let mut o = AnalysisOptions::default();
+        assert_eq!(o.max_gap_for(2.0), 20.0);
+        o.max_gap_s = Some(7.0);
+        assert_eq!(o.max_gap_for(2.0), 7.0);
+    }
+}

@@ -1,0 +1,96 @@
+//! Unit conversions used across the product, defined once: epoch milliseconds ↔ seconds,
+//! RFC 3339 text of a time, and percent ↔ fraction. Pure, no clock.
+
+/// Milliseconds in one second.
+pub const MS_PER_S: f64 = 1000.0;
+
+/// Seconds (a duration or a time since the epoch) as whole milliseconds, rounded to nearest.
+pub fn s_to_ms(seconds: f64) -> i64 {
+    (seconds * MS_PER_S).round() as i64
+}
+
+/// Milliseconds (a duration or a time since the epoch) as seconds.
+pub fn ms_to_s(ms: i64) -> f64 {
+    ms as f64 / MS_PER_S
+}
+
+/// A time in milliseconds since the Unix epoch as RFC 3339 text in UTC, e.g.
+/// `2026-11-23T00:00:10Z`; a time outside the representable range is written as
+/// `<n> ms since the epoch` rather than dropped.
+pub fn rfc3339(ms: i64) -> String {
+    jiff::Timestamp::from_millisecond(ms)
+        .map_or_else(|_| format!("{ms} ms since the epoch"), |t| t.to_string())
+}
+
+/// A time zone that could not be loaded.
+#[derive(Debug, thiserror::Error)]
+#[error(
+    "unknown time zone {name:?} ({source}); use an IANA name such as Europe/Berlin, and install \
+     the tzdata package if /usr/share/zoneinfo is missing"
+)]
+pub struct UnknownTimeZone {
+    pub name: String,
+    source: jiff::Error,
+}
+
+/// Loads a time zone by its IANA name from the system's database (/usr/share/zoneinfo); `UTC`
+/// in any case needs no database.
+pub fn time_zone(name: &str) -> Result<jiff::tz::TimeZone, UnknownTimeZone> {
+    if name.eq_ignore_ascii_case("UTC") {
+        return Ok(jiff::tz::TimeZone::UTC);
+    }
+    jiff::tz::TimeZone::get(name).map_err(|source| UnknownTimeZone {
+        name: name.to_owned(),
+        source,
+    })
+}
+
+/// A percentage as a fraction: 2 % → 0.02.
+pub fn pct_to_fraction(pct: f64) -> f64 {
+    pct / 100.0
+}
+
+/// A fraction as a percentage: 0.02 → 2 %.
+pub fn fraction_to_pct(fraction: f64) -> f64 {
+    fraction * 100.0
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn milliseconds_and_seconds_round_trip() {
+        assert_eq!(s_to_ms(1.2345), 1235);
+        assert_eq!(s_to_ms(-0.0004), 0);
+        assert_eq!(ms_to_s(1500), 1.5);
+        assert_eq!(s_to_ms(ms_to_s(1_764_000_000_123)), 1_764_000_000_123);
+    }
+
+    #[test]
+    fn times_are_written_in_rfc3339_utc() {
+        // 1 764 115 210 000 ms = 2025-11-26T00:00:10Z (check: 20418 days × 86 400 s + 10 s).
+        assert_eq!(rfc3339(1_764_115_210_000), "2025-11-26T00:00:10Z");
+        assert_eq!(rfc3339(1_500), "1970-01-01T00:00:01.5Z");
+        assert_eq!(
+            rfc3339(i64::MAX),
+            format!("{} ms since the epoch", i64::MAX)
+        );
+    }
+
+    #[test]
+    fn an_unknown_time_zone_is_named_with_a_hint() {
+        assert_eq!(time_zone("utc").unwrap(), jiff::tz::TimeZone::UTC);
+        let e = time_zone("Mars/Olympus").unwrap_err().to_string();
+        assert!(
+            e.contains("\"Mars/Olympus\"") && e.contains("tzdata"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn percent_and_fraction() {
+        assert_eq!(pct_to_fraction(2.0), 0.02);
+        assert_eq!(fraction_to_pct(0.5), 50.0);
+    }
+}
