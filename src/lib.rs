@@ -12,7 +12,6 @@ pub mod daemon;
 pub mod demo;
 pub mod ingest;
 pub mod modbus;
-pub mod queries;
 pub mod render;
 pub mod report;
 pub mod sample;

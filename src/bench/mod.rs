@@ -19,29 +19,49 @@ use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Series, Spec};
 use crate::csvload::{self, CsvOptions};
 use anyhow::Context;
-use clap::Args;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-#[derive(Debug, Args)]
-pub struct BenchArgs {
-    /// Python interpreter with numpy, scipy and control for the side-by-side comparison
-    /// (default: target/pyenv/bin/python if present, else python3).
-    #[arg(long, value_name = "PATH")]
+/// What `run` measures and how often.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BenchOptions {
+    /// The Python interpreter for the side-by-side comparison; `None`: target/pyenv/bin/python
+    /// if present, else python3.
     pub python: Option<PathBuf>,
-    /// Episodes for the per-episode comparison.
-    #[arg(long, default_value_t = 200)]
+    /// Episodes for the per-episode comparison (at least 1).
     pub episodes: usize,
-    /// Repetitions of each timing; the median is reported.
-    #[arg(long, default_value_t = 5)]
+    /// Repetitions of each timing (at least 1); the median is reported.
     pub repeat: usize,
-    /// Smaller ingest runs and no memory run (a minute instead of several).
-    #[arg(long)]
+    /// Smaller ingest runs and no memory run.
     pub quick: bool,
-    /// Only these parts (default: all).
-    #[arg(long, value_delimiter = ',', value_parser = ["analysis", "ingest", "modbus"])]
-    pub only: Vec<String>,
+    /// Only these parts; empty: all.
+    pub only: Vec<Part>,
+}
+
+/// A part of the benchmark.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Part {
+    Analysis,
+    Ingest,
+    Modbus,
+}
+
+impl Part {
+    pub const ALL: [Part; 3] = [Part::Analysis, Part::Ingest, Part::Modbus];
+
+    /// The part's name, as `--only` takes it.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Part::Analysis => "analysis",
+            Part::Ingest => "ingest",
+            Part::Modbus => "modbus",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Part> {
+        Part::ALL.into_iter().find(|p| p.as_str() == s)
+    }
 }
 
 /// The target for a week of one loop at 1 Hz, end to end.
@@ -49,19 +69,19 @@ const WEEK_TARGET_S: f64 = 0.2;
 /// The speed-up over the Python reference libraries that the per-episode work must reach.
 const SPEEDUP_TARGET: f64 = 100.0;
 
-pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
+pub fn run(args: &BenchOptions, out: &mut dyn Write) -> anyhow::Result<()> {
     writeln!(out, "headroom bench — {} CPU(s) available", cpus())?;
     writeln!(out)?;
-    let part = |name: &str| args.only.is_empty() || args.only.iter().any(|p| p == name);
+    let part = |p: Part| args.only.is_empty() || args.only.contains(&p);
     let dir = tempfile_dir()?;
-    if part("analysis") {
+    if part(Part::Analysis) {
         analysis_part(args, &dir, out)?;
     }
-    if part("ingest") {
+    if part(Part::Ingest) {
         ingest::run(&dir, out, args.quick)?;
         writeln!(out)?;
     }
-    if part("modbus") {
+    if part(Part::Modbus) {
         modbus::run(&dir, out, args.quick)?;
         writeln!(out)?;
     }
@@ -73,7 +93,7 @@ pub fn run(args: &BenchArgs, out: &mut dyn Write) -> anyhow::Result<()> {
 }
 
 /// A week of one loop, and the per-episode comparison with the Python reference libraries.
-fn analysis_part(args: &BenchArgs, dir: &Path, out: &mut dyn Write) -> anyhow::Result<()> {
+fn analysis_part(args: &BenchOptions, dir: &Path, out: &mut dyn Write) -> anyhow::Result<()> {
     let repeat = args.repeat.max(1);
     // 1. A week of one loop at 1 Hz.
     let (series, setup) = week_of_one_loop();

@@ -16,6 +16,7 @@
 
 pub mod modbus;
 pub mod mqtt;
+pub mod shutdown;
 pub mod writer;
 
 use crate::analysis::LoopSetup;

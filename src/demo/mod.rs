@@ -31,7 +31,6 @@ pub mod plant;
 pub mod registers;
 pub mod summary;
 
-use crate::cli::UsageError;
 use std::path::PathBuf;
 use std::time::Duration;
 
@@ -59,84 +58,66 @@ pub const MAX_TICK_WALL: Duration = Duration::from_millis(100);
 /// hours keeps that latency from looking like a dead transmitter; LT-150's eight-hour dropout
 /// is far beyond it.
 pub const STALE_AFTER_S: f64 = 2.0 * 3_600.0;
-/// Shortest and longest simulated run.
-const MIN_DURATION_S: f64 = 3_600.0;
-const MAX_DURATION_S: f64 = 60.0 * 86_400.0;
-const MAX_SPEED: f64 = 100_000.0;
+/// Shortest and longest simulated run (s): an hour to 60 days.
+pub const DURATION_S: std::ops::RangeInclusive<f64> = 3_600.0..=60.0 * 86_400.0;
+/// Slowest and fastest run: real time to 100,000×.
+pub const SPEED: std::ops::RangeInclusive<f64> = 1.0..=100_000.0;
 
 /// The demo's files, inside `--out`.
 pub const CONFIG_FILE: &str = "heronreach.toml";
 pub const STORE_FILE: &str = "heronreach.db";
 pub const LOG_FILE: &str = "demo.log";
 
-/// `headroom demo`'s flags.
-#[derive(Debug, Clone, clap::Args)]
-pub struct DemoArgs {
-    /// Simulated time to run, e.g. 7d, 36h, 90m.
-    #[arg(long, default_value = "7d", value_name = "SPAN")]
-    pub duration: String,
-    /// Simulated seconds per wall-clock second.
-    #[arg(long, default_value_t = DEFAULT_SPEED, value_name = "FACTOR")]
+/// What the demo runs: the checked values of `headroom demo`'s flags.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DemoOptions {
+    /// Simulated seconds to run, within [`DURATION_S`].
+    pub duration_s: f64,
+    /// Simulated seconds per wall-clock second, within [`SPEED`].
     pub speed: f64,
-    /// Folder for the demo's files (configuration, SQLite store, log); created when missing.
-    /// The demo's own files in it are replaced.
-    #[arg(long, default_value = "headroom-demo", value_name = "DIR")]
+    /// Folder for the demo's files (configuration, store, log); created when missing.
     pub out: PathBuf,
-    /// After the summary, keep the broker, the simulated device, the plant (now in real time)
-    /// and the daemon running until Ctrl-C, to watch with any MQTT client.
-    #[arg(long)]
+    /// After the summary, keep everything running in real time until Ctrl-C.
     pub keep_running: bool,
     /// Port of the embedded MQTT broker on 127.0.0.1 (0: any free port).
-    #[arg(long, default_value_t = 0, value_name = "PORT")]
     pub mqtt_port: u16,
     /// Port of the simulated Modbus device on 127.0.0.1 (0: any free port).
-    #[arg(long, default_value_t = 0, value_name = "PORT")]
     pub modbus_port: u16,
 }
 
-impl DemoArgs {
-    /// The simulated duration in seconds, checked.
-    pub fn duration_s(&self) -> Result<f64, UsageError> {
-        let s = parse_span(&self.duration).ok_or_else(|| {
-            UsageError(format!(
-                "cannot read --duration {:?}: give a span such as 7d, 36h, 90m or 3600s",
-                self.duration
-            ))
-        })?;
-        if !(MIN_DURATION_S..=MAX_DURATION_S).contains(&s) {
-            return Err(UsageError(format!(
-                "--duration must be between 1h and 60d (got {})",
-                self.duration
-            )));
-        }
-        Ok(s)
-    }
-
-    /// The speed, checked.
-    pub fn checked_speed(&self) -> Result<f64, UsageError> {
-        if self.speed.is_finite() && (1.0..=MAX_SPEED).contains(&self.speed) {
-            Ok(self.speed)
-        } else {
-            Err(UsageError(format!(
-                "--speed must be between 1 (real time) and {MAX_SPEED} (got {})",
-                self.speed
-            )))
-        }
-    }
+/// Why the demo could not run.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum DemoError {
+    #[cfg(feature = "demo-broker")]
+    #[error("{0}")]
+    Broker(#[from] broker::BrokerError),
+    #[error(
+        "cannot start the simulated Modbus device on 127.0.0.1:{port}: {source}; choose another \
+         port with --modbus-port, or 0 for any free port"
+    )]
+    ModbusPort { port: u16, source: std::io::Error },
+    #[error(
+        "this build has no embedded MQTT broker: build with the default features \
+         (cargo run --release -- demo) to run the demo"
+    )]
+    NoBroker,
+    /// A failure while the demo ran, with the context of each step.
+    #[error("{0:#}")]
+    Run(#[from] anyhow::Error),
 }
 
-/// Reads `7d`, `36h`, `90m`, `3600s` or a plain number of seconds.
-pub fn parse_span(s: &str) -> Option<f64> {
-    let s = s.trim();
-    let (num, factor) = match s.char_indices().last()? {
-        (i, 'd') => (&s[..i], 86_400.0),
-        (i, 'h') => (&s[..i], 3_600.0),
-        (i, 'm') => (&s[..i], 60.0),
-        (i, 's') => (&s[..i], 1.0),
-        _ => (s, 1.0),
-    };
-    let n: f64 = num.trim().parse().ok()?;
-    (n.is_finite() && n >= 0.0).then_some(n * factor)
+impl DemoError {
+    /// Whether the user can fix it before running again: a port in use, a build without the
+    /// broker.
+    pub fn is_setup(&self) -> bool {
+        match self {
+            #[cfg(feature = "demo-broker")]
+            DemoError::Broker(e) => matches!(e, broker::BrokerError::PortInUse { .. }),
+            DemoError::ModbusPort { .. } | DemoError::NoBroker => true,
+            DemoError::Run(_) => false,
+        }
+    }
 }
 
 #[cfg(feature = "demo-broker")]
@@ -146,29 +127,6 @@ pub use run::run;
 
 /// Without the embedded broker the demo cannot run; say how to get it.
 #[cfg(not(feature = "demo-broker"))]
-pub async fn run(_args: &DemoArgs, _out: &mut dyn std::io::Write) -> anyhow::Result<()> {
-    Err(UsageError(
-        "this build has no embedded MQTT broker: build with the default features \
-         (cargo run --release -- demo) to run the demo"
-            .into(),
-    )
-    .into())
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn spans_read_with_their_units() {
-        assert_eq!(parse_span("7d"), Some(604_800.0));
-        assert_eq!(parse_span("36h"), Some(129_600.0));
-        assert_eq!(parse_span("90m"), Some(5_400.0));
-        assert_eq!(parse_span("3600s"), Some(3_600.0));
-        assert_eq!(parse_span("1.5d"), Some(129_600.0));
-        assert_eq!(parse_span("600"), Some(600.0));
-        assert_eq!(parse_span("week"), None);
-        assert_eq!(parse_span("-1d"), None);
-        assert_eq!(parse_span(""), None);
-    }
+pub async fn run(_options: &DemoOptions, _out: &mut dyn std::io::Write) -> Result<(), DemoError> {
+    Err(DemoError::NoBroker)
 }

@@ -5,10 +5,9 @@ use super::plant::{Link, LoopDef, Plant, Reading};
 use super::registers::{self, Register};
 use super::summary::thousands;
 use super::{
-    CONFIG_FILE, DemoArgs, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL, MODBUS_PERIOD_S,
-    PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
+    CONFIG_FILE, DemoError, DemoOptions, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL,
+    MODBUS_PERIOD_S, PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
 };
-use crate::cli::UsageError;
 use crate::config::Config;
 use crate::daemon::{Clock, Daemon};
 use crate::modbus::device::{RegisterMap, SimDevice};
@@ -329,31 +328,34 @@ impl PlantSide {
     }
 }
 
-/// `headroom demo`.
-pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
-    let duration_s = args.duration_s()?;
-    let speed = args.checked_speed()?;
-    let files = Files::new(&args.out);
+/// `headroom demo`: starts the broker and the simulated device, then runs the plant and the
+/// daemon (see the module docs of `demo`).
+pub async fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<(), DemoError> {
+    let files = Files::new(&options.out);
     files.prepare()?;
-
-    // A port in use is the user's to fix (exit code 2).
-    let broker = broker::start(args.mqtt_port).map_err(|e| match e {
-        broker::BrokerError::PortInUse { .. } => anyhow::Error::new(UsageError(e.to_string())),
-        e => anyhow::Error::new(e),
-    })?;
-    let device = SimDevice::start(args.modbus_port, RegisterMap::new(registers::MAP_LEN))
+    let broker = broker::start(options.mqtt_port)?;
+    let device = SimDevice::start(options.modbus_port, RegisterMap::new(registers::MAP_LEN))
         .await
-        .map_err(|e| {
-            UsageError(format!(
-                "cannot start the simulated Modbus device on 127.0.0.1:{}: {e}; choose another \
-                 port with --modbus-port, or 0 for any free port",
-                args.modbus_port
-            ))
+        .map_err(|source| DemoError::ModbusPort {
+            port: options.modbus_port,
+            source,
         })?;
+    Ok(simulate(options, &files, broker, device, out).await?)
+}
+
+/// The accelerated run, its summary, and the real-time run after it with `keep_running`.
+async fn simulate(
+    options: &DemoOptions,
+    files: &Files,
+    broker: broker::EmbeddedBroker,
+    device: SimDevice,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
+    let (duration_s, speed) = (options.duration_s, options.speed);
     let ports = (broker.addr.port(), device.addr().port());
 
     // Schedules run on past the demo's end when it keeps running, so the plant stays lively.
-    let horizon_s = if args.keep_running {
+    let horizon_s = if options.keep_running {
         duration_s + 30.0 * super::plant::DAY_S
     } else {
         duration_s
@@ -370,7 +372,7 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         Arc::new(move || shared.clock_ms.load(Ordering::Relaxed))
     };
 
-    let mut daemon = RunningDaemon::start(&files, &defs, ports, speed, clock.clone()).await?;
+    let mut daemon = RunningDaemon::start(files, &defs, ports, speed, clock.clone()).await?;
     let committed = daemon.committed.clone();
     let reader = Store::open_read_only(&files.store)
         .await
@@ -422,7 +424,7 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         duration_s,
     );
 
-    let interrupt = crate::cli::shutdown_signal();
+    let interrupt = crate::daemon::shutdown::shutdown_signal();
     tokio::pin!(interrupt);
     let mut interrupted = false;
 
@@ -503,7 +505,7 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         .await
         .context("cannot open the demo's store for reading")?;
     let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
-    let reports = write_report(&reader, &config, &files, start_ms, plant_end_ms(&shared)).await?;
+    let reports = write_report(&reader, &config, files, start_ms, plant_end_ms(&shared)).await?;
     summary::render(
         &summaries,
         &summary::RunFacts {
@@ -522,9 +524,9 @@ pub async fn run(args: &DemoArgs, out: &mut dyn Write) -> anyhow::Result<()> {
     )?;
     reader.close().await;
 
-    if args.keep_running && !interrupted {
+    if options.keep_running && !interrupted {
         // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
-        let mut daemon = RunningDaemon::start(&files, &defs, ports, 1.0, clock).await?;
+        let mut daemon = RunningDaemon::start(files, &defs, ports, 1.0, clock).await?;
         writeln!(
             out,
             "\nStill running, now in real time: the plant, the broker at mqtt://{addr}, the Modbus \

@@ -13,7 +13,6 @@
 //! `[report]` ([`schedule`]), keeps it in the store and writes it to the configured folder.
 
 pub mod build;
-pub mod command;
 pub mod period;
 pub mod plot;
 pub mod render;

@@ -2,6 +2,7 @@
 //! built `headroom` binary; shared helpers live in `helpers`.
 
 mod cli;
+mod cli_flags;
 mod corpus;
 mod demo;
 mod example_data;
