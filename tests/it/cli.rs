@@ -124,7 +124,7 @@ fn a_missing_column_is_exit_code_2_with_a_message_naming_it() {
     let dir = tempfile::tempdir().unwrap();
     let csv = dir.path().join("bad.csv");
     std::fs::write(&csv, "time,sp,pv\n0,1,1\n1,1,1\n2,1,1\n").unwrap();
-    let out = run_headroom_ok(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
+    let out = run_headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("op"), "{err}");
@@ -164,7 +164,7 @@ fn renamed_columns_are_read() {
         1,
     );
     std::fs::write(&csv, text).unwrap();
-    let out = run_headroom(&[
+    let out = run_headroom_ok(&[
         "analyze",
         csv.to_str().unwrap(),
         "--settle-within-s",

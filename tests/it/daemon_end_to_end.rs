@@ -85,7 +85,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     // The live verdicts equal the offline analysis of the store's own export, for every
     // episode the live tracker finalised (the last window is still open at the end of data).
     let live: Vec<Value> =
-        serde_json::from_str(&headroom(["episodes", "--rig.db", path(&rig.db), "--json"]).await)
+        serde_json::from_str(&headroom(["episodes", "--db", path(&rig.db), "--json"]).await)
             .expect("episodes --json is JSON");
     let finals: Vec<&Value> = live.iter().filter(|e| e["final"] == true).collect();
     let live_list: Vec<String> = live.iter().map(episode_line).collect();
@@ -129,9 +129,9 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     assert_eq!(alert["loop"], TAG, "{alert}");
     assert_eq!(alert["evidence"]["sp_to"], 75.0, "{alert}");
 
-    // Read-only toward the plant: on the loop's rig.topics the spy saw exactly what the gateway
-    // published (so nothing was written to the plant's rig.topics, a setpoint least of all), and
-    // everything else came from the daemon, on its alert and status rig.topics only.
+    // Read-only toward the plant: on the loop's topics the spy saw exactly what the gateway
+    // published (so nothing was written to the plant's topics, a setpoint least of all), and
+    // everything else came from the daemon, on its alert and status topics only.
     assert_eq!(
         published.connections, 1,
         "the gateway reconnected, so it may have sent duplicates"
@@ -167,7 +167,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     sent.sort_unstable();
     assert!(
         on_plant_topics == sent,
-        "the spy saw {} messages on the plant's rig.topics, the gateway sent {}",
+        "the spy saw {} messages on the plant's topics, the gateway sent {}",
         on_plant_topics.len(),
         sent.len()
     );
