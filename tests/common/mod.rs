@@ -1,5 +1,6 @@
 //! Helpers shared by the integration tests, kept in one place so that every test binary can
-//! include them (`#[path = "../common/mod.rs"] mod common;`):
+//! include them (`#[path = "../common/mod.rs"] mod common;`, with `#[allow(dead_code)]` in a
+//! binary that uses only some of them):
 //!
 //! - here: the built `headroom` binary, running it, and free loopback ports;
 //! - `broker`: a real Mosquitto per test, on its own loopback port;
