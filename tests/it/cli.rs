@@ -1,9 +1,8 @@
 //! The `headroom analyze` command as users meet it: table, JSON contract, flags and exit codes.
 
-use crate::helpers::headroom_bin;
+use crate::common::{run_headroom, run_headroom_ok};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig};
 use std::io::Write;
-use std::process::{Command, Output};
 
 /// Writes a CSV of a simulated heating loop (K 0.8, τ 300 s, θ 30 s) with three setpoint steps.
 fn loop_csv(dir: &std::path::Path, rfc3339: bool) -> std::path::PathBuf {
@@ -31,15 +30,11 @@ fn loop_csv(dir: &std::path::Path, rfc3339: bool) -> std::path::PathBuf {
     path
 }
 
-fn headroom(args: &[&str]) -> Output {
-    Command::new(headroom_bin()).args(args).output().unwrap()
-}
-
 #[test]
 fn analyze_json_has_the_contract_fields() {
     let dir = tempfile::tempdir().unwrap();
     let csv = loop_csv(dir.path(), false);
-    let out = headroom(&[
+    let out = run_headroom_ok(&[
         "analyze",
         csv.to_str().unwrap(),
         "--json",
@@ -48,11 +43,6 @@ fn analyze_json_has_the_contract_fields() {
         "--max-overshoot-pct",
         "15",
     ]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["loop"], "tic");
     for k in ["gain", "time_constant_s", "dead_time_s", "fit_r2"] {
@@ -93,12 +83,7 @@ fn analyze_json_has_the_contract_fields() {
 fn analyze_prints_a_table_with_verdicts_model_and_caution() {
     let dir = tempfile::tempdir().unwrap();
     let csv = loop_csv(dir.path(), true);
-    let out = headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "600"]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let out = run_headroom_ok(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "600"]);
     let text = String::from_utf8(out.stdout).unwrap();
     assert!(text.contains("50 → 55"), "{text}");
     // RFC 3339 input shows absolute start times.
@@ -118,7 +103,7 @@ fn analyze_takes_limits_and_spec_from_a_config_loop() {
         "[loops.TIC-7]\nop_min = 0\nop_max = 100\n[loops.TIC-7.spec]\nsettle_within_s = 100\n",
     )
     .unwrap();
-    let out = headroom(&[
+    let out = run_headroom_ok(&[
         "analyze",
         csv.to_str().unwrap(),
         "--json",
@@ -127,11 +112,6 @@ fn analyze_takes_limits_and_spec_from_a_config_loop() {
         "--loop",
         "TIC-7",
     ]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["loop"], "TIC-7");
     assert_eq!(v["spec"]["settle_within_s"], 100.0);
@@ -144,7 +124,7 @@ fn a_missing_column_is_exit_code_2_with_a_message_naming_it() {
     let dir = tempfile::tempdir().unwrap();
     let csv = dir.path().join("bad.csv");
     std::fs::write(&csv, "time,sp,pv\n0,1,1\n1,1,1\n2,1,1\n").unwrap();
-    let out = headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
+    let out = run_headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("op"), "{err}");
@@ -159,7 +139,7 @@ fn a_bad_timestamp_is_exit_code_2_naming_row_and_column() {
         "time,sp,pv,op\n0,1,1,5\n1,1,1,5\nlater,1,1,5\n3,1,1,5\n",
     )
     .unwrap();
-    let out = headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
+    let out = run_headroom(&["analyze", csv.to_str().unwrap(), "--settle-within-s", "60"]);
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
     assert!(err.contains("row 4") && err.contains("time"), "{err}");
@@ -169,7 +149,7 @@ fn a_bad_timestamp_is_exit_code_2_naming_row_and_column() {
 fn without_a_spec_time_analyze_says_what_to_give() {
     let dir = tempfile::tempdir().unwrap();
     let csv = loop_csv(dir.path(), false);
-    let out = headroom(&["analyze", csv.to_str().unwrap()]);
+    let out = run_headroom(&["analyze", csv.to_str().unwrap()]);
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--settle-within-s"));
 }
@@ -184,7 +164,7 @@ fn renamed_columns_are_read() {
         1,
     );
     std::fs::write(&csv, text).unwrap();
-    let out = headroom(&[
+    let out = run_headroom_ok(&[
         "analyze",
         csv.to_str().unwrap(),
         "--settle-within-s",
@@ -199,11 +179,6 @@ fn renamed_columns_are_read() {
         "TIC-7.OP",
         "--json",
     ]);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["episodes"].as_array().unwrap().len(), 3);
 }

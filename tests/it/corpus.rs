@@ -9,11 +9,10 @@
 //! kept: the noise-free settling time is not within 10 % of the spec time, and a missed episode's
 //! t* is below 0.75 or above 1.25 times the spec time. The analysed run adds PV noise.
 
+use crate::common::sim::{series, setup as loop_setup};
 use headroom::analysis::feasibility::{self, Reach};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process, Rng};
-use headroom::analysis::{
-    AnalysisOptions, Fopdt, LoopSetup, OpRange, Series, Spec, Verdict, analyze_loop,
-};
+use headroom::analysis::{Fopdt, LoopSetup, Series, Spec, Verdict, analyze_loop};
 
 struct CorpusLoop {
     process: Process,
@@ -34,27 +33,11 @@ fn run(l: &CorpusLoop, noise_sd: f64, seed: u64) -> Series {
         seed,
         initial_sp: l.initial_sp,
     });
-    let s = sim.run(&l.schedule, l.duration_s, l.sample_s);
-    Series::new(
-        s.iter().map(|x| x.time_s).collect(),
-        s.iter().map(|x| x.sp).collect(),
-        s.iter().map(|x| x.pv).collect(),
-        s.iter().map(|x| x.op).collect(),
-        None,
-    )
-    .unwrap()
+    series(&sim.run(&l.schedule, l.duration_s, l.sample_s), 0.0)
 }
 
 fn setup(l: &CorpusLoop) -> LoopSetup {
-    LoopSetup {
-        tag: "XIC-1".into(),
-        op: OpRange {
-            min: l.controller.op_min,
-            max: l.controller.op_max,
-        },
-        spec: l.spec,
-        options: AnalysisOptions::default(),
-    }
+    loop_setup("XIC-1", &l.controller, l.spec)
 }
 
 fn pick(rng: &mut Rng, lo: f64, hi: f64) -> f64 {

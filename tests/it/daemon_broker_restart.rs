@@ -3,13 +3,12 @@
 //! every message the broker acknowledged to the publisher — before the restart, while the
 //! publisher retried, and after — must end up in the store.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, sample_count,
-    stored_keys, tail, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, spawn_publish};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, eventually, sample_count, stored_keys, tail, unique,
 };
-use crate::plant::{messages, recent_past_ms, vessel};
+use crate::common::plant::{messages, recent_past_ms, vessel};
 use std::collections::BTreeSet;
 use std::sync::Arc;
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -24,27 +23,19 @@ async fn every_acknowledged_message_is_stored_across_a_broker_restart() {
         ..BrokerOptions::default()
     })
     .await;
-    let ws = Workspace::new("broker-restart");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("restart")), TAG);
-    let mut cfg = TestConfig::new(broker.port(), "broker-restart");
-    cfg.loops.push(TestLoop::new(TAG, topics.clone()));
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let rig = LoopRig::new(broker.port(), "broker-restart", TAG);
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
     // 9,003 messages at 1,500 a second: the stream lasts about six seconds.
     let samples = vessel(100.0, 5).run(&[(600.0, 60.0), (3600.0, 45.0)], 6000.0, 2.0);
-    let (msgs, keys) = messages(TAG, &topics, recent_past_ms(3 * 3600), &samples);
-    let port = broker.port();
-    let to_send = msgs.clone();
+    let (msgs, keys) = messages(TAG, &rig.topics, recent_past_ms(3 * 3600), &samples);
     let progress = Arc::new(AtomicUsize::new(0));
     let options = PublishOptions {
         per_second: Some(1_500.0),
         progress: Some(progress.clone()),
         ..PublishOptions::new(unique("gateway"))
     };
-    let publisher = tokio::spawn(async move { publish(port, &to_send, options).await });
+    let publisher = spawn_publish(broker.port(), msgs.clone(), options);
 
     // Restart once a third is acknowledged and some of it stored, so that the restart falls
     // mid-stream for the publisher and for the daemon.
@@ -54,7 +45,7 @@ async fn every_acknowledged_message_is_stored_across_a_broker_restart() {
         Duration::from_secs(60),
         async || {
             let acked = progress.load(Ordering::Relaxed);
-            let stored = sample_count(&db).await?;
+            let stored = sample_count(&rig.db).await?;
             if acked >= third && stored > 0 {
                 Ok(())
             } else {
@@ -87,7 +78,7 @@ async fn every_acknowledged_message_is_stored_across_a_broker_restart() {
         "every acknowledged sample in the store",
         Duration::from_secs(90),
         async || {
-            let stored = stored_keys(&db, &[TAG]).await?;
+            let stored = stored_keys(&rig.db, &[TAG]).await?;
             if stored.is_superset(&acked) {
                 Ok(stored)
             } else {

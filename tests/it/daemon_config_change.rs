@@ -2,13 +2,13 @@
 //! it the old run's subscriptions), so the reconnect resumes that session; the new loop's topics
 //! must still be subscribed, or its data would silently never arrive.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, publish};
-use crate::harness::{
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, publish_all};
+use crate::common::daemon::{
     DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, stored_keys, tail,
     unique,
 };
-use crate::plant::{json_sample, recent_past_ms};
+use crate::common::plant::{json_sample, recent_past_ms};
 use std::time::Duration;
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -21,8 +21,7 @@ async fn a_loop_added_while_the_session_persists_gets_its_data() {
     let mut cfg = TestConfig::new(broker.port(), "config-change");
     cfg.loops.push(TestLoop::new("TIC-801", old.clone()));
     let config = ws.write_config(&cfg);
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&config).await;
     assert!(daemon.sigterm().await.success());
 
     cfg.loops.push(TestLoop::new("TIC-802", new.clone()));
@@ -43,8 +42,7 @@ async fn a_loop_added_while_the_session_persists_gets_its_data() {
                 .map(|t| (t.to_string(), json_sample(60.0, t0 + 1_000 * k)))
         })
         .collect();
-    let published = publish(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
-    assert_eq!(published.acked_count(), msgs.len());
+    publish_all(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
     eventually(
         "the new loop's samples in the store",
         Duration::from_secs(30),

@@ -2,13 +2,13 @@
 //! person can act on, keeps retrying with backoff (never a busy loop), and never prints the
 //! password; the right one, from a file or from the environment, gets samples stored.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, PasswordFrom, TestConfig, TestLoop, Workspace, eventually,
-    sample_count, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, publish_all};
+use crate::common::daemon::{
+    DaemonProcess, LoopTopics, PasswordFrom, TestConfig, TestLoop, Workspace, eventually, unique,
+    wait_for_samples,
 };
-use crate::plant::{json_sample, recent_past_ms};
+use crate::common::plant::{json_sample, recent_past_ms};
 use std::time::Duration;
 
 const TAG: &str = "TIC-501";
@@ -75,10 +75,9 @@ async fn a_refused_password_is_reported_and_retried_and_the_right_one_connects()
 
     // The right password in the same file.
     std::fs::write(&password_file, format!("{RIGHT}\n")).unwrap();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&config).await;
     publish_samples(broker.port(), &topics, 0, 20).await;
-    wait_for_count(&db, 60).await;
+    wait_for_samples(&db, 60, Duration::from_secs(60)).await;
     assert!(daemon.sigterm().await.success());
 
     // The right password from an environment variable only the daemon sees.
@@ -90,7 +89,7 @@ async fn a_refused_password_is_reported_and_retried_and_the_right_one_connects()
         .wait_for_log("connected to the MQTT broker", Duration::from_secs(30))
         .await;
     publish_samples(broker.port(), &topics, 20, 20).await;
-    wait_for_count(&db, 120).await;
+    wait_for_samples(&db, 120, Duration::from_secs(60)).await;
     assert!(daemon.sigterm().await.success());
 
     let log = daemon.full_log();
@@ -118,29 +117,12 @@ async fn publish_samples(port: u16, topics: &LoopTopics, from: i64, n: i64) {
                 .map(|t| (t.to_string(), json_sample(50.0 + k as f64, t0 + 1000 * k)))
         })
         .collect();
-    let published = publish(
+    publish_all(
         port,
         &msgs,
         PublishOptions {
             credentials: Some((GATEWAY.0.into(), GATEWAY.1.into())),
             ..PublishOptions::new(unique("gateway"))
-        },
-    )
-    .await;
-    assert_eq!(published.acked_count(), msgs.len());
-}
-
-async fn wait_for_count(db: &std::path::Path, want: u64) {
-    eventually(
-        &format!("{want} samples stored"),
-        Duration::from_secs(60),
-        async || {
-            let n = sample_count(db).await?;
-            if n == want {
-                Ok(())
-            } else {
-                Err(format!("{n} stored"))
-            }
         },
     )
     .await;

@@ -3,13 +3,13 @@
 //! the store's own export, the missed setpoint change raises an alert in the store and on the
 //! alert topic, and the daemon publishes nowhere but its own alert and status topics.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, Spy, SpyOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, assert_live_matches_offline,
-    episode_line, eventually, headroom, open_store, sample_count, stored_keys, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, Spy, SpyOptions, publish_all};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, TestConfig, TestLoop, assert_live_matches_offline, episode_line,
+    eventually, headroom, open_store, stored_keys, unique, wait_for_samples,
 };
-use crate::plant::{messages, recent_past_ms, vessel};
+use crate::common::plant::{messages, recent_past_ms, vessel};
 use serde_json::Value;
 use std::collections::BTreeSet;
 use std::time::Duration;
@@ -19,17 +19,12 @@ const TAG: &str = "TIC-101";
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own_topics() {
     let broker = Mosquitto::start(BrokerOptions::default()).await;
-    let ws = Workspace::new("e2e");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("e2e")), TAG);
-    let mut cfg = TestConfig::new(broker.port(), "e2e");
-    cfg.loops.push(TestLoop {
+    let rig = LoopRig::with(TestConfig::new(broker.port(), "e2e"), TAG, |l| TestLoop {
         op_max: 60.0,
         settle_within_s: 900.0,
         max_overshoot_pct: Some(15.0),
-        ..TestLoop::new(TAG, topics.clone())
+        ..l
     });
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
 
     // The spy listens to everything before the daemon exists, so it sees all it publishes.
     let spy = Spy::start(
@@ -41,8 +36,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
         },
     )
     .await;
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
     // An hour at one sample per 2 s. The vessel's PV tops out at 68 °C with the valve fully
     // open, so the step to 75 °C at 2300 s cannot be met: that is the miss. The other steps
@@ -55,27 +49,9 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     ];
     let samples = vessel(60.0, 11).run(&schedule, 3600.0, 2.0);
     let t0_ms = recent_past_ms(2 * 3600);
-    let (msgs, keys) = messages(TAG, &topics, t0_ms, &samples);
-    let published = publish(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
-    assert_eq!(
-        published.acked_count(),
-        msgs.len(),
-        "the broker acknowledged every message"
-    );
-
-    eventually(
-        "every sample in the store",
-        Duration::from_secs(90),
-        async || {
-            let n = sample_count(&db).await?;
-            if n as usize == keys.len() {
-                Ok(())
-            } else {
-                Err(format!("{n} of {} samples stored", keys.len()))
-            }
-        },
-    )
-    .await;
+    let (msgs, keys) = messages(TAG, &rig.topics, t0_ms, &samples);
+    let published = publish_all(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
+    wait_for_samples(&rig.db, keys.len(), Duration::from_secs(90)).await;
     let alert: Value = eventually(
         "the unreachable alert on the alert topic",
         Duration::from_secs(60),
@@ -83,7 +59,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
             let alerts: Vec<Value> = spy
                 .received()
                 .into_iter()
-                .filter(|m| m.topic == cfg.alert_topic)
+                .filter(|m| m.topic == rig.cfg.alert_topic)
                 .map(|m| serde_json::from_slice(&m.payload).expect("an alert is JSON"))
                 .collect();
             alerts
@@ -98,7 +74,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     assert!(status.success(), "the daemon exited with {status}");
 
     // Every sample, exactly the published ones.
-    let stored = stored_keys(&db, &[TAG]).await.expect("read the store");
+    let stored = stored_keys(&rig.db, &[TAG]).await.expect("read the store");
     let expected: BTreeSet<_> = keys.iter().cloned().collect();
     assert_eq!(stored.len(), expected.len());
     assert!(
@@ -109,7 +85,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     // The live verdicts equal the offline analysis of the store's own export, for every
     // episode the live tracker finalised (the last window is still open at the end of data).
     let live: Vec<Value> =
-        serde_json::from_str(&headroom(["episodes", "--db", path(&db), "--json"]).await)
+        serde_json::from_str(&headroom(["episodes", "--db", path(&rig.db), "--json"]).await)
             .expect("episodes --json is JSON");
     let finals: Vec<&Value> = live.iter().filter(|e| e["final"] == true).collect();
     let live_list: Vec<String> = live.iter().map(episode_line).collect();
@@ -117,7 +93,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
         finals.len() >= 3,
         "the first three setpoint changes are final; live: {live_list:#?}"
     );
-    assert_live_matches_offline(&ws, &db, &config, TAG, &finals).await;
+    assert_live_matches_offline(&rig.ws, &rig.db, &rig.config, TAG, &finals).await;
     let missed: Vec<&Value> = finals
         .iter()
         .copied()
@@ -134,7 +110,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
     assert!(miss["settling_time_s"].is_null());
 
     // The miss is an alert in the store...
-    let store = open_store(&db).await;
+    let store = open_store(&rig.db).await;
     let alerts = store.alerts(false).await.expect("read alerts");
     store.close().await;
     assert!(
@@ -160,7 +136,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
         published.connections, 1,
         "the gateway reconnected, so it may have sent duplicates"
     );
-    let gateway: BTreeSet<&str> = topics.all().into_iter().collect();
+    let gateway: BTreeSet<&str> = rig.topics.all().into_iter().collect();
     let received = eventually(
         "the spy to receive every gateway message",
         Duration::from_secs(60),
@@ -200,7 +176,7 @@ async fn an_hour_of_data_is_stored_scored_as_offline_and_alerted_only_on_its_own
         .map(|m| m.topic.as_str())
         .filter(|t| !gateway.contains(t))
         .collect();
-    let own: BTreeSet<&str> = [cfg.alert_topic.as_str(), cfg.status_topic.as_str()].into();
+    let own: BTreeSet<&str> = [rig.cfg.alert_topic.as_str(), rig.cfg.status_topic.as_str()].into();
     assert!(
         daemon_topics.is_subset(&own),
         "the daemon published outside its own topics: {daemon_topics:?}"

@@ -4,13 +4,13 @@
 //! no longer knows. Every valid sample is stored, every bad message is counted under its reason,
 //! and the daemon keeps running without flooding its log.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{Message, PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, open_store,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{Message, PublishOptions, publish_all};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, LoopTopics, TestConfig, TestLoop, Workspace, eventually, open_store,
     stored_keys, unique,
 };
-use crate::plant::{Rng, json_sample, recent_past_ms, seed};
+use crate::common::plant::{Rng, json_sample, recent_past_ms, seed};
 use headroom::sample::Signal;
 use headroom::store::Store;
 use std::collections::{BTreeMap, BTreeSet};
@@ -22,7 +22,6 @@ const DROPPED: &str = "FIC-602";
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn bad_payloads_are_counted_by_reason_and_every_valid_sample_is_stored() {
     let seed = seed(0xbad_0601);
-    eprintln!("seed {seed} (set HEADROOM_TEST_SEED to replay)");
     let mut rng = Rng::new(seed);
     let broker = Mosquitto::start(BrokerOptions::default()).await;
     let ws = Workspace::new("malformed");
@@ -42,8 +41,7 @@ async fn bad_payloads_are_counted_by_reason_and_every_valid_sample_is_stored() {
         .push(TestLoop::new(DROPPED, dropped_topics.clone()));
     let config = ws.write_config(&cfg);
     let db = ws.db_path();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&config).await;
 
     let t0 = recent_past_ms(3600);
     let pv_a = format!("{}/tt-a", topics.pv);
@@ -150,13 +148,12 @@ async fn bad_payloads_are_counted_by_reason_and_every_valid_sample_is_stored() {
         let at = rng.below(storm.len() + 1);
         storm.insert(at, m);
     }
-    let published = publish(
+    publish_all(
         broker.port(),
         &storm,
         PublishOptions::new(unique("gateway")),
     )
     .await;
-    assert_eq!(published.acked_count(), storm.len());
 
     eventually(
         "every valid sample stored and every bad message counted",
@@ -203,8 +200,7 @@ async fn bad_payloads_are_counted_by_reason_and_every_valid_sample_is_stored() {
         }
         late.push((topics.sp.clone(), json_sample(55.0, t1 + 2_000 * k)));
     }
-    let published = publish(broker.port(), &late, PublishOptions::new(unique("gateway"))).await;
-    assert_eq!(published.acked_count(), late.len());
+    publish_all(broker.port(), &late, PublishOptions::new(unique("gateway"))).await;
     *expected.entry("unknown_topic").or_default() += 300;
     eventually(
         "the unknown topics counted",
@@ -265,14 +261,8 @@ async fn rejections(db: &std::path::Path) -> Result<BTreeMap<&'static str, u64>,
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_message_bigger_than_any_limit_is_counted_and_does_not_block_the_stream() {
     let broker = Mosquitto::start(BrokerOptions::default()).await;
-    let ws = Workspace::new("huge-payload");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("huge")), TAG);
-    let mut cfg = TestConfig::new(broker.port(), "huge-payload");
-    cfg.loops.push(TestLoop::new(TAG, topics.clone()));
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let rig = LoopRig::new(broker.port(), "huge-payload", TAG);
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
     let t0 = recent_past_ms(600);
     let mut msgs: Vec<Message> = Vec::new();
@@ -281,26 +271,25 @@ async fn a_message_bigger_than_any_limit_is_counted_and_does_not_block_the_strea
             // 700 KiB: over the 64 KiB max_payload_bytes and over what the client reads.
             let mut huge = json_sample(1.0, t0 - 1);
             huge.resize(700 * 1024, b' ');
-            msgs.push((topics.pv.clone(), huge));
+            msgs.push((rig.topics.pv.clone(), huge));
         }
-        for t in topics.all() {
+        for t in rig.topics.all() {
             msgs.push((t.to_string(), json_sample(50.0, t0 + 1_000 * k)));
         }
     }
-    let published = publish(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
-    assert_eq!(published.acked_count(), msgs.len());
+    publish_all(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
     eventually(
         "the samples behind the huge message stored, and it counted",
         Duration::from_secs(30),
         async || {
-            let stored = stored_keys(&db, &[TAG]).await?.len();
-            let counted = rejections(&db).await?;
+            let stored = stored_keys(&rig.db, &[TAG]).await?.len();
+            let counted = rejections(&rig.db).await?;
             if stored == 60 && counted.get("oversized_payload") == Some(&1) {
                 Ok(())
             } else {
                 Err(format!(
                     "{stored} of 60 stored, rejections {counted:?}; log:\n{}",
-                    crate::harness::tail(&daemon.log(), 6)
+                    crate::common::daemon::tail(&daemon.log(), 6)
                 ))
             }
         },

@@ -9,8 +9,8 @@
 //! samples with the wall clock, sees a plant 120 times as fast: TIC-305's 2800 s time constant
 //! looks like 23 s, and its setpoint moves every 15 s.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::harness::{
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::daemon::{
     DaemonProcess, Workspace, assert_live_matches_offline, episode_line, eventually,
     final_episodes, open_store, tail, unique,
 };

@@ -9,13 +9,13 @@
 //! messages in the stack measurements, STACK-NOTES §5). Nothing tells the daemon that those
 //! messages ever existed, which is why the broker settings are a documented requirement.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{Message, PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, SampleKey, TestConfig, TestLoop, Workspace, eventually,
-    sample_count, stored_keys, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{Message, PublishOptions, publish};
+use crate::common::daemon::{
+    DaemonProcess, LoopTopics, SampleKey, TestConfig, TestLoop, Workspace, sample_count,
+    stored_keys, unique, wait_for_samples,
 };
-use crate::plant::{json_sample, recent_past_ms};
+use crate::common::plant::{json_sample, recent_past_ms};
 use headroom::sample::Signal;
 use std::collections::BTreeSet;
 use std::time::Duration;
@@ -40,8 +40,7 @@ async fn publishers_outrunning_the_writer_lose_nothing() {
     }
     let config = ws.write_config(&cfg);
     let db = ws.db_path();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&config).await;
 
     // Each publisher is one loop's gateway: sp, pv, op in turn, a second apart per signal.
     let t0 = recent_past_ms(12 * 3600);
@@ -93,19 +92,7 @@ async fn publishers_outrunning_the_writer_lose_nothing() {
         expected.len()
     );
 
-    eventually(
-        "all 80,000 samples in the store",
-        Duration::from_secs(150),
-        async || {
-            let n = sample_count(&db).await?;
-            if n as usize >= expected.len() {
-                Ok(())
-            } else {
-                Err(format!("{n} of {} stored", expected.len()))
-            }
-        },
-    )
-    .await;
+    wait_for_samples(&db, expected.len(), Duration::from_secs(150)).await;
     assert!(daemon.sigterm().await.success());
     let tag_refs: Vec<&str> = tags.iter().map(String::as_str).collect();
     let stored = stored_keys(&db, &tag_refs).await.expect("read the store");

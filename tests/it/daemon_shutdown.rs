@@ -3,13 +3,12 @@
 //! disconnect and exit 0. What it had not committed stays with the broker, under its session:
 //! a client that resumes that session receives it.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, Spy, SpyOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, SampleKey, TestConfig, TestLoop, Workspace, eventually, stored_keys,
-    unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, Spy, SpyOptions, publish_all};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, LoopTopics, SampleKey, eventually, stored_keys, unique,
 };
-use crate::plant::{messages, recent_past_ms, vessel};
+use crate::common::plant::{messages, recent_past_ms, vessel};
 use headroom::sample::Signal;
 use std::collections::BTreeSet;
 use std::time::Duration;
@@ -19,24 +18,17 @@ const TAG: &str = "LIC-401";
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn sigterm_after_a_burst_commits_and_acknowledges_exactly_what_arrived() {
     let broker = Mosquitto::start(BrokerOptions::default()).await;
-    let ws = Workspace::new("shutdown");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("shutdown")), TAG);
-    let mut cfg = TestConfig::new(broker.port(), "shutdown");
-    cfg.loops.push(TestLoop::new(TAG, topics.clone()));
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let rig = LoopRig::new(broker.port(), "shutdown", TAG);
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
     // A burst of 15,003 messages, as fast as the broker takes them.
     let samples = vessel(100.0, 3).run(&[(1000.0, 58.0)], 10_000.0, 2.0);
-    let (msgs, keys) = messages(TAG, &topics, recent_past_ms(4 * 3600), &samples);
-    let published = publish(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
-    assert_eq!(published.acked_count(), msgs.len());
+    let (msgs, keys) = messages(TAG, &rig.topics, recent_past_ms(4 * 3600), &samples);
+    publish_all(broker.port(), &msgs, PublishOptions::new(unique("gateway"))).await;
     let status = daemon.sigterm().await;
     assert_eq!(status.code(), Some(0), "the daemon's exit after SIGTERM");
 
-    let stored = stored_keys(&db, &[TAG]).await.expect("read the store");
+    let stored = stored_keys(&rig.db, &[TAG]).await.expect("read the store");
     eprintln!(
         "{} of {} samples were committed before the daemon stopped",
         stored.len(),
@@ -48,7 +40,7 @@ async fn sigterm_after_a_burst_commits_and_acknowledges_exactly_what_arrived() {
     let spy = Spy::start(
         broker.port(),
         SpyOptions {
-            client_id: cfg.client_id.clone(),
+            client_id: rig.cfg.client_id.clone(),
             filters: Vec::new(),
             clean_session: false,
         },
@@ -62,7 +54,7 @@ async fn sigterm_after_a_burst_commits_and_acknowledges_exactly_what_arrived() {
             let redelivered: BTreeSet<SampleKey> = spy
                 .received()
                 .iter()
-                .map(|m| key_of(&topics, &m.topic, &m.payload))
+                .map(|m| key_of(&rig.topics, &m.topic, &m.payload))
                 .collect();
             let covered = burst
                 .iter()

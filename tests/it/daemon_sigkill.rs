@@ -5,13 +5,12 @@
 //! sample cannot be stored twice. In the end the store holds exactly the published samples and
 //! SQLite finds the file sound.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, open_store,
-    sample_count, stored_keys, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{PublishOptions, spawn_publish};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, open_store, sample_count, stored_keys, unique, wait_for_samples,
 };
-use crate::plant::{Rng, messages, recent_past_ms, seed, vessel};
+use crate::common::plant::{Rng, messages, recent_past_ms, seed, vessel};
 use std::collections::BTreeSet;
 use std::time::Duration;
 
@@ -21,39 +20,27 @@ const KILLS: usize = 5;
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn sigkill_at_random_points_loses_and_duplicates_nothing() {
     let seed = seed(0x5eed_0301);
-    eprintln!("seed {seed} (set HEADROOM_TEST_SEED to replay)");
     let mut rng = Rng::new(seed);
 
     let broker = Mosquitto::start(BrokerOptions::default()).await;
-    let ws = Workspace::new("sigkill");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("sigkill")), TAG);
-    let mut cfg = TestConfig::new(broker.port(), "sigkill");
-    cfg.loops.push(TestLoop::new(TAG, topics.clone()));
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
+    let rig = LoopRig::new(broker.port(), "sigkill", TAG);
 
     // The first run creates the session, so the broker queues messages for the daemon while it
     // is dead; later runs resume it.
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
     // 12,003 messages at 1,500 a second: about eight seconds of publishing, during which the
     // daemon is killed five times.
     let samples = vessel(100.0, 9).run(&[(900.0, 62.0), (4000.0, 48.0)], 8000.0, 2.0);
-    let (msgs, keys) = messages(TAG, &topics, recent_past_ms(4 * 3600), &samples);
-    let port = broker.port();
-    let to_send = msgs.clone();
-    let publisher = tokio::spawn(async move {
-        publish(
-            port,
-            &to_send,
-            PublishOptions {
-                per_second: Some(1_500.0),
-                ..PublishOptions::new(unique("gateway"))
-            },
-        )
-        .await
-    });
+    let (msgs, keys) = messages(TAG, &rig.topics, recent_past_ms(4 * 3600), &samples);
+    let publisher = spawn_publish(
+        broker.port(),
+        msgs.clone(),
+        PublishOptions {
+            per_second: Some(1_500.0),
+            ..PublishOptions::new(unique("gateway"))
+        },
+    );
 
     let mut stored_at_kill = Vec::new();
     for _ in 0..KILLS {
@@ -61,8 +48,8 @@ async fn sigkill_at_random_points_loses_and_duplicates_nothing() {
         let after = Duration::from_secs_f64(rng.range_f64(0.05, 1.5));
         tokio::time::sleep(after).await;
         daemon.sigkill().await;
-        stored_at_kill.push(sample_count(&db).await.unwrap_or(0));
-        daemon = DaemonProcess::start(&config);
+        stored_at_kill.push(sample_count(&rig.db).await.unwrap_or(0));
+        daemon = DaemonProcess::start(&rig.config);
     }
     eprintln!(
         "samples stored at each kill: {stored_at_kill:?} of {}",
@@ -88,23 +75,11 @@ async fn sigkill_at_random_points_loses_and_duplicates_nothing() {
         "published (topic, time) pairs are distinct"
     );
 
-    eventually(
-        "every sample in the store",
-        Duration::from_secs(120),
-        async || {
-            let n = sample_count(&db).await?;
-            if n as usize >= expected.len() {
-                Ok(())
-            } else {
-                Err(format!("{n} of {} stored", expected.len()))
-            }
-        },
-    )
-    .await;
+    wait_for_samples(&rig.db, expected.len(), Duration::from_secs(120)).await;
     let status = daemon.sigterm().await;
     assert!(status.success(), "the last daemon exited with {status}");
 
-    let stored = stored_keys(&db, &[TAG]).await.expect("read the store");
+    let stored = stored_keys(&rig.db, &[TAG]).await.expect("read the store");
     assert_eq!(
         stored.len(),
         expected.len(),
@@ -114,7 +89,7 @@ async fn sigkill_at_random_points_loses_and_duplicates_nothing() {
         stored == expected,
         "the stored samples are not the published ones"
     );
-    let store = open_store(&db).await;
+    let store = open_store(&rig.db).await;
     let integrity = store.integrity_check().await.expect("integrity check");
     assert_eq!(integrity, "ok");
     assert_eq!(store.sample_count().await.unwrap() as usize, expected.len());

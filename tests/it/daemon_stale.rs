@@ -9,13 +9,13 @@
 //!   limit has passed on it.
 //! - A signal that starts a little after the others, within the limit, is not stale.
 
-use crate::broker::{BrokerOptions, Mosquitto};
-use crate::clients::{Message, PublishOptions, Spy, SpyOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, TestConfig, TestLoop, Workspace, eventually, headroom, stored_keys,
-    unique,
+use crate::common::broker::{BrokerOptions, Mosquitto};
+use crate::common::clients::{Message, PublishOptions, Spy, SpyOptions, publish, publish_all};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, LoopTopics, TestConfig, TestLoop, Workspace, eventually, headroom,
+    stored_keys, unique,
 };
-use crate::plant::{json_sample, recent_past_ms};
+use crate::common::plant::{json_sample, recent_past_ms};
 use headroom::sample::Signal;
 use serde_json::Value;
 use std::collections::BTreeSet;
@@ -40,15 +40,17 @@ struct Rig {
 impl Rig {
     async fn start(name: &str, stale_after_periods: f64) -> Rig {
         let broker = Mosquitto::start(BrokerOptions::default()).await;
-        let ws = Workspace::new(name);
-        let topics = LoopTopics::new(&format!("plant/{}", unique(name)), TAG);
-        let mut cfg = TestConfig::new(broker.port(), name);
-        cfg.loops.push(TestLoop {
+        let LoopRig {
+            ws,
+            topics,
+            cfg,
+            config,
+            db,
+        } = LoopRig::with(TestConfig::new(broker.port(), name), TAG, |l| TestLoop {
             expected_period_s: PERIOD_S,
             stale_after_periods: Some(stale_after_periods),
-            ..TestLoop::new(TAG, topics.clone())
+            ..l
         });
-        let config = ws.write_config(&cfg);
         let spy = Spy::start(
             broker.port(),
             SpyOptions {
@@ -58,10 +60,9 @@ impl Rig {
             },
         )
         .await;
-        let mut daemon = DaemonProcess::start(&config);
-        daemon.wait_subscribed().await;
+        let daemon = DaemonProcess::start_subscribed(&config).await;
         Rig {
-            db: ws.db_path(),
+            db,
             broker,
             _ws: ws,
             cfg,
@@ -74,7 +75,7 @@ impl Rig {
     /// Publishes at `per_second` messages a second and returns once the broker has
     /// acknowledged all of them.
     async fn publish(&self, msgs: &[Message], per_second: f64) {
-        let published = publish(
+        publish_all(
             self.broker.port(),
             msgs,
             PublishOptions {
@@ -84,11 +85,6 @@ impl Rig {
             },
         )
         .await;
-        assert_eq!(
-            published.acked_count(),
-            msgs.len(),
-            "the broker acknowledged every message"
-        );
     }
 
     /// The `stale_tag` alerts for the loop published on the alert topic so far, in order.

@@ -6,13 +6,13 @@
 //!
 //! A missing `openssl` fails the test with the command that installs it; it never skips.
 
-use crate::broker::{BrokerOptions, Mosquitto, TlsListener};
-use crate::clients::{Message, PublishOptions, publish};
-use crate::harness::{
-    DaemonProcess, LoopTopics, SampleKey, TestConfig, TestLoop, Workspace, eventually,
-    sample_count, stored_keys, tail, unique,
+use crate::common::broker::{BrokerOptions, Mosquitto, TlsListener};
+use crate::common::clients::{Message, PublishOptions, publish};
+use crate::common::daemon::{
+    DaemonProcess, LoopRig, LoopTopics, SampleKey, TestConfig, TestLoop, eventually, sample_count,
+    stored_keys, tail, unique,
 };
-use crate::plant::{json_sample, recent_past_ms};
+use crate::common::plant::{json_sample, recent_past_ms};
 use headroom::sample::Signal;
 use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
@@ -23,6 +23,15 @@ use std::time::Duration;
 const TAG: &str = "TIC-401";
 
 const OPENSSL_HINT: &str = "apt-get install -y openssl";
+
+/// The `openssl req` options for a new P-256 key, unencrypted.
+const NEW_EC_KEY: &[&str] = &[
+    "-newkey",
+    "ec",
+    "-pkeyopt",
+    "ec_paramgen_curve:P-256",
+    "-nodes",
+];
 
 /// The test's certificates, all PEM, in one temp directory.
 struct Pki {
@@ -53,23 +62,11 @@ impl Pki {
              extendedKeyUsage = serverAuth\n",
         )
         .expect("write the extension file");
+        let server_req = ["-keyout", "server.key", "-out", "server.csr"];
+        let subject = ["-subj", "/CN=127.0.0.1"];
         openssl(
             d,
-            &[
-                "req",
-                "-new",
-                "-newkey",
-                "ec",
-                "-pkeyopt",
-                "ec_paramgen_curve:P-256",
-                "-nodes",
-                "-keyout",
-                "server.key",
-                "-out",
-                "server.csr",
-                "-subj",
-                "/CN=127.0.0.1",
-            ],
+            &[&["req", "-new"], NEW_EC_KEY, &server_req, &subject].concat(),
         );
         openssl(
             d,
@@ -118,27 +115,25 @@ fn make_ca(dir: &Path, name: &str, common_name: &str) {
     openssl(
         dir,
         &[
-            "req",
-            "-x509",
-            "-newkey",
-            "ec",
-            "-pkeyopt",
-            "ec_paramgen_curve:P-256",
-            "-nodes",
-            "-keyout",
-            &key,
-            "-out",
-            &cert,
-            "-days",
-            "2",
-            "-sha256",
-            "-subj",
-            &subject,
-            "-addext",
-            "basicConstraints = critical, CA:TRUE",
-            "-addext",
-            "keyUsage = critical, keyCertSign, cRLSign",
-        ],
+            &["req", "-x509"],
+            NEW_EC_KEY,
+            &[
+                "-keyout",
+                &key,
+                "-out",
+                &cert,
+                "-days",
+                "2",
+                "-sha256",
+                "-subj",
+                &subject,
+                "-addext",
+                "basicConstraints = critical, CA:TRUE",
+                "-addext",
+                "keyUsage = critical, keyCertSign, cRLSign",
+            ],
+        ]
+        .concat(),
     );
 }
 
@@ -182,16 +177,45 @@ fn client_tls(ca_file: &Path) -> Arc<rustls::ClientConfig> {
     )
 }
 
+/// Publishes over the broker's TLS listener as a client that trusts `ca_file`; fails the test
+/// with `what` and the broker's log unless the broker acknowledged every message.
+async fn publish_over_tls(broker: &Mosquitto, ca_file: &Path, msgs: &[Message], what: &str) {
+    let published = publish(
+        broker.tls_port(),
+        msgs,
+        PublishOptions {
+            tls: Some(client_tls(ca_file)),
+            deadline: Duration::from_secs(60),
+            ..PublishOptions::new(unique("gateway"))
+        },
+    )
+    .await;
+    assert_eq!(
+        published.acked_count(),
+        msgs.len(),
+        "{what}; its log:\n{}",
+        broker.log()
+    );
+}
+
+/// A broker with a TLS listener whose certificate `pki` made.
+async fn tls_broker(pki: &Pki) -> Mosquitto {
+    Mosquitto::start(BrokerOptions {
+        tls: Some(pki.listener()),
+        ..BrokerOptions::default()
+    })
+    .await
+}
+
 /// A config for one loop, watched over TLS on the broker's TLS listener with `ca_file`.
-fn tls_config(broker: &Mosquitto, ca_file: &Path, topics: &LoopTopics) -> TestConfig {
-    let mut cfg = TestConfig::new(broker.tls_port(), "tls");
+fn tls_rig(broker: &Mosquitto, name: &str, ca_file: &Path) -> LoopRig {
+    let mut cfg = TestConfig::new(broker.tls_port(), name);
     cfg.tls = true;
     cfg.ca_file = Some(ca_file.to_path_buf());
-    cfg.loops.push(TestLoop {
+    LoopRig::with(cfg, TAG, |l| TestLoop {
         expected_period_s: 1.0,
-        ..TestLoop::new(TAG, topics.clone())
-    });
-    cfg
+        ..l
+    })
 }
 
 /// `n` seconds of one sample a second per signal, starting `t0_ms`, and their store keys.
@@ -215,42 +239,26 @@ fn samples(topics: &LoopTopics, t0_ms: i64, n: i64) -> (Vec<Message>, BTreeSet<S
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn over_tls_with_the_brokers_ca_every_sample_is_stored() {
     let pki = Pki::new();
-    let broker = Mosquitto::start(BrokerOptions {
-        tls: Some(pki.listener()),
-        ..BrokerOptions::default()
-    })
-    .await;
-    let ws = Workspace::new("tls");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("tls")), TAG);
-    let config = ws.write_config(&tls_config(&broker, &pki.ca, &topics));
-    let db = ws.db_path();
+    let broker = tls_broker(&pki).await;
+    let rig = tls_rig(&broker, "tls", &pki.ca);
+    let db = &rig.db;
 
-    let mut daemon = DaemonProcess::start(&config);
-    daemon.wait_subscribed().await;
+    let mut daemon = DaemonProcess::start_subscribed(&rig.config).await;
 
-    let (msgs, keys) = samples(&topics, recent_past_ms(600), 40);
-    let published = publish(
-        broker.tls_port(),
+    let (msgs, keys) = samples(&rig.topics, recent_past_ms(600), 40);
+    publish_over_tls(
+        &broker,
+        &pki.ca,
         &msgs,
-        PublishOptions {
-            tls: Some(client_tls(&pki.ca)),
-            deadline: Duration::from_secs(60),
-            ..PublishOptions::new(unique("gateway"))
-        },
+        "the broker acknowledged every message sent over TLS",
     )
     .await;
-    assert_eq!(
-        published.acked_count(),
-        msgs.len(),
-        "the broker acknowledged every message sent over TLS; its log:\n{}",
-        broker.log()
-    );
 
     eventually(
         "every sample sent over TLS in the store",
         Duration::from_secs(60),
         async || {
-            let stored = stored_keys(&db, &[TAG]).await?;
+            let stored = stored_keys(db, &[TAG]).await?;
             if stored == keys {
                 Ok(())
             } else {
@@ -272,22 +280,15 @@ async fn over_tls_with_the_brokers_ca_every_sample_is_stored() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_ca_that_did_not_sign_the_brokers_certificate_is_refused_with_a_clear_error() {
     let pki = Pki::new();
-    let broker = Mosquitto::start(BrokerOptions {
-        tls: Some(pki.listener()),
-        ..BrokerOptions::default()
-    })
-    .await;
-    let ws = Workspace::new("tls-wrong-ca");
-    let topics = LoopTopics::new(&format!("plant/{}", unique("tls-wrong-ca")), TAG);
-    let cfg = tls_config(&broker, &pki.stranger_ca, &topics);
-    let config = ws.write_config(&cfg);
-    let db = ws.db_path();
+    let broker = tls_broker(&pki).await;
+    let rig = tls_rig(&broker, "tls-wrong-ca", &pki.stranger_ca);
+    let (topics, cfg, db) = (&rig.topics, &rig.cfg, &rig.db);
     let tls_port = broker.tls_port();
     // Connections the broker logs on its TLS listener from here on (the harness probed it once
     // while starting the broker).
     let attempts_before = tls_connections(&broker.log(), tls_port);
 
-    let mut daemon = DaemonProcess::start(&config);
+    let mut daemon = DaemonProcess::start(&rig.config);
     // The reason is in the log: the broker's certificate is not from a CA the daemon trusts.
     eventually(
         "the daemon to log why it refuses the broker",
@@ -311,23 +312,14 @@ async fn a_ca_that_did_not_sign_the_brokers_certificate_is_refused_with_a_clear_
     .await;
 
     // A publisher that does trust the broker's CA sends data while the daemon is refused...
-    let (msgs, _) = samples(&topics, recent_past_ms(600), 10);
-    let published = publish(
-        tls_port,
+    let (msgs, _) = samples(topics, recent_past_ms(600), 10);
+    publish_over_tls(
+        &broker,
+        &pki.ca,
         &msgs,
-        PublishOptions {
-            tls: Some(client_tls(&pki.ca)),
-            deadline: Duration::from_secs(60),
-            ..PublishOptions::new(unique("gateway"))
-        },
+        "the broker's TLS listener works for a client with the right CA",
     )
     .await;
-    assert_eq!(
-        published.acked_count(),
-        msgs.len(),
-        "the broker's TLS listener works for a client with the right CA; its log:\n{}",
-        broker.log()
-    );
 
     // ...and the daemon keeps trying: the broker sees it come back again and again.
     eventually(
@@ -360,7 +352,7 @@ async fn a_ca_that_did_not_sign_the_brokers_certificate_is_refused_with_a_clear_
         daemon.log()
     );
     assert_eq!(
-        sample_count(&db).await,
+        sample_count(db).await,
         Ok(0),
         "the daemon stored samples from a broker it should not trust"
     );

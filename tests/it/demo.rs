@@ -9,10 +9,9 @@
 //! - The demo leaves nothing behind: a second demo on the same fixed ports starts and finishes,
 //!   and the ports are free afterwards.
 
-use crate::helpers::headroom_bin;
+use crate::common::{free_port, headroom_bin, port_is_free};
 use headroom::analysis::Verdict;
 use headroom::store::{EpisodeRow, Store};
-use std::net::{Ipv4Addr, TcpListener};
 use std::path::Path;
 use std::process::Stdio;
 use std::time::Duration;
@@ -22,17 +21,6 @@ const DURATION: &str = "1d";
 const SPEED: &str = "8000";
 /// Generous: the machine may be busy with every other test.
 const RUN_DEADLINE: Duration = Duration::from_secs(180);
-
-fn free_port() -> u16 {
-    TcpListener::bind((Ipv4Addr::LOCALHOST, 0))
-        .and_then(|l| l.local_addr())
-        .expect("a free port")
-        .port()
-}
-
-fn port_is_free(port: u16) -> bool {
-    TcpListener::bind((Ipv4Addr::LOCALHOST, port)).is_ok()
-}
 
 struct Finished {
     stdout: String,

@@ -3,7 +3,7 @@
 //! generator (set HEADROOM_REGENERATE=1 to rewrite it) and checks that it shows what it is there
 //! to show: a loop whose misses are partly tuning and partly the steam valve.
 
-use crate::helpers::headroom_bin;
+use crate::common::headroom_bin;
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use std::fmt::Write;
 use std::path::PathBuf;

@@ -1,21 +1,19 @@
 //! The one integration-test binary. Each module tests one capability through the public API or the
-//! built `headroom` binary; shared helpers live in `helpers`.
+//! built `headroom` binary; the helpers shared with any other test binary live in
+//! `tests/common/`.
+
+#[path = "../common/mod.rs"]
+mod common;
 
 mod cli;
 mod cli_flags;
 mod corpus;
 mod demo;
 mod example_data;
-mod helpers;
 mod reference_python;
 mod scenarios;
 
-// The daemon against a real Mosquitto: the harness, then one module per behaviour.
-mod broker;
-mod clients;
-mod harness;
-mod plant;
-
+// The daemon against a real Mosquitto (harness in `common`), one module per behaviour.
 mod daemon_broker_restart;
 mod daemon_config_change;
 mod daemon_credentials;

@@ -1,22 +1,11 @@
 //! The store query commands as users meet them: `loops`, `episodes`, `alerts` (and `--ack`),
 //! `export`, on a store filled through the store's own API.
 
-use crate::helpers::headroom_bin;
+use crate::common::run_headroom_text as run;
+use crate::common::sim::{series, store_samples};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig};
-use headroom::analysis::{AnalysisOptions, LoopSetup, OpRange, Series, Spec, analyze_loop};
-use headroom::sample::{Sample, Signal};
+use headroom::analysis::{AnalysisOptions, LoopSetup, OpRange, Spec, analyze_loop};
 use headroom::store::{AlertInput, Store};
-use std::process::Command;
-use std::sync::Arc;
-
-fn run(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(headroom_bin()).args(args).output().unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
 
 /// A store with two hours of one simulated loop, its episodes and one alert.
 async fn filled_store(path: &std::path::Path) -> (Store, i64) {
@@ -28,30 +17,9 @@ async fn filled_store(path: &std::path::Path) -> (Store, i64) {
     });
     let rows = sim.run(&[(600.0, 55.0), (4200.0, 52.0)], 7200.0, 5.0);
     let origin = jiff::Timestamp::now().as_millisecond() - 3 * 3_600_000;
-    let tag: Arc<str> = Arc::from("TIC-9");
-    let mut samples = Vec::new();
-    for r in &rows {
-        let ts_ms = origin + (r.time_s * 1000.0) as i64;
-        for (signal, value) in [(Signal::Sp, r.sp), (Signal::Pv, r.pv), (Signal::Op, r.op)] {
-            samples.push(Sample {
-                loop_tag: tag.clone(),
-                signal,
-                ts_ms,
-                value,
-            });
-        }
-    }
+    let samples = store_samples("TIC-9", &rows, |r| origin + (r.time_s * 1000.0) as i64);
     store.insert_samples(&samples).await.unwrap();
-    let series = Series::new(
-        rows.iter()
-            .map(|r| origin as f64 / 1000.0 + r.time_s)
-            .collect(),
-        rows.iter().map(|r| r.sp).collect(),
-        rows.iter().map(|r| r.pv).collect(),
-        rows.iter().map(|r| r.op).collect(),
-        None,
-    )
-    .unwrap();
+    let series = series(&rows, origin as f64 / 1000.0);
     let report = analyze_loop(
         &series,
         &LoopSetup {

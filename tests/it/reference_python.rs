@@ -9,7 +9,7 @@
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-use crate::helpers::headroom_bin;
+use crate::common::headroom_bin;
 
 const INSTALL: &str = "python3 -m venv target/pyenv && \
                        target/pyenv/bin/pip install -r tests/reference/requirements.txt \

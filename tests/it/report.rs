@@ -2,7 +2,8 @@
 //! a well-formed HTML file with well-formed SVG, a real headless browser's screenshot of it, and
 //! the clear lines for an empty week, a loop without setpoint changes and one without a model.
 
-use crate::helpers::headroom_bin;
+use crate::common::run_headroom_text;
+use crate::common::sim::store_samples;
 use headroom::analysis::segment::{ChangeShape, WindowEnd};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
 use headroom::analysis::{EpisodeResult, Model, Verdict};
@@ -122,19 +123,7 @@ async fn simulated_change(
         initial_sp: sp_from,
     });
     let rows = sim.run(&[(600.0, sp_to)], 3_600.0, 10.0);
-    let tag: Arc<str> = Arc::from(tag);
-    let mut samples = Vec::new();
-    for r in &rows {
-        let ts_ms = t0_ms - 600_000 + (r.time_s * 1000.0) as i64;
-        for (signal, value) in [(Signal::Sp, r.sp), (Signal::Pv, r.pv), (Signal::Op, r.op)] {
-            samples.push(Sample {
-                loop_tag: tag.clone(),
-                signal,
-                ts_ms,
-                value,
-            });
-        }
-    }
+    let samples = store_samples(tag, &rows, |r| t0_ms - 600_000 + (r.time_s * 1000.0) as i64);
     store.insert_samples(&samples).await.unwrap();
 }
 
@@ -149,110 +138,53 @@ async fn simulated_change(
 async fn seeded_store(path: &Path) -> Store {
     let store = Store::open(path).await.unwrap();
     let day = |d: i64, h: i64| W48_MS + d * 86_400_000 + h * HOUR_MS;
-    let put = |tag: &'static str, at: i64, e: EpisodeResult| {
-        let store = store.clone();
-        async move {
-            store
-                .upsert_episode(tag, &e, at, at + 3_000_000, true, at)
-                .await
-                .unwrap();
-        }
-    };
-    let tv = Verdict::TuningLimited;
-    put(
-        "TIC-101",
-        day(0, 8),
-        episode(tv, 50.0, 55.0, 40.0, 60.0, Some(1310.0), 1.0, 0.0),
-    )
-    .await;
-    put(
-        "TIC-101",
-        day(1, 8),
-        episode(tv, 55.0, 60.0, 42.0, 58.0, Some(1250.0), 3.5, 0.1),
-    )
-    .await;
-    put(
-        "TIC-101",
-        day(2, 8),
-        episode(tv, 60.0, 65.0, 45.0, 55.0, Some(1400.0), 2.0, 0.05),
-    )
-    .await;
-    put(
-        "TIC-101",
-        day(3, 8),
-        episode(Verdict::Met, 65.0, 62.0, 48.0, 48.0, Some(700.0), 0.5, 0.0),
-    )
-    .await;
+    let (met, tv, av, inc) = (
+        Verdict::Met,
+        Verdict::TuningLimited,
+        Verdict::ActuatorLimited,
+        Verdict::Inconclusive,
+    );
     let w46 = W48_MS - 2 * WEEK_MS;
-    put(
-        "TIC-101",
-        w46 + HOUR_MS,
-        episode(Verdict::Met, 50.0, 52.0, 40.0, 60.0, Some(500.0), 0.0, 0.0),
-    )
-    .await;
-    put(
-        "TIC-101",
-        w46 + 30 * HOUR_MS,
-        episode(Verdict::Met, 52.0, 50.0, 41.0, 41.0, Some(600.0), 0.0, 0.0),
-    )
-    .await;
-    // An episode still open at generation time: shown as such, not counted.
-    store
-        .upsert_episode(
-            "TIC-101",
-            &episode(
-                Verdict::Inconclusive,
-                62.0,
-                64.0,
-                47.0,
-                53.0,
-                None,
-                0.0,
-                0.0,
-            ),
-            day(6, 20),
-            day(6, 21),
-            false,
-            0,
-        )
-        .await
-        .unwrap();
-    store
-        .insert_model("TIC-101", &model(0.50, 560.0, 35.0), W48_MS - 3 * WEEK_MS)
-        .await
-        .unwrap();
-    store
-        .insert_model("TIC-101", &model(0.55, 600.0, 37.0), day(3, 12))
-        .await
-        .unwrap();
-
-    let av = Verdict::ActuatorLimited;
-    for (d, settle) in [(1, 900.0), (3, 950.0), (5, 1_010.0)] {
-        put(
-            "TIC-102",
-            day(d, 14),
-            episode(av, 50.0, 70.0, 72.0, 28.0, Some(settle), 0.0, 0.6),
-        )
-        .await;
+    let (t1, t2, f1) = ("TIC-101", "TIC-102", "FIC-201");
+    // The final episodes: loop, start, result (each lasts 3,000 s).
+    #[rustfmt::skip]
+    let finals = [
+        (t1, day(0, 8), episode(tv, 50.0, 55.0, 40.0, 60.0, Some(1310.0), 1.0, 0.0)),
+        (t1, day(1, 8), episode(tv, 55.0, 60.0, 42.0, 58.0, Some(1250.0), 3.5, 0.1)),
+        (t1, day(2, 8), episode(tv, 60.0, 65.0, 45.0, 55.0, Some(1400.0), 2.0, 0.05)),
+        (t1, day(3, 8), episode(met, 65.0, 62.0, 48.0, 48.0, Some(700.0), 0.5, 0.0)),
+        (t1, w46 + HOUR_MS, episode(met, 50.0, 52.0, 40.0, 60.0, Some(500.0), 0.0, 0.0)),
+        (t1, w46 + 30 * HOUR_MS, episode(met, 52.0, 50.0, 41.0, 41.0, Some(600.0), 0.0, 0.0)),
+        (t2, day(1, 14), episode(av, 50.0, 70.0, 72.0, 28.0, Some(900.0), 0.0, 0.6)),
+        (t2, day(3, 14), episode(av, 50.0, 70.0, 72.0, 28.0, Some(950.0), 0.0, 0.6)),
+        (t2, day(5, 14), episode(av, 50.0, 70.0, 72.0, 28.0, Some(1_010.0), 0.0, 0.6)),
+        (f1, day(2, 9), episode(inc, 10.0, 12.0, 30.0, 70.0, Some(95.0), 0.0, 0.0)),
+        (f1, day(4, 9), episode(inc, 12.0, 10.0, 35.0, 35.0, None, 0.0, 0.0)),
+    ];
+    for (tag, at, e) in &finals {
+        store
+            .upsert_episode(tag, e, *at, at + 3_000_000, true, *at)
+            .await
+            .unwrap();
     }
+    // An episode still open at generation time: shown as such, not counted.
+    let open = episode(inc, 62.0, 64.0, 47.0, 53.0, None, 0.0, 0.0);
     store
-        .insert_model("TIC-102", &model(0.8, 300.0, 30.0), W48_MS - WEEK_MS)
+        .upsert_episode(t1, &open, day(6, 20), day(6, 21), false, 0)
         .await
         .unwrap();
-
-    let inc = Verdict::Inconclusive;
-    put(
-        "FIC-201",
-        day(2, 9),
-        episode(inc, 10.0, 12.0, 30.0, 70.0, Some(95.0), 0.0, 0.0),
-    )
-    .await;
-    put(
-        "FIC-201",
-        day(4, 9),
-        episode(inc, 12.0, 10.0, 35.0, 35.0, None, 0.0, 0.0),
-    )
-    .await;
+    store
+        .insert_model(t1, &model(0.50, 560.0, 35.0), W48_MS - 3 * WEEK_MS)
+        .await
+        .unwrap();
+    store
+        .insert_model(t1, &model(0.55, 600.0, 37.0), day(3, 12))
+        .await
+        .unwrap();
+    store
+        .insert_model(t2, &model(0.8, 300.0, 30.0), W48_MS - WEEK_MS)
+        .await
+        .unwrap();
 
     // Samples behind the two telling changes, and a level loop with a gap.
     simulated_change(
@@ -366,16 +298,7 @@ async fn fixture() -> Fixture {
 }
 
 fn report(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(headroom_bin())
-        .arg("report")
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
+    run_headroom_text(&[&["report"], args].concat())
 }
 
 /// Writes the W48 summary in all three formats; returns the folder.

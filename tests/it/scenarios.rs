@@ -1,11 +1,10 @@
 //! Whole-loop scenarios on simulated data with a known truth: the verdicts and the
 //! recommendation must say what the simulated plant makes true.
 
+use crate::common::sim::{series, setup};
 use headroom::analysis::assess::Action;
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
-use headroom::analysis::{
-    AnalysisOptions, LoopReport, LoopSetup, OpRange, Series, Spec, Verdict, analyze_loop,
-};
+use headroom::analysis::{LoopReport, Series, Spec, Verdict, analyze_loop};
 
 pub struct Scenario {
     pub process: Process,
@@ -27,31 +26,12 @@ pub fn simulate(s: &Scenario, seed: u64) -> Series {
         seed,
         initial_sp: s.initial_sp,
     });
-    let samples = sim.run(&s.schedule, s.duration_s, s.sample_s);
-    Series::new(
-        samples.iter().map(|x| x.time_s).collect(),
-        samples.iter().map(|x| x.sp).collect(),
-        samples.iter().map(|x| x.pv).collect(),
-        samples.iter().map(|x| x.op).collect(),
-        None,
-    )
-    .unwrap()
+    series(&sim.run(&s.schedule, s.duration_s, s.sample_s), 0.0)
 }
 
 pub fn analyze(s: &Scenario, seed: u64) -> LoopReport {
     let series = simulate(s, seed);
-    analyze_loop(
-        &series,
-        &LoopSetup {
-            tag: "TIC-1".into(),
-            op: OpRange {
-                min: s.controller.op_min,
-                max: s.controller.op_max,
-            },
-            spec: s.spec,
-            options: AnalysisOptions::default(),
-        },
-    )
+    analyze_loop(&series, &setup("TIC-1", &s.controller, s.spec))
 }
 
 /// A jacketed vessel heated through a valve: K = 0.8 °C/%, τ = 300 s, θ = 30 s, ambient 20 °C.

@@ -181,6 +181,26 @@ pub async fn publish(port: u16, messages: &[Message], o: PublishOptions) -> Publ
     Published { acked, connections }
 }
 
+/// [`publish`], then fails the test unless the broker acknowledged every message.
+pub async fn publish_all(port: u16, messages: &[Message], o: PublishOptions) -> Published {
+    let published = publish(port, messages, o).await;
+    assert_eq!(
+        published.acked_count(),
+        messages.len(),
+        "the broker acknowledged every message"
+    );
+    published
+}
+
+/// [`publish`] in a task of its own, for a test that acts while the messages go out.
+pub fn spawn_publish(
+    port: u16,
+    messages: Vec<Message>,
+    o: PublishOptions,
+) -> tokio::task::JoinHandle<Published> {
+    tokio::spawn(async move { publish(port, &messages, o).await })
+}
+
 async fn sleep_until_opt(at: Option<tokio::time::Instant>) {
     match at {
         Some(at) => tokio::time::sleep_until(at).await,

@@ -3,8 +3,8 @@
 //! topics. Time is accelerated: an hour of data goes out in seconds, stamped in the recent past,
 //! and the daemon takes every time from the data.
 
-use crate::clients::Message;
-use crate::harness::{LoopTopics, SampleKey};
+use super::clients::Message;
+use super::daemon::{LoopTopics, SampleKey};
 use headroom::analysis::sim::{LoopSim, LoopSimConfig, SimSample};
 use headroom::sample::Signal;
 
@@ -80,11 +80,13 @@ impl Rng {
     }
 }
 
-/// The seed for randomised tests: `HEADROOM_TEST_SEED` when set (to replay a failure), else
-/// the given default. Tests print it.
+/// The seed for a randomised test: `HEADROOM_TEST_SEED` when set (to replay a failure), else
+/// `default`. It is printed.
 pub fn seed(default: u64) -> u64 {
-    std::env::var("HEADROOM_TEST_SEED")
+    let seed = std::env::var("HEADROOM_TEST_SEED")
         .ok()
         .and_then(|s| s.parse().ok())
-        .unwrap_or(default)
+        .unwrap_or(default);
+    eprintln!("seed {seed} (set HEADROOM_TEST_SEED to replay)");
+    seed
 }

@@ -5,6 +5,7 @@
 //!
 //! A missing Mosquitto fails the test with the command that installs it; it never skips.
 
+use super::free_port;
 use std::path::{Path, PathBuf};
 use std::process::Stdio;
 use std::time::Duration;
@@ -79,13 +80,6 @@ fn find_program(name: &str, also: &[&str]) -> PathBuf {
                  Install it with: {INSTALL_HINT}"
             )
         })
-}
-
-/// A port on 127.0.0.1 that was free a moment ago. Another process can take it before the
-/// broker binds it; [`Mosquitto::start`] notices that and tries another one.
-pub fn free_port() -> u16 {
-    let l = std::net::TcpListener::bind("127.0.0.1:0").expect("bind 127.0.0.1:0");
-    l.local_addr().expect("local address").port()
 }
 
 impl Mosquitto {

@@ -1,7 +1,7 @@
 //! The daemon as the tests meet it: a real `headroom run` process with its own temp directory,
 //! configuration, store and log, plus waiting for conditions and reading the store back.
 
-use crate::helpers::headroom_bin;
+use super::headroom_bin;
 use headroom::sample::Signal;
 use headroom::store::Store;
 use std::collections::BTreeSet;
@@ -154,6 +154,45 @@ impl TestLoop {
     }
 }
 
+/// The usual files of a daemon test: a workspace holding the written config for one loop on
+/// unique topics, and the store's path.
+pub struct LoopRig {
+    pub ws: Workspace,
+    pub topics: LoopTopics,
+    pub cfg: TestConfig,
+    pub config: PathBuf,
+    pub db: PathBuf,
+}
+
+impl LoopRig {
+    /// One loop `tag` with [`TestLoop::new`]'s settings, watched on the broker at `port`; `name`
+    /// names the workspace, the topics' prefix and the client.
+    pub fn new(port: u16, name: &str, tag: &str) -> LoopRig {
+        LoopRig::with(TestConfig::new(port, name), tag, |l| l)
+    }
+
+    /// `cfg` (named `name` by [`TestConfig::new`]) with one more loop `tag`: [`TestLoop::new`]'s
+    /// settings changed by `shape`.
+    pub fn with(
+        mut cfg: TestConfig,
+        tag: &str,
+        shape: impl FnOnce(TestLoop) -> TestLoop,
+    ) -> LoopRig {
+        let name = cfg.name.clone();
+        let ws = Workspace::new(&name);
+        let topics = LoopTopics::new(&format!("plant/{}", unique(&name)), tag);
+        cfg.loops.push(shape(TestLoop::new(tag, topics.clone())));
+        let config = ws.write_config(&cfg);
+        LoopRig {
+            db: ws.db_path(),
+            ws,
+            topics,
+            cfg,
+            config,
+        }
+    }
+}
+
 /// Where the daemon reads its MQTT password from.
 #[derive(Debug, Clone)]
 pub enum PasswordFrom {
@@ -164,6 +203,8 @@ pub enum PasswordFrom {
 /// A daemon configuration for tests, written as the TOML a user would write.
 #[derive(Debug, Clone)]
 pub struct TestConfig {
+    /// What the test calls itself: the client id and the alert and status topics start with it.
+    pub name: String,
     pub port: u16,
     pub client_id: String,
     pub alert_topic: String,
@@ -185,6 +226,7 @@ impl TestConfig {
     pub fn new(port: u16, name: &str) -> TestConfig {
         let id = unique(name);
         TestConfig {
+            name: name.into(),
             port,
             alert_topic: format!("headroom-test/{id}/alerts"),
             status_topic: format!("headroom-test/{id}/status"),
@@ -309,6 +351,13 @@ impl DaemonProcess {
         }
     }
 
+    /// Starts the daemon and waits until it is connected and subscribed.
+    pub async fn start_subscribed(config: &Path) -> DaemonProcess {
+        let mut daemon = DaemonProcess::start(config);
+        daemon.wait_subscribed().await;
+        daemon
+    }
+
     /// This run's log so far.
     pub fn log(&self) -> String {
         let all = self.full_log();
@@ -354,7 +403,7 @@ impl DaemonProcess {
     /// SIGTERM, then waits for the exit (failing the test if it takes longer than
     /// [`STOP_DEADLINE`]).
     pub async fn sigterm(&mut self) -> ExitStatus {
-        crate::broker::send_signal(&self.child, "TERM");
+        super::broker::send_signal(&self.child, "TERM");
         match tokio::time::timeout(STOP_DEADLINE, self.child.wait()).await {
             Ok(status) => status.expect("wait for the daemon"),
             Err(_) => panic!(
@@ -403,6 +452,19 @@ pub async fn stored_keys(db: &Path, tags: &[&str]) -> Result<BTreeSet<SampleKey>
     }
     store.close().await;
     Ok(keys)
+}
+
+/// Waits until the store holds exactly `n` samples (a test that finds more fails at the deadline).
+pub async fn wait_for_samples(db: &Path, n: usize, within: Duration) {
+    eventually(&format!("{n} samples in the store"), within, async || {
+        let stored = sample_count(db).await?;
+        if stored as usize == n {
+            Ok(())
+        } else {
+            Err(format!("{stored} of {n} stored"))
+        }
+    })
+    .await;
 }
 
 /// Opens the store read-only (for checks after the daemon has stopped).
