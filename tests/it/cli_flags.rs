@@ -2,16 +2,12 @@
 //! out-of-range value exits with code 2 and a message naming the flag as the user typed it,
 //! before anything runs.
 
-use crate::helpers::headroom_bin;
-use std::process::Command;
+use crate::common::run_headroom_text;
 
 /// Runs `headroom` and returns (exit code, stderr).
 fn headroom(args: &[&str]) -> (Option<i32>, String) {
-    let out = Command::new(headroom_bin()).args(args).output().unwrap();
-    (
-        out.status.code(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
+    let (code, _, err) = run_headroom_text(args);
+    (Some(code), err)
 }
 
 /// Asserts that `args` exit 2 with `flag` named in the message.
