@@ -3,8 +3,8 @@
 
 use crate::cli::{AlertsArgs, EpisodesArgs, ExportArgs, StoreArgs, UsageError};
 use crate::config::Config;
-use crate::daemon::writer::rfc3339;
 use crate::store::Store;
+use crate::units::rfc3339;
 use anyhow::Context;
 use std::io::Write;
 use std::path::PathBuf;

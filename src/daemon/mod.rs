@@ -14,62 +14,24 @@
 //! is closed. Messages that arrived after the stop are not acknowledged, so the broker
 //! redelivers them to the next run.
 
-pub mod modbus;
-pub mod mqtt;
 pub mod writer;
 
 use crate::analysis::LoopSetup;
 use crate::config::Config;
-use crate::sample::{Sample, Signal};
+use crate::modbus::source as modbus;
+use crate::mqtt::source as mqtt;
+use crate::sample::Signal;
 use crate::store::Store;
+use crate::units::ms_to_s;
 use anyhow::Context;
 use std::collections::HashMap;
 use std::future::Future;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::AtomicU64;
-use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, watch};
 
-/// The time polled samples are stamped with, in milliseconds since the Unix epoch. The system
-/// clock in operation; a simulated clock in the demo.
-pub type Clock = Arc<dyn Fn() -> i64 + Send + Sync>;
-
-/// The system clock.
-pub fn system_clock() -> Clock {
-    Arc::new(|| jiff::Timestamp::now().as_millisecond())
-}
-
-/// Messages from the sources to the writer.
-#[derive(Debug)]
-pub enum Ingest {
-    /// Decoded samples, and the MQTT message to acknowledge once they are committed.
-    Samples {
-        samples: Vec<Sample>,
-        ack: Option<rumqttc::Publish>,
-    },
-    /// Input that was refused, for the counters and the log.
-    Rejected {
-        reason: &'static str,
-        source: String,
-        detail: String,
-    },
-    /// A source failed to deliver (a device that did not answer, answered with an exception, or
-    /// could not be reached), for the counters only: the source logs it itself.
-    Failure {
-        reason: &'static str,
-        source: String,
-    },
-}
-
-/// Messages from the writer to the MQTT task.
-#[derive(Debug)]
-pub enum Outbound {
-    /// Acknowledge this message: its samples are committed.
-    Ack(rumqttc::Publish),
-    /// Publish on one of the daemon's own topics.
-    Publish { topic: String, payload: Vec<u8> },
-}
+pub use crate::source::{Clock, system_clock};
 
 /// Messages queued from the sources to the writer. When full, the sources wait: the MQTT task
 /// stops reading, and the broker holds the rest (QoS 1). Nothing is dropped.
@@ -77,35 +39,6 @@ const INGEST_CAPACITY: usize = 1_024;
 /// Acknowledgements and publishes queued from the writer to the MQTT task. When full, the
 /// writer waits.
 const OUTBOUND_CAPACITY: usize = 8_192;
-
-/// Logs at most once per `every`, counting what it held back in between.
-#[derive(Debug)]
-pub struct RateLimitedLog {
-    every: Duration,
-    last: Option<Instant>,
-    suppressed: u64,
-}
-
-impl RateLimitedLog {
-    pub fn new(every: Duration) -> RateLimitedLog {
-        RateLimitedLog {
-            every,
-            last: None,
-            suppressed: 0,
-        }
-    }
-
-    /// `Some(number held back since the last line)` when a line may be logged now.
-    pub fn allow(&mut self) -> Option<u64> {
-        if self.last.is_none_or(|l| l.elapsed() >= self.every) {
-            self.last = Some(Instant::now());
-            Some(std::mem::take(&mut self.suppressed))
-        } else {
-            self.suppressed += 1;
-            None
-        }
-    }
-}
 
 /// A daemon ready to run: the store is open and everything is resolved from the configuration.
 pub struct Daemon {
@@ -259,8 +192,7 @@ impl Daemon {
 /// and the newest model.
 async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyhow::Result<()> {
     let setup = rt.tracker.setup().clone();
-    let look_back_ms =
-        (1.25 * setup.options.horizon_factor * setup.spec.settle_within_s * 1000.0) as i64;
+    let look_back_ms = writer::horizon_ms(&setup, 1.25);
     let overview = store
         .loops_overview()
         .await?
@@ -282,7 +214,7 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
         .await?
         .iter()
         .filter(|e| e.is_final)
-        .map(|e| e.start_ms as f64 / 1000.0)
+        .map(|e| ms_to_s(e.start_ms))
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.max(t))));
     let model = store
         .latest_models()
@@ -310,7 +242,7 @@ pub async fn stored_rows(
         let rows = store.samples(tag, s, lo, to_ms).await?;
         series.push(
             rows.into_iter()
-                .map(|(t, v)| (t as f64 / 1000.0, v))
+                .map(|(t, v)| (ms_to_s(t), v))
                 .collect::<Vec<_>>(),
         );
     }
@@ -349,8 +281,8 @@ fn resolve_mqtt(
         password,
         keep_alive: m.keep_alive(),
         subscriptions: config.subscriptions(),
-        limits: crate::ingest::decode::Limits::from_settings(m),
-        topics: Arc::new(crate::ingest::decode::TopicMap::new(config)),
+        limits: crate::mqtt::Limits::from_settings(m),
+        topics: Arc::new(crate::mqtt::TopicMap::new(config)),
     })
 }
 

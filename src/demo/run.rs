@@ -11,7 +11,7 @@ use super::{
 use crate::cli::UsageError;
 use crate::config::Config;
 use crate::daemon::{Clock, Daemon};
-use crate::modbus::device::{RegisterMap, SimDevice};
+use crate::modbus::sim::device::{RegisterMap, SimDevice};
 use crate::store::Store;
 use anyhow::Context;
 use rumqttc::{AsyncClient, EventLoop, MqttOptions, QoS};

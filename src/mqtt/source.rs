@@ -4,9 +4,9 @@
 //! committed — so a crash loses nothing the broker has not kept. It also publishes the daemon's
 //! own alert and status messages; it never publishes anywhere else.
 
-use super::{Ingest, Outbound, RateLimitedLog};
+use super::decode::{self, Limits, TopicMap};
 use crate::config::PayloadFormat;
-use crate::ingest::decode::{self, Limits, TopicMap};
+use crate::source::{Ingest, RateLimitedLog};
 use rumqttc::{AsyncClient, ConnectReturnCode, Event, MqttOptions, Packet, QoS, Transport};
 use std::collections::VecDeque;
 use std::sync::Arc;
@@ -30,6 +30,15 @@ const STABLE_AFTER: Duration = Duration::from_secs(10);
 
 /// How long shutdown waits for the last acknowledgements to leave before disconnecting anyway.
 const SHUTDOWN_FLUSH: Duration = Duration::from_secs(3);
+
+/// Messages from the writer to the MQTT task.
+#[derive(Debug)]
+pub enum Outbound {
+    /// Acknowledge this message: its samples are committed.
+    Ack(rumqttc::Publish),
+    /// Publish on one of the daemon's own topics.
+    Publish { topic: String, payload: Vec<u8> },
+}
 
 /// Reads the current password; an error is logged by the caller's retry path.
 pub type PasswordReader = Arc<dyn Fn() -> anyhow::Result<Option<String>> + Send + Sync>;

@@ -29,10 +29,11 @@
 //! Times become whole epoch milliseconds, rounded to the nearest (the store's key has
 //! millisecond resolution).
 
+use super::topic;
 use crate::analysis::AutoValues;
 use crate::config::{Config, JsonFields, MqttSettings, PayloadFormat};
-use crate::ingest::topic;
 use crate::sample::{Sample, Signal};
+use crate::units::{ms_to_s, rfc3339};
 use serde_json::Value;
 use std::collections::HashMap;
 use std::sync::Arc;
@@ -273,9 +274,9 @@ impl std::fmt::Display for Rejection {
                 &format!(
                     "time {} is {} s after the message arrived ({}), more than the {} s allowed",
                     rfc3339(*ts_ms),
-                    (*ts_ms as f64 - *received_ms as f64) / 1000.0,
+                    ms_to_s(ts_ms.saturating_sub(*received_ms)),
                     rfc3339(*received_ms),
-                    *max_future_ms as f64 / 1000.0
+                    ms_to_s(*max_future_ms)
                 ),
                 origin,
             ),
@@ -284,11 +285,6 @@ impl std::fmt::Display for Rejection {
 }
 
 impl std::error::Error for Rejection {}
-
-/// Epoch milliseconds as RFC 3339, or the number itself when out of range.
-fn rfc3339(ms: i64) -> String {
-    jiff::Timestamp::from_millisecond(ms).map_or_else(|_| format!("{ms} ms"), |t| t.to_string())
-}
 
 /// A topic shortened and escaped for messages.
 fn short(topic: &str) -> String {

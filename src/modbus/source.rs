@@ -15,13 +15,13 @@
 //!   timeout.
 //! - A poll that runs late skips the ticks it missed rather than bursting to catch up.
 
-use super::{Clock, Ingest, RateLimitedLog};
 use crate::analysis::AutoValues;
 use crate::config::{Config, ModbusDevice};
 use crate::modbus::plan::Plan;
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers;
 use crate::sample::{Sample, Signal};
+use crate::source::{Clock, Ingest, RateLimitedLog};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, watch};
