@@ -482,14 +482,8 @@ impl Writer {
             Ok(row) => {
                 self.counters.alerts_raised += 1;
                 tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, count = row.count, "alert: {}", row.message);
-                if let Some(topic) = &self.settings.alert_topic {
-                    let _ = self
-                        .outbound
-                        .send(Outbound::Publish {
-                            topic: topic.clone(),
-                            payload: alerts::payload(&row).to_string().into_bytes(),
-                        })
-                        .await;
+                if let Some(topic) = self.settings.alert_topic.clone() {
+                    self.publish(topic, alerts::payload(&row)).await;
                 }
             }
             Err(e) => {
@@ -541,7 +535,7 @@ impl Writer {
     }
 
     async fn publish_status(&mut self) {
-        let Some(topic) = &self.settings.status_topic else {
+        let Some(topic) = self.settings.status_topic.clone() else {
             return;
         };
         let payload = serde_json::json!({
@@ -549,12 +543,16 @@ impl Writer {
             "counters": &self.counters,
             "loops": self.loops.len(),
         });
+        self.publish(topic, payload).await;
+    }
+
+    /// Hands a message for one of the daemon's own topics to the MQTT task. When that task has
+    /// ended there is no one to publish it; the alert or status is in the store and the log.
+    async fn publish(&self, topic: String, payload: serde_json::Value) {
+        let payload = payload.to_string().into_bytes();
         let _ = self
             .outbound
-            .send(Outbound::Publish {
-                topic: topic.clone(),
-                payload: payload.to_string().into_bytes(),
-            })
+            .send(Outbound::Publish { topic, payload })
             .await;
     }
 
