@@ -70,7 +70,10 @@ impl Daemon {
                 .setup(tag)
                 .map_err(|e| anyhow::anyhow!("loop {tag}: {e}"))?;
             let expected: Vec<Signal> = l.sources().map(|(s, _)| s).collect();
-            let period = l.expected_period_s.unwrap_or(1.0);
+            // Validation requires it of a watched loop; there is no default to fall back on.
+            let period = l
+                .expected_period_s
+                .with_context(|| format!("loop {tag}: a watched loop needs expected_period_s"))?;
             let mut rt = writer::LoopRuntime::new(setup, expected, period, l.stale_after_periods);
             resume(&store, tag, &mut rt)
                 .await
@@ -265,12 +268,8 @@ fn resolve_mqtt(
         .context("cannot read the MQTT password")?
         .map(|s| s.expose().to_string());
     let settings = m.clone();
-    let password_reader: mqtt::PasswordReader = Arc::new(move || {
-        Ok(settings
-            .password()
-            .map_err(|e| anyhow::anyhow!("{e}"))?
-            .map(|s| s.expose().to_string()))
-    });
+    let password_reader: mqtt::PasswordReader =
+        Arc::new(move || Ok(settings.password()?.map(|s| s.expose().to_string())));
     Ok(mqtt::MqttParams {
         password_reader: Some(password_reader),
         host: m.host.clone(),

@@ -17,7 +17,7 @@
 
 use crate::analysis::AutoValues;
 use crate::config::{Config, ModbusDevice};
-use crate::modbus::plan::Plan;
+use crate::modbus::plan::{Plan, PlanError};
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers;
 use crate::sample::{Sample, Signal};
@@ -59,6 +59,14 @@ impl PolledSignal {
     }
 }
 
+/// A device whose sources cannot be read with the requests Modbus allows.
+#[derive(Debug, thiserror::Error)]
+#[error("Modbus device {device}: {problem}")]
+pub struct DeviceError {
+    pub device: String,
+    pub problem: PlanError,
+}
+
 /// Everything one device's task needs.
 pub struct DeviceParams {
     pub name: String,
@@ -70,7 +78,7 @@ pub struct DeviceParams {
 
 impl DeviceParams {
     /// The poll tasks' parameters for every device of the configuration (watched loops only).
-    pub fn from_config(config: &Config, clock: &Clock) -> anyhow::Result<Vec<DeviceParams>> {
+    pub fn from_config(config: &Config, clock: &Clock) -> Result<Vec<DeviceParams>, DeviceError> {
         let mut out = Vec::new();
         for (name, device) in &config.modbus {
             let signals: Vec<PolledSignal> =
@@ -89,8 +97,12 @@ impl DeviceParams {
                         }),
                     })
                     .collect();
-            let plan = crate::config::modbus::device_plan(&config.loops, name, device)
-                .map_err(|e| anyhow::anyhow!("Modbus device {name}: {e}"))?;
+            let plan = crate::config::modbus::device_plan(&config.loops, name, device).map_err(
+                |problem| DeviceError {
+                    device: name.clone(),
+                    problem,
+                },
+            )?;
             out.push(DeviceParams {
                 name: name.clone(),
                 device: device.clone(),
@@ -117,9 +129,6 @@ impl DeviceParams {
 
 /// Polls one device until `stop` turns true.
 pub async fn run(p: DeviceParams, ingest: mpsc::Sender<Ingest>, mut stop: watch::Receiver<bool>) {
-    let mut log = RateLimitedLog::new(LOG_EVERY);
-    let mut backoff = BACKOFF_FIRST;
-    let mut was_connected = false;
     tracing::info!(
         device = %p.name,
         address = %p.device.address,
@@ -127,94 +136,160 @@ pub async fn run(p: DeviceParams, ingest: mpsc::Sender<Ingest>, mut stop: watch:
         signals = p.signals.len(),
         "polling Modbus device"
     );
-    'connect: while !*stop.borrow() {
+    let mut poller = Poller {
+        p,
+        ingest,
+        log: RateLimitedLog::new(LOG_EVERY),
+        backoff: BACKOFF_FIRST,
+        was_connected: false,
+    };
+    while !*stop.borrow() {
         let connected = tokio::select! {
-            c = connect(&p.device) => c,
+            c = connect(&poller.p.device) => c,
             _ = stop.changed() => break,
         };
-        let mut ctx = match connected {
-            Ok(ctx) => ctx,
-            Err(e) => {
-                if fail(&ingest, &p.name, "modbus_connection").await.is_err() {
-                    break;
-                }
-                if let Some(suppressed) = log.allow() {
-                    tracing::warn!(device = %p.name, address = %p.device.address, suppressed,
-                        retry_in = ?backoff, "cannot connect to the Modbus device: {e}");
-                }
-                if !pause(&mut stop, &mut backoff).await {
-                    break;
-                }
-                continue;
-            }
+        let next = match connected {
+            Ok(ctx) => poller.poll_until_broken(ctx, &mut stop).await,
+            Err(e) => poller.not_connected(&e, &mut stop).await,
         };
-        if was_connected {
-            tracing::info!(device = %p.name, "reconnected to the Modbus device");
+        if next == Next::Stop {
+            break;
         }
-        was_connected = true;
+    }
+    tracing::info!(device = %poller.p.name, "stopped polling the Modbus device");
+}
+
+/// What the poll task does after a connection ended or failed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Next {
+    Reconnect,
+    Stop,
+}
+
+/// One device's poll task between events.
+struct Poller {
+    p: DeviceParams,
+    ingest: mpsc::Sender<Ingest>,
+    log: RateLimitedLog,
+    backoff: Duration,
+    was_connected: bool,
+}
+
+impl Poller {
+    /// Counts and logs a failed connection attempt, then waits the back-off.
+    async fn not_connected(
+        &mut self,
+        e: &std::io::Error,
+        stop: &mut watch::Receiver<bool>,
+    ) -> Next {
+        if !fail(&self.ingest, &self.p.name, "modbus_connection").await {
+            return Next::Stop;
+        }
+        if let Some(suppressed) = self.log.allow() {
+            tracing::warn!(device = %self.p.name, address = %self.p.device.address, suppressed,
+                retry_in = ?self.backoff, "cannot connect to the Modbus device: {e}");
+        }
+        self.pause(stop).await
+    }
+
+    /// Polls on every tick of the device's period until stopped or until a failure needs a new
+    /// connection.
+    async fn poll_until_broken(
+        &mut self,
+        mut ctx: Context,
+        stop: &mut watch::Receiver<bool>,
+    ) -> Next {
+        if self.was_connected {
+            tracing::info!(device = %self.p.name, "reconnected to the Modbus device");
+        }
+        self.was_connected = true;
         let since = Instant::now();
-        let mut ticker = tokio::time::interval(p.device.poll_period);
+        let mut ticker = tokio::time::interval(self.p.device.poll_period);
         ticker.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
         loop {
             tokio::select! {
                 _ = ticker.tick() => {}
-                _ = stop.changed() => break 'connect,
+                _ = stop.changed() => return Next::Stop,
             }
             if since.elapsed() >= STABLE_AFTER {
-                backoff = BACKOFF_FIRST;
+                self.backoff = BACKOFF_FIRST;
             }
-            let ts_ms = (p.clock)();
+            let ts_ms = (self.p.clock)();
             let outcome = tokio::select! {
-                o = poll_once(&mut ctx, &p.plan.requests, p.device.timeout) => o,
-                _ = stop.changed() => break 'connect,
+                o = poll_once(&mut ctx, &self.p.plan.requests, self.p.device.timeout) => o,
+                _ = stop.changed() => return Next::Stop,
             };
             let failure = match outcome {
                 PollOutcome::Ok(responses) => {
-                    let samples: Vec<Sample> = p
-                        .signals
-                        .iter()
-                        .enumerate()
-                        .filter_map(|(i, s)| s.sample(ts_ms, p.plan.slice(i, &responses)))
-                        .collect();
-                    let sent = tokio::select! {
-                        r = ingest.send(Ingest::Samples { samples, ack: None }) => r.is_ok(),
-                        _ = stop.changed() => false,
-                    };
-                    if !sent {
-                        break 'connect;
+                    if !self.deliver(ts_ms, &responses, stop).await {
+                        return Next::Stop;
                     }
                     continue;
                 }
                 failure => failure,
             };
-            let (reason, index) = match &failure {
-                PollOutcome::Timeout { index, .. } => ("modbus_timeout", *index),
-                PollOutcome::Exception { index, .. } => ("modbus_exception", *index),
-                PollOutcome::Io { index, .. } => ("modbus_connection", *index),
-                PollOutcome::WrongLength { index, .. } => ("modbus_reply", *index),
-                PollOutcome::Ok(_) => unreachable!("handled above"),
-            };
-            if fail(&ingest, &p.name, reason).await.is_err() {
-                break 'connect;
-            }
-            if let Some(suppressed) = log.allow() {
-                tracing::warn!(device = %p.name, suppressed, signals = %p.served_by(index),
-                    "Modbus poll failed, no samples this time: {failure}");
+            if !self.poll_failed(&failure).await {
+                return Next::Stop;
             }
             if failure.needs_reconnect() {
                 drop(ctx);
-                if !pause(&mut stop, &mut backoff).await {
-                    break 'connect;
-                }
-                continue 'connect;
+                return self.pause(stop).await;
             }
         }
     }
-    tracing::info!(device = %p.name, "stopped polling the Modbus device");
+
+    /// Hands one poll's samples to the writer; false when stopped or the writer is gone.
+    async fn deliver(
+        &self,
+        ts_ms: i64,
+        responses: &[Vec<u16>],
+        stop: &mut watch::Receiver<bool>,
+    ) -> bool {
+        let p = &self.p;
+        let samples: Vec<Sample> = p
+            .signals
+            .iter()
+            .enumerate()
+            .filter_map(|(i, s)| s.sample(ts_ms, p.plan.slice(i, responses)))
+            .collect();
+        tokio::select! {
+            r = self.ingest.send(Ingest::Samples { samples, ack: None }) => r.is_ok(),
+            _ = stop.changed() => false,
+        }
+    }
+
+    /// Counts and logs a failed poll; false when the writer is gone.
+    async fn poll_failed(&mut self, failure: &PollOutcome) -> bool {
+        let (reason, index) = match failure {
+            PollOutcome::Timeout { index, .. } => ("modbus_timeout", *index),
+            PollOutcome::Exception { index, .. } => ("modbus_exception", *index),
+            PollOutcome::Io { index, .. } => ("modbus_connection", *index),
+            PollOutcome::WrongLength { index, .. } => ("modbus_reply", *index),
+            PollOutcome::Ok(_) => unreachable!("only failures come here"),
+        };
+        if !fail(&self.ingest, &self.p.name, reason).await {
+            return false;
+        }
+        if let Some(suppressed) = self.log.allow() {
+            tracing::warn!(device = %self.p.name, suppressed, signals = %self.p.served_by(index),
+                "Modbus poll failed, no samples this time: {failure}");
+        }
+        true
+    }
+
+    /// Waits the back-off (then doubles it).
+    async fn pause(&mut self, stop: &mut watch::Receiver<bool>) -> Next {
+        let wait = self.backoff;
+        self.backoff = (self.backoff * 2).min(BACKOFF_MAX);
+        tokio::select! {
+            _ = tokio::time::sleep(wait) => if *stop.borrow() { Next::Stop } else { Next::Reconnect },
+            _ = stop.changed() => Next::Stop,
+        }
+    }
 }
 
 /// Opens the connection, bounded by the device's timeout.
-async fn connect(d: &ModbusDevice) -> anyhow::Result<Context> {
+async fn connect(d: &ModbusDevice) -> std::io::Result<Context> {
     let slave = tokio_modbus::Slave(d.unit_id);
     let attempt = async {
         let addr = tokio::net::lookup_host(&d.address)
@@ -226,28 +301,19 @@ async fn connect(d: &ModbusDevice) -> anyhow::Result<Context> {
         std::io::Result::Ok(tokio_modbus::client::tcp::attach_slave(stream, slave))
     };
     match tokio::time::timeout(d.timeout, attempt).await {
-        Ok(r) => Ok(r?),
-        Err(_) => anyhow::bail!("no connection within {:?}", d.timeout),
+        Ok(r) => r,
+        Err(_) => Err(std::io::Error::new(
+            std::io::ErrorKind::TimedOut,
+            format!("no connection within {:?}", d.timeout),
+        )),
     }
 }
 
-/// Counts a failure at the writer; `Err` when the writer is gone.
-async fn fail(ingest: &mpsc::Sender<Ingest>, device: &str, reason: &'static str) -> Result<(), ()> {
-    ingest
-        .send(Ingest::Failure {
-            reason,
-            source: device.to_owned(),
-        })
-        .await
-        .map_err(|_| ())
-}
-
-/// Waits the back-off (then doubles it); false when stopped meanwhile.
-async fn pause(stop: &mut watch::Receiver<bool>, backoff: &mut Duration) -> bool {
-    let wait = *backoff;
-    *backoff = (*backoff * 2).min(BACKOFF_MAX);
-    tokio::select! {
-        _ = tokio::time::sleep(wait) => !*stop.borrow(),
-        _ = stop.changed() => false,
-    }
+/// Counts a failure at the writer; false when the writer is gone.
+async fn fail(ingest: &mpsc::Sender<Ingest>, device: &str, reason: &'static str) -> bool {
+    let failure = Ingest::Failure {
+        reason,
+        source: device.to_owned(),
+    };
+    ingest.send(failure).await.is_ok()
 }

@@ -41,7 +41,8 @@ pub enum Outbound {
 }
 
 /// Reads the current password; an error is logged by the caller's retry path.
-pub type PasswordReader = Arc<dyn Fn() -> anyhow::Result<Option<String>> + Send + Sync>;
+pub type PasswordReader =
+    Arc<dyn Fn() -> Result<Option<String>, crate::config::ConfigError> + Send + Sync>;
 
 /// Everything needed to connect and subscribe, resolved from the configuration.
 #[derive(Clone)]
@@ -109,172 +110,260 @@ pub async fn run(
     mut stop: watch::Receiver<bool>,
 ) {
     let (client, mut eventloop) = AsyncClient::new(options(&params), REQUEST_QUEUE);
-    let mut ingest = Some(ingest);
-    let mut pending: VecDeque<Outbound> = VecDeque::new();
-    let mut backoff = BACKOFF_FIRST;
-    let mut errors = RateLimitedLog::new(Duration::from_secs(30));
-    let mut connected = false;
-    let mut connected_at: Option<tokio::time::Instant> = None;
-    // Whether this run's subscriptions have been confirmed. A resumed session holds the filters
-    // of the run that created it, not necessarily this config's (a loop may have been added), so
-    // every run subscribes once even when the broker resumes the session.
-    let mut subscribed = false;
-    let mut writer_done = false;
-    let mut flush_deadline: Option<tokio::time::Instant> = None;
-    let filters: Vec<rumqttc::SubscribeFilter> = params
-        .subscriptions
-        .iter()
-        .map(|f| rumqttc::SubscribeFilter::new(f.clone(), QoS::AtLeastOnce))
-        .collect();
-
+    let mut link = Link::new(params, client, ingest);
     loop {
-        // Hand queued acknowledgements and publishes to the client without blocking.
-        while let Some(out) = pending.pop_front() {
-            let sent = match &out {
-                Outbound::Ack(p) => client.try_ack(p).is_ok(),
-                Outbound::Publish { topic, payload } => client
-                    .try_publish(topic.as_str(), QoS::AtLeastOnce, false, payload.clone())
-                    .is_ok(),
-            };
-            if !sent {
-                pending.push_front(out);
-                break;
-            }
-        }
-        if writer_done && pending.is_empty() && flush_deadline.is_none() {
-            let _ = client.try_disconnect();
-            flush_deadline = Some(tokio::time::Instant::now() + SHUTDOWN_FLUSH);
-        }
-        if let Some(deadline) = flush_deadline
-            && tokio::time::Instant::now() >= deadline
-        {
+        link.hand_over_pending();
+        if link.done() {
             break;
         }
-
         tokio::select! {
             ev = eventloop.poll() => match ev {
-                Ok(Event::Incoming(Packet::ConnAck(ack))) => {
-                    connected_at = Some(tokio::time::Instant::now());
-                    connected = true;
-                    tracing::info!(
-                        host = %params.host, port = params.port,
-                        session_present = ack.session_present,
-                        "connected to the MQTT broker"
-                    );
-                    if (!ack.session_present || !subscribed) && !filters.is_empty() {
-                        // A new session has no subscriptions, and a resumed one may lack this
-                        // config's: make them (again).
-                        if let Err(e) = client.try_subscribe_many(filters.clone()) {
-                            tracing::error!(error = %e, "could not queue the subscriptions");
-                        }
-                    }
-                }
-                Ok(Event::Incoming(Packet::SubAck(s))) => {
-                    let refused = s.return_codes.iter()
-                        .filter(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure))
-                        .count();
-                    subscribed = true;
-                    if refused > 0 {
-                        tracing::error!(refused, "the broker refused some subscriptions; check its access rules");
-                    } else {
-                        tracing::info!(filters = filters.len(), "subscribed");
-                    }
-                }
-                Ok(Event::Incoming(Packet::Publish(p))) => {
-                    let Some(tx) = ingest.clone() else {
-                        // Stopping: leave it unacknowledged; the broker redelivers it next time.
-                        continue;
-                    };
-                    if p.retain
-                        && matches!(params.topics.lookup(&p.topic), Some((_, _, PayloadFormat::Number)))
-                    {
-                        // A retained value replayed at subscription carries no time of its own:
-                        // stamped with its arrival it would be a sample that never happened.
-                        pending.push_back(Outbound::Ack(p));
-                        continue;
-                    }
-                    let received_ms = jiff::Timestamp::now().as_millisecond();
-                    let msg = match decode::decode(&p.topic, &p.payload, received_ms, &params.topics, &params.limits) {
-                        Ok(samples) => Ingest::Samples { samples, ack: Some(p) },
-                        Err(rejection) => {
-                            let msg = Ingest::Rejected {
-                                reason: rejection.reason(),
-                                source: p.topic.clone(),
-                                detail: rejection.to_string(),
-                            };
-                            // A malformed message never becomes valid: acknowledge it so the
-                            // broker does not redeliver it forever. It is counted, not lost.
-                            pending.push_back(Outbound::Ack(p));
-                            msg
-                        }
-                    };
-                    // Waiting for room is the backpressure: while the writer is busy the broker
-                    // holds the rest. Meanwhile keep taking the writer's acknowledgements, or
-                    // the writer (waiting to hand them over) and this task would wait on each
-                    // other forever.
-                    let mut msg = Some(msg);
-                    while let Some(m) = msg.take() {
-                        tokio::select! {
-                            permit = tx.reserve() => match permit {
-                                Ok(permit) => permit.send(m),
-                                Err(_) => ingest = None,
-                            },
-                            out = outbound.recv(), if !writer_done => {
-                                match out {
-                                    Some(o) => pending.push_back(o),
-                                    None => writer_done = true,
-                                }
-                                msg = Some(m);
-                            }
-                        }
-                    }
-                }
+                Ok(Event::Incoming(Packet::ConnAck(ack))) => link.connected(&ack),
+                Ok(Event::Incoming(Packet::SubAck(s))) => link.subscribed(&s),
+                Ok(Event::Incoming(Packet::Publish(p))) => link.received(p, &mut outbound).await,
                 Ok(_) => {}
                 Err(e) => {
-                    if flush_deadline.is_some() {
+                    if link.flush_deadline.is_some() {
                         break;
                     }
-                    // The back-off starts over only after a connection that lasted: a link that
-                    // drops right after connecting (two clients sharing our id, a broker that
-                    // closes on us) must not reconnect at full speed.
-                    if connected_at.is_some_and(|t| t.elapsed() >= STABLE_AFTER) {
-                        backoff = BACKOFF_FIRST;
-                    }
-                    connected_at = None;
-                    let was_connected = std::mem::replace(&mut connected, false);
-                    if let Some(suppressed) = errors.allow() {
-                        if was_connected {
-                            tracing::warn!(error = %e, suppressed, "lost the MQTT connection; reconnecting");
-                        } else {
-                            let hint = auth_hint(&e);
-                            tracing::warn!(error = %e, suppressed, retry_in = ?backoff, "{hint}");
-                        }
-                    }
-                    if is_auth_refusal(&e)
-                        && let Some(read) = &params.password_reader
-                    {
-                        // The password may have been corrected or rotated: read it again.
-                        if let (Some(user), Ok(Some(pw))) = (&params.username, read()) {
-                            eventloop.mqtt_options.set_credentials(user, pw);
-                        }
-                    }
-                    tokio::time::sleep(backoff).await;
-                    backoff = (backoff * 2).min(BACKOFF_MAX);
+                    link.lost(&e, &mut eventloop.mqtt_options).await;
                 }
             },
-            out = outbound.recv(), if !writer_done => match out {
-                Some(o) => pending.push_back(o),
-                None => writer_done = true,
-            },
-            _ = stop.changed(), if ingest.is_some() => {
+            out = outbound.recv(), if !link.writer_done => link.take(out),
+            _ = stop.changed(), if link.ingest.is_some() => {
                 if *stop.borrow() {
                     // Stop taking new messages; the writer drains what it has and finishes.
-                    ingest = None;
+                    link.ingest = None;
                 }
             }
         }
     }
     tracing::info!("MQTT source stopped");
+}
+
+/// The MQTT task's state between events.
+struct Link {
+    params: MqttParams,
+    client: AsyncClient,
+    /// Where decoded messages go; `None` once stopping (new messages are left unacknowledged).
+    ingest: Option<mpsc::Sender<Ingest>>,
+    /// Acknowledgements and publishes the client's queue had no room for yet.
+    pending: VecDeque<Outbound>,
+    backoff: Duration,
+    errors: RateLimitedLog,
+    is_connected: bool,
+    connected_at: Option<tokio::time::Instant>,
+    /// Whether this run's subscriptions have been confirmed. A resumed session holds the
+    /// filters of the run that created it, not necessarily this config's (a loop may have been
+    /// added), so every run subscribes once even when the broker resumes the session.
+    has_subscribed: bool,
+    /// The writer has handed over its last acknowledgement.
+    writer_done: bool,
+    /// Set once disconnecting: the task ends at this time at the latest.
+    flush_deadline: Option<tokio::time::Instant>,
+    filters: Vec<rumqttc::SubscribeFilter>,
+}
+
+impl Link {
+    fn new(params: MqttParams, client: AsyncClient, ingest: mpsc::Sender<Ingest>) -> Link {
+        let filters = params
+            .subscriptions
+            .iter()
+            .map(|f| rumqttc::SubscribeFilter::new(f.clone(), QoS::AtLeastOnce))
+            .collect();
+        Link {
+            params,
+            client,
+            ingest: Some(ingest),
+            pending: VecDeque::new(),
+            backoff: BACKOFF_FIRST,
+            errors: RateLimitedLog::new(Duration::from_secs(30)),
+            is_connected: false,
+            connected_at: None,
+            has_subscribed: false,
+            writer_done: false,
+            flush_deadline: None,
+            filters,
+        }
+    }
+
+    /// Hands queued acknowledgements and publishes to the client without blocking.
+    fn hand_over_pending(&mut self) {
+        while let Some(out) = self.pending.pop_front() {
+            let sent = match &out {
+                Outbound::Ack(p) => self.client.try_ack(p).is_ok(),
+                Outbound::Publish { topic, payload } => self
+                    .client
+                    .try_publish(topic.as_str(), QoS::AtLeastOnce, false, payload.clone())
+                    .is_ok(),
+            };
+            if !sent {
+                self.pending.push_front(out);
+                break;
+            }
+        }
+    }
+
+    /// Once the writer is done and everything is handed over, disconnects; true when the task
+    /// should end (the disconnect's grace time is over).
+    fn done(&mut self) -> bool {
+        if self.writer_done && self.pending.is_empty() && self.flush_deadline.is_none() {
+            let _ = self.client.try_disconnect();
+            self.flush_deadline = Some(tokio::time::Instant::now() + SHUTDOWN_FLUSH);
+        }
+        self.flush_deadline
+            .is_some_and(|d| tokio::time::Instant::now() >= d)
+    }
+
+    /// Something from the writer: an acknowledgement or a publish, or the end of its messages.
+    fn take(&mut self, out: Option<Outbound>) {
+        match out {
+            Some(o) => self.pending.push_back(o),
+            None => self.writer_done = true,
+        }
+    }
+
+    fn connected(&mut self, ack: &rumqttc::ConnAck) {
+        self.connected_at = Some(tokio::time::Instant::now());
+        self.is_connected = true;
+        tracing::info!(
+            host = %self.params.host, port = self.params.port,
+            session_present = ack.session_present,
+            "connected to the MQTT broker"
+        );
+        if (!ack.session_present || !self.has_subscribed) && !self.filters.is_empty() {
+            // A new session has no subscriptions, and a resumed one may lack this config's:
+            // make them (again).
+            if let Err(e) = self.client.try_subscribe_many(self.filters.clone()) {
+                tracing::error!(error = %e, "could not queue the subscriptions");
+            }
+        }
+    }
+
+    fn subscribed(&mut self, s: &rumqttc::SubAck) {
+        let refused = s
+            .return_codes
+            .iter()
+            .filter(|c| matches!(c, rumqttc::SubscribeReasonCode::Failure))
+            .count();
+        self.has_subscribed = true;
+        if refused > 0 {
+            tracing::error!(
+                refused,
+                "the broker refused some subscriptions; check its access rules"
+            );
+        } else {
+            tracing::info!(filters = self.filters.len(), "subscribed");
+        }
+    }
+
+    /// A message from the broker: decoded and handed to the writer, which acknowledges it once
+    /// its samples are committed. A message refused is acknowledged here (and counted).
+    async fn received(&mut self, p: rumqttc::Publish, outbound: &mut mpsc::Receiver<Outbound>) {
+        let Some(tx) = self.ingest.clone() else {
+            // Stopping: leave it unacknowledged; the broker redelivers it next time.
+            return;
+        };
+        if p.retain
+            && matches!(
+                self.params.topics.lookup(&p.topic),
+                Some((_, _, PayloadFormat::Number))
+            )
+        {
+            // A retained value replayed at subscription carries no time of its own: stamped
+            // with its arrival it would be a sample that never happened.
+            self.pending.push_back(Outbound::Ack(p));
+            return;
+        }
+        let msg = self.decode(p);
+        self.forward(&tx, msg, outbound).await;
+    }
+
+    fn decode(&mut self, p: rumqttc::Publish) -> Ingest {
+        let received_ms = jiff::Timestamp::now().as_millisecond();
+        let params = &self.params;
+        match decode::decode(
+            &p.topic,
+            &p.payload,
+            received_ms,
+            &params.topics,
+            &params.limits,
+        ) {
+            Ok(samples) => Ingest::Samples {
+                samples,
+                ack: Some(p),
+            },
+            Err(rejection) => {
+                let msg = Ingest::Rejected {
+                    reason: rejection.reason(),
+                    source: p.topic.clone(),
+                    detail: rejection.to_string(),
+                };
+                // A malformed message never becomes valid: acknowledge it so the broker does
+                // not redeliver it forever. It is counted, not lost.
+                self.pending.push_back(Outbound::Ack(p));
+                msg
+            }
+        }
+    }
+
+    /// Waits for room in the writer's queue: that is the backpressure, while the writer is busy
+    /// the broker holds the rest. Meanwhile keeps taking the writer's acknowledgements, or the
+    /// writer (waiting to hand them over) and this task would wait on each other forever.
+    async fn forward(
+        &mut self,
+        tx: &mpsc::Sender<Ingest>,
+        msg: Ingest,
+        outbound: &mut mpsc::Receiver<Outbound>,
+    ) {
+        let mut msg = Some(msg);
+        while let Some(m) = msg.take() {
+            tokio::select! {
+                permit = tx.reserve() => match permit {
+                    Ok(permit) => permit.send(m),
+                    Err(_) => self.ingest = None,
+                },
+                out = outbound.recv(), if !self.writer_done => {
+                    self.take(out);
+                    msg = Some(m);
+                }
+            }
+        }
+    }
+
+    /// The connection failed or dropped: logs it, reads the password again after a refusal,
+    /// and waits the back-off before the event loop reconnects.
+    async fn lost(&mut self, e: &rumqttc::ConnectionError, options: &mut MqttOptions) {
+        // The back-off starts over only after a connection that lasted: a link that drops
+        // right after connecting (two clients sharing our id, a broker that closes on us) must
+        // not reconnect at full speed.
+        if self
+            .connected_at
+            .is_some_and(|t| t.elapsed() >= STABLE_AFTER)
+        {
+            self.backoff = BACKOFF_FIRST;
+        }
+        self.connected_at = None;
+        let was_connected = std::mem::replace(&mut self.is_connected, false);
+        if let Some(suppressed) = self.errors.allow() {
+            if was_connected {
+                tracing::warn!(error = %e, suppressed, "lost the MQTT connection; reconnecting");
+            } else {
+                let hint = auth_hint(e);
+                tracing::warn!(error = %e, suppressed, retry_in = ?self.backoff, "{hint}");
+            }
+        }
+        if is_auth_refusal(e)
+            && let Some(read) = &self.params.password_reader
+        {
+            // The password may have been corrected or rotated: read it again.
+            if let (Some(user), Ok(Some(pw))) = (&self.params.username, read()) {
+                options.set_credentials(user, pw);
+            }
+        }
+        tokio::time::sleep(self.backoff).await;
+        self.backoff = (self.backoff * 2).min(BACKOFF_MAX);
+    }
 }
 
 fn is_auth_refusal(e: &rumqttc::ConnectionError) -> bool {
