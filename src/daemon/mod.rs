@@ -63,7 +63,7 @@ impl Daemon {
             Some(m) => Some(resolve_mqtt(config, m)?),
             None => None,
         };
-        let devices = modbus::DeviceParams::from_config(config, &system_clock())?;
+        let devices = modbus_devices(config, &system_clock())?;
         let mut loops = HashMap::new();
         for (tag, l) in config.loops.iter().filter(|(_, l)| l.is_watched()) {
             let setup: LoopSetup = l
@@ -251,6 +251,47 @@ pub async fn stored_rows(
     }
     let rows = crate::analysis::live::align(&series[0], &series[1], &series[2], &series[3]);
     Ok((rows, !series[3].is_empty()))
+}
+
+/// The poll tasks' parameters for every device of the configuration (watched loops only).
+fn modbus_devices(
+    config: &Config,
+    clock: &Clock,
+) -> Result<Vec<modbus::DeviceParams>, modbus::DeviceError> {
+    let mut out = Vec::new();
+    for (name, device) in &config.modbus {
+        let signals: Vec<modbus::PolledSignal> =
+            crate::config::modbus::device_sources(&config.loops, name)
+                .into_iter()
+                .map(|(tag, signal, register)| modbus::PolledSignal {
+                    loop_tag: Arc::from(tag),
+                    signal,
+                    register: *register,
+                    auto_values: (signal == Signal::Mode).then(|| {
+                        config.loops[tag]
+                            .mode
+                            .as_ref()
+                            .map(|m| m.auto_values.clone())
+                            .unwrap_or_default()
+                    }),
+                })
+                .collect();
+        let plan =
+            crate::config::modbus::device_plan(&config.loops, name, device).map_err(|problem| {
+                modbus::DeviceError {
+                    device: name.clone(),
+                    problem,
+                }
+            })?;
+        out.push(modbus::DeviceParams {
+            name: name.clone(),
+            device: device.clone(),
+            plan,
+            signals,
+            clock: clock.clone(),
+        });
+    }
+    Ok(out)
 }
 
 /// Turns the MQTT section into connection parameters (reads the password, builds TLS).

@@ -16,7 +16,7 @@
 //! - A poll that runs late skips the ticks it missed rather than bursting to catch up.
 
 use crate::analysis::AutoValues;
-use crate::config::{Config, ModbusDevice};
+use crate::config::ModbusDevice;
 use crate::modbus::plan::{Plan, PlanError};
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers;
@@ -77,43 +77,6 @@ pub struct DeviceParams {
 }
 
 impl DeviceParams {
-    /// The poll tasks' parameters for every device of the configuration (watched loops only).
-    pub fn from_config(config: &Config, clock: &Clock) -> Result<Vec<DeviceParams>, DeviceError> {
-        let mut out = Vec::new();
-        for (name, device) in &config.modbus {
-            let signals: Vec<PolledSignal> =
-                crate::config::modbus::device_sources(&config.loops, name)
-                    .into_iter()
-                    .map(|(tag, signal, register)| PolledSignal {
-                        loop_tag: Arc::from(tag),
-                        signal,
-                        register: *register,
-                        auto_values: (signal == Signal::Mode).then(|| {
-                            config.loops[tag]
-                                .mode
-                                .as_ref()
-                                .map(|m| m.auto_values.clone())
-                                .unwrap_or_default()
-                        }),
-                    })
-                    .collect();
-            let plan = crate::config::modbus::device_plan(&config.loops, name, device).map_err(
-                |problem| DeviceError {
-                    device: name.clone(),
-                    problem,
-                },
-            )?;
-            out.push(DeviceParams {
-                name: name.clone(),
-                device: device.clone(),
-                plan,
-                signals,
-                clock: clock.clone(),
-            });
-        }
-        Ok(out)
-    }
-
     /// The signals a request serves, for messages: "LIC-301 pv, LIC-301 op".
     fn served_by(&self, request: usize) -> String {
         self.plan
