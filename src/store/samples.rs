@@ -29,6 +29,50 @@ pub struct InsertOutcome {
     pub non_finite: u64,
 }
 
+/// A batch's rows keyed by series id, before the transaction: the series the cache does not
+/// know yet are created in it, and their rows patched.
+struct Keyed {
+    /// (series id, time, value); 0 as the id of a row that waits for a new series.
+    rows: Vec<(i64, i64, f64)>,
+    new_series: Vec<(Arc<str>, Signal)>,
+    /// (row, index into `new_series`).
+    waiting: Vec<(usize, usize)>,
+}
+
+impl Store {
+    /// Resolves series ids from the cache and notes which rows wait for a new series; counts
+    /// and drops non-finite values.
+    fn keyed(&self, samples: &[Sample], outcome: &mut InsertOutcome) -> Keyed {
+        let mut k = Keyed {
+            rows: Vec::with_capacity(samples.len()),
+            new_series: Vec::new(),
+            waiting: Vec::new(),
+        };
+        let mut new_index: HashMap<(Arc<str>, Signal), usize> = HashMap::new();
+        let cache = self.series_cache();
+        for s in samples {
+            if !s.value.is_finite() {
+                outcome.non_finite += 1;
+                continue;
+            }
+            let key = (s.loop_tag.clone(), s.signal);
+            let id = match cache.get(&key) {
+                Some(&id) => id,
+                None => {
+                    let m = *new_index.entry(key.clone()).or_insert_with(|| {
+                        k.new_series.push(key);
+                        k.new_series.len() - 1
+                    });
+                    k.waiting.push((k.rows.len(), m));
+                    0 // patched once the series exists
+                }
+            };
+            k.rows.push((id, s.ts_ms, s.value));
+        }
+        k
+    }
+}
+
 impl Store {
     /// Stores a batch of samples in one transaction. Samples already stored are ignored and
     /// counted as duplicates, so the same batch can safely be written twice.
@@ -38,37 +82,11 @@ impl Store {
         const DOING: &str = "storing samples";
         let mut outcome = InsertOutcome::default();
 
-        // Resolve series ids from the cache; remember which rows wait for a new series.
-        let mut rows: Vec<(i64, i64, f64)> = Vec::with_capacity(samples.len());
-        let mut new_series: Vec<(Arc<str>, Signal)> = Vec::new();
-        let mut new_index: HashMap<(Arc<str>, Signal), usize> = HashMap::new();
-        let mut waiting: Vec<(usize, usize)> = Vec::new(); // (row, index into `new_series`)
-        {
-            let cache = self.series_cache();
-            for s in samples {
-                if !s.value.is_finite() {
-                    outcome.non_finite += 1;
-                    continue;
-                }
-                let key = (s.loop_tag.clone(), s.signal);
-                let id = match cache.get(&key) {
-                    Some(&id) => id,
-                    None => {
-                        let m = match new_index.get(&key) {
-                            Some(&m) => m,
-                            None => {
-                                new_series.push(key.clone());
-                                new_index.insert(key, new_series.len() - 1);
-                                new_series.len() - 1
-                            }
-                        };
-                        waiting.push((rows.len(), m));
-                        0 // patched below, once the series exists
-                    }
-                };
-                rows.push((id, s.ts_ms, s.value));
-            }
-        }
+        let Keyed {
+            mut rows,
+            new_series,
+            waiting,
+        } = self.keyed(samples, &mut outcome);
         if rows.is_empty() {
             return Ok(outcome);
         }
