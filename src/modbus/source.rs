@@ -7,11 +7,11 @@
 //!   the silence becomes a recorded gap and a `stale_tag` alert in the writer.
 //! - **Failures** are counted by reason (`modbus_timeout`, `modbus_exception`,
 //!   `modbus_connection`, `modbus_reply`) for the device, and logged at most once per
-//!   [`LOG_EVERY`] per device with the number held back. An exception names the request and the
+//!   `LOG_EVERY` per device with the number held back. An exception names the request and the
 //!   signals it serves.
 //! - **Reconnects** after a timeout, a broken connection or a reply that does not fit, with a
-//!   back-off that doubles from [`BACKOFF_FIRST`] to [`BACKOFF_MAX`] and starts over once a
-//!   connection has polled well for [`STABLE_AFTER`]. Every connect is bounded by the device's
+//!   back-off that doubles from `BACKOFF_FIRST` to `BACKOFF_MAX` and starts over once a
+//!   connection has polled well for `STABLE_AFTER`. Every connect is bounded by the device's
 //!   timeout.
 //! - A poll that runs late skips the ticks it missed rather than bursting to catch up.
 
