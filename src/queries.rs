@@ -219,7 +219,8 @@ pub async fn export(args: &ExportArgs, out: &mut dyn Write) -> anyhow::Result<()
         .transpose()?
         .unwrap_or(i64::MAX);
     let store = open(&args.store).await?;
-    let (rows, with_mode) = crate::daemon::stored_rows(&store, &args.loop_tag, from, to)
+    let (rows, with_mode) = store
+        .loop_rows(&args.loop_tag, from, to)
         .await
         .with_context(|| format!("cannot read the samples of {}", args.loop_tag))?;
     writeln!(out, "time,sp,pv,op{}", if with_mode { ",mode" } else { "" })?;

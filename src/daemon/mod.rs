@@ -211,7 +211,7 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
         return Ok(());
     };
     let from = newest - look_back_ms;
-    let (rows, _) = stored_rows(store, tag, from, newest).await?;
+    let (rows, _) = store.loop_rows(tag, from, newest).await?;
     let final_until = store
         .episodes(Some(tag), None)
         .await?
@@ -228,29 +228,6 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
     tracing::info!(loop_tag = tag, rows = rows.len(), "resumed from the store");
     rt.tracker.resume(&rows, final_until, model);
     Ok(())
-}
-
-/// A loop's stored samples joined into rows on the PV's time stamps (PV from `from_ms` to
-/// `to_ms`; the SP, OP and mode in force at the first PV sample may be older), exactly as the
-/// live tracker joins them; and whether the loop has mode samples.
-pub async fn stored_rows(
-    store: &Store,
-    tag: &str,
-    from_ms: i64,
-    to_ms: i64,
-) -> crate::store::Result<(Vec<crate::analysis::live::Row>, bool)> {
-    let mut series = Vec::new();
-    for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
-        let lo = if s == Signal::Pv { from_ms } else { i64::MIN };
-        let rows = store.samples(tag, s, lo, to_ms).await?;
-        series.push(
-            rows.into_iter()
-                .map(|(t, v)| (ms_to_s(t), v))
-                .collect::<Vec<_>>(),
-        );
-    }
-    let rows = crate::analysis::live::align(&series[0], &series[1], &series[2], &series[3]);
-    Ok((rows, !series[3].is_empty()))
 }
 
 /// The poll tasks' parameters for every device of the configuration (watched loops only).

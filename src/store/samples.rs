@@ -1,7 +1,9 @@
 //! Samples: batched idempotent inserts, range reads and retention.
 
 use super::{Result, Store};
+use crate::analysis::live::{Row, align};
 use crate::sample::{Sample, Signal};
+use crate::units::ms_to_s;
 use serde::Serialize;
 use sqlx::{QueryBuilder, Sqlite, SqliteConnection};
 use std::collections::HashMap;
@@ -137,6 +139,29 @@ impl Store {
             .extend(new_series.into_iter().zip(new_ids));
         outcome.duplicates = rows.len() as u64 - outcome.inserted;
         Ok(outcome)
+    }
+
+    /// A loop's stored samples joined into rows on the PV's time stamps (PV from `from_ms` to
+    /// `to_ms`; the SP, OP and mode in force at the first PV sample may be older), exactly as the
+    /// live tracker joins them ([`align`]); and whether the loop has mode samples.
+    pub async fn loop_rows(
+        &self,
+        loop_tag: &str,
+        from_ms: i64,
+        to_ms: i64,
+    ) -> Result<(Vec<Row>, bool)> {
+        let mut series = Vec::new();
+        for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
+            let lo = if s == Signal::Pv { from_ms } else { i64::MIN };
+            let rows = self.samples(loop_tag, s, lo, to_ms).await?;
+            series.push(
+                rows.into_iter()
+                    .map(|(t, v)| (ms_to_s(t), v))
+                    .collect::<Vec<_>>(),
+            );
+        }
+        let rows = align(&series[0], &series[1], &series[2], &series[3]);
+        Ok((rows, !series[3].is_empty()))
     }
 
     /// The samples of one signal with `from_ms <= ts_ms <= to_ms`, oldest first, as
