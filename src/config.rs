@@ -47,7 +47,7 @@
 //!   sources that overlap on one device are refused, like overlapping topic filters.
 
 use crate::analysis::{self, AnalysisOptions, AutoValues, LoopSetup, OpRange, Setting, Spec};
-use crate::ingest::topic;
+use crate::mqtt::topic;
 use crate::sample::Signal;
 use serde::Deserialize;
 use serde::de::IgnoredAny;

@@ -3,6 +3,7 @@
 //!
 //! The analysis core ([`analysis`]) is pure and synchronous; everything else is an edge around it.
 
+pub mod alerts;
 pub mod analysis;
 pub mod bench;
 pub mod cli;
@@ -10,10 +11,11 @@ pub mod config;
 pub mod csvload;
 pub mod daemon;
 pub mod demo;
-pub mod ingest;
 pub mod modbus;
+pub mod mqtt;
 pub mod render;
 pub mod report;
 pub mod sample;
+pub mod source;
 pub mod store;
 pub mod units;

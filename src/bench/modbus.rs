@@ -5,10 +5,10 @@
 //! device sustains before a request times out.
 
 use crate::config::Config;
-use crate::modbus::device::{RegisterMap, SimDevice};
 use crate::modbus::plan::{Limits, Span, plan};
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers::{Address, DataType, Order, Table};
+use crate::modbus::sim::device::{RegisterMap, SimDevice};
 use crate::store::Store;
 use anyhow::Context;
 use std::fmt::Write as _;

@@ -3,7 +3,7 @@
 use super::Failure;
 use super::store::{StoreArgs, open_read_only};
 use super::time::parse_time;
-use crate::units::rfc3339;
+use crate::units::{rfc3339, s_to_ms};
 use anyhow::Context;
 use clap::Args;
 use std::io::Write;
@@ -33,12 +33,13 @@ pub async fn export(args: &ExportArgs, out: &mut dyn Write) -> Result<(), Failur
     let from = time("--from", &args.from, i64::MIN)?;
     let to = time("--to", &args.to, i64::MAX)?;
     let store = open_read_only(&args.store).await?;
-    let (rows, with_mode) = crate::daemon::stored_rows(&store, &args.loop_tag, from, to)
+    let (rows, with_mode) = store
+        .loop_rows(&args.loop_tag, from, to)
         .await
         .with_context(|| format!("cannot read the samples of {}", args.loop_tag))?;
     writeln!(out, "time,sp,pv,op{}", if with_mode { ",mode" } else { "" })?;
     for r in rows {
-        let t = rfc3339((r.time_s * 1000.0).round() as i64);
+        let t = rfc3339(s_to_ms(r.time_s));
         if with_mode {
             writeln!(out, "{t},{},{},{},{}", r.sp, r.pv, r.op, u8::from(r.auto))?;
         } else {

@@ -14,63 +14,25 @@
 //! is closed. Messages that arrived after the stop are not acknowledged, so the broker
 //! redelivers them to the next run.
 
-pub mod modbus;
-pub mod mqtt;
 pub mod shutdown;
 pub mod writer;
 
 use crate::analysis::LoopSetup;
 use crate::config::Config;
-use crate::sample::{Sample, Signal};
+use crate::modbus::source as modbus;
+use crate::mqtt::source as mqtt;
+use crate::sample::Signal;
 use crate::store::Store;
+use crate::units::ms_to_s;
 use anyhow::Context;
 use std::collections::HashMap;
 use std::future::Future;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::AtomicU64;
-use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, watch};
 
-/// The time polled samples are stamped with, in milliseconds since the Unix epoch. The system
-/// clock in operation; a simulated clock in the demo.
-pub type Clock = Arc<dyn Fn() -> i64 + Send + Sync>;
-
-/// The system clock.
-pub fn system_clock() -> Clock {
-    Arc::new(|| jiff::Timestamp::now().as_millisecond())
-}
-
-/// Messages from the sources to the writer.
-#[derive(Debug)]
-pub enum Ingest {
-    /// Decoded samples, and the MQTT message to acknowledge once they are committed.
-    Samples {
-        samples: Vec<Sample>,
-        ack: Option<rumqttc::Publish>,
-    },
-    /// Input that was refused, for the counters and the log.
-    Rejected {
-        reason: &'static str,
-        source: String,
-        detail: String,
-    },
-    /// A source failed to deliver (a device that did not answer, answered with an exception, or
-    /// could not be reached), for the counters only: the source logs it itself.
-    Failure {
-        reason: &'static str,
-        source: String,
-    },
-}
-
-/// Messages from the writer to the MQTT task.
-#[derive(Debug)]
-pub enum Outbound {
-    /// Acknowledge this message: its samples are committed.
-    Ack(rumqttc::Publish),
-    /// Publish on one of the daemon's own topics.
-    Publish { topic: String, payload: Vec<u8> },
-}
+pub use crate::source::{Clock, system_clock};
 
 /// Messages queued from the sources to the writer. When full, the sources wait: the MQTT task
 /// stops reading, and the broker holds the rest (QoS 1). Nothing is dropped.
@@ -78,35 +40,6 @@ const INGEST_CAPACITY: usize = 1_024;
 /// Acknowledgements and publishes queued from the writer to the MQTT task. When full, the
 /// writer waits.
 const OUTBOUND_CAPACITY: usize = 8_192;
-
-/// Logs at most once per `every`, counting what it held back in between.
-#[derive(Debug)]
-pub struct RateLimitedLog {
-    every: Duration,
-    last: Option<Instant>,
-    suppressed: u64,
-}
-
-impl RateLimitedLog {
-    pub fn new(every: Duration) -> RateLimitedLog {
-        RateLimitedLog {
-            every,
-            last: None,
-            suppressed: 0,
-        }
-    }
-
-    /// `Some(number held back since the last line)` when a line may be logged now.
-    pub fn allow(&mut self) -> Option<u64> {
-        if self.last.is_none_or(|l| l.elapsed() >= self.every) {
-            self.last = Some(Instant::now());
-            Some(std::mem::take(&mut self.suppressed))
-        } else {
-            self.suppressed += 1;
-            None
-        }
-    }
-}
 
 /// A daemon ready to run: the store is open and everything is resolved from the configuration.
 pub struct Daemon {
@@ -131,14 +64,17 @@ impl Daemon {
             Some(m) => Some(resolve_mqtt(config, m)?),
             None => None,
         };
-        let devices = modbus::DeviceParams::from_config(config, &system_clock())?;
+        let devices = modbus_devices(config, &system_clock())?;
         let mut loops = HashMap::new();
         for (tag, l) in config.loops.iter().filter(|(_, l)| l.is_watched()) {
             let setup: LoopSetup = l
                 .setup(tag)
                 .map_err(|e| anyhow::anyhow!("loop {tag}: {e}"))?;
             let expected: Vec<Signal> = l.sources().map(|(s, _)| s).collect();
-            let period = l.expected_period_s.unwrap_or(1.0);
+            // Validation requires it of a watched loop; there is no default to fall back on.
+            let period = l
+                .expected_period_s
+                .with_context(|| format!("loop {tag}: a watched loop needs expected_period_s"))?;
             let mut rt = writer::LoopRuntime::new(setup, expected, period, l.stale_after_periods);
             resume(&store, tag, &mut rt)
                 .await
@@ -260,8 +196,7 @@ impl Daemon {
 /// and the newest model.
 async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyhow::Result<()> {
     let setup = rt.tracker.setup().clone();
-    let look_back_ms =
-        (1.25 * setup.options.horizon_factor * setup.spec.settle_within_s * 1000.0) as i64;
+    let look_back_ms = writer::horizon_ms(&setup, 1.25);
     let overview = store
         .loops_overview()
         .await?
@@ -277,13 +212,13 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
         return Ok(());
     };
     let from = newest - look_back_ms;
-    let (rows, _) = stored_rows(store, tag, from, newest).await?;
+    let (rows, _) = store.loop_rows(tag, from, newest).await?;
     let final_until = store
         .episodes(Some(tag), None)
         .await?
         .iter()
         .filter(|e| e.is_final)
-        .map(|e| e.start_ms as f64 / 1000.0)
+        .map(|e| ms_to_s(e.start_ms))
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.max(t))));
     let model = store
         .latest_models()
@@ -296,27 +231,45 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
     Ok(())
 }
 
-/// A loop's stored samples joined into rows on the PV's time stamps (PV from `from_ms` to
-/// `to_ms`; the SP, OP and mode in force at the first PV sample may be older), exactly as the
-/// live tracker joins them; and whether the loop has mode samples.
-pub async fn stored_rows(
-    store: &Store,
-    tag: &str,
-    from_ms: i64,
-    to_ms: i64,
-) -> crate::store::Result<(Vec<crate::analysis::live::Row>, bool)> {
-    let mut series = Vec::new();
-    for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
-        let lo = if s == Signal::Pv { from_ms } else { i64::MIN };
-        let rows = store.samples(tag, s, lo, to_ms).await?;
-        series.push(
-            rows.into_iter()
-                .map(|(t, v)| (t as f64 / 1000.0, v))
-                .collect::<Vec<_>>(),
-        );
+/// The poll tasks' parameters for every device of the configuration (watched loops only).
+fn modbus_devices(
+    config: &Config,
+    clock: &Clock,
+) -> Result<Vec<modbus::DeviceParams>, modbus::DeviceError> {
+    let mut out = Vec::new();
+    for (name, device) in &config.modbus {
+        let signals: Vec<modbus::PolledSignal> =
+            crate::config::modbus::device_sources(&config.loops, name)
+                .into_iter()
+                .map(|(tag, signal, register)| modbus::PolledSignal {
+                    loop_tag: Arc::from(tag),
+                    signal,
+                    register: *register,
+                    auto_values: (signal == Signal::Mode).then(|| {
+                        config.loops[tag]
+                            .mode
+                            .as_ref()
+                            .map(|m| m.auto_values.clone())
+                            .unwrap_or_default()
+                    }),
+                })
+                .collect();
+        let plan =
+            crate::config::modbus::device_plan(&config.loops, name, device).map_err(|problem| {
+                modbus::DeviceError {
+                    device: name.clone(),
+                    problem,
+                }
+            })?;
+        out.push(modbus::DeviceParams {
+            name: name.clone(),
+            device: device.clone(),
+            plan,
+            signals,
+            clock: clock.clone(),
+        });
     }
-    let rows = crate::analysis::live::align(&series[0], &series[1], &series[2], &series[3]);
-    Ok((rows, !series[3].is_empty()))
+    Ok(out)
 }
 
 /// Turns the MQTT section into connection parameters (reads the password, builds TLS).
@@ -334,12 +287,8 @@ fn resolve_mqtt(
         .context("cannot read the MQTT password")?
         .map(|s| s.expose().to_string());
     let settings = m.clone();
-    let password_reader: mqtt::PasswordReader = Arc::new(move || {
-        Ok(settings
-            .password()
-            .map_err(|e| anyhow::anyhow!("{e}"))?
-            .map(|s| s.expose().to_string()))
-    });
+    let password_reader: mqtt::PasswordReader =
+        Arc::new(move || Ok(settings.password()?.map(|s| s.expose().to_string())));
     Ok(mqtt::MqttParams {
         password_reader: Some(password_reader),
         host: m.host.clone(),
@@ -350,8 +299,8 @@ fn resolve_mqtt(
         password,
         keep_alive: m.keep_alive(),
         subscriptions: config.subscriptions(),
-        limits: crate::ingest::decode::Limits::from_settings(m),
-        topics: Arc::new(crate::ingest::decode::TopicMap::new(config)),
+        limits: crate::mqtt::Limits::from_settings(m),
+        topics: Arc::new(crate::mqtt::TopicMap::new(config)),
     })
 }
 

@@ -94,7 +94,7 @@ pub fn layout(tag: &str) -> Option<[Source; 3]> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::modbus::device::RegisterMap;
+    use crate::modbus::sim::device::RegisterMap;
 
     /// What the daemon would read back, decoded with the registers module's own scaling.
     fn read_back(r: &Register, map: &RegisterMap) -> f64 {

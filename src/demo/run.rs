@@ -10,7 +10,7 @@ use super::{
 };
 use crate::config::Config;
 use crate::daemon::{Clock, Daemon};
-use crate::modbus::device::{RegisterMap, SimDevice};
+use crate::modbus::sim::device::{RegisterMap, SimDevice};
 use crate::store::Store;
 use anyhow::Context;
 use rumqttc::{AsyncClient, EventLoop, MqttOptions, QoS};

@@ -5,13 +5,12 @@
 //! - [`plan`]: groups a device's sources into the fewest read requests. Pure.
 //! - [`poll`]: sends one plan's requests, each under a timeout; only read function codes exist in
 //!   its API.
-//! - [`device`]: a simulated device (a tokio-modbus server on 127.0.0.1) that records every
-//!   function code it receives and can stall, drop the connection or answer with exceptions.
-//! - [`simloop`]: a simulated loop (process, PI controller, saturating actuator) served from a
-//!   device's registers on accelerated time.
+//! - [`source`]: one task per device that polls its plan every period and hands the values to
+//!   the writer.
+//! - [`sim`]: simulated devices and a simulated loop served from their registers.
 
-pub mod device;
 pub mod plan;
 pub mod poll;
 pub mod registers;
-pub mod simloop;
+pub mod sim;
+pub mod source;

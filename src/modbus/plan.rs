@@ -210,15 +210,8 @@ impl Plan {
     }
 }
 
-/// Plans the fewest requests for `spans` under `limits`.
-///
-/// Requests come out ordered by table (coils, discrete inputs, input registers, holding
-/// registers) and then by address. Within a table, sources sorted by address are taken greedily:
-/// a source joins the current request when the unused gap before it is at most `max_gap` and the
-/// request stays within the limit. Because a request is one contiguous range, any plan must cover
-/// the sorted sources in consecutive runs, and extending each run as far as possible never needs
-/// more runs than any other choice, so the greedy plan is minimal.
-pub fn plan(spans: &[Span], limits: Limits) -> Result<Plan, PlanError> {
+/// Checks each span on its own: not empty, inside the address space, within one request's limit.
+fn check(spans: &[Span], limits: Limits) -> Result<(), PlanError> {
     for (index, s) in spans.iter().enumerate() {
         if s.count == 0 {
             return Err(PlanError::Empty { index });
@@ -234,7 +227,19 @@ pub fn plan(spans: &[Span], limits: Limits) -> Result<Plan, PlanError> {
             });
         }
     }
+    Ok(())
+}
 
+/// Plans the fewest requests for `spans` under `limits`.
+///
+/// Requests come out ordered by table (coils, discrete inputs, input registers, holding
+/// registers) and then by address. Within a table, sources sorted by address are taken greedily:
+/// a source joins the current request when the unused gap before it is at most `max_gap` and the
+/// request stays within the limit. Because a request is one contiguous range, any plan must cover
+/// the sorted sources in consecutive runs, and extending each run as far as possible never needs
+/// more runs than any other choice, so the greedy plan is minimal.
+pub fn plan(spans: &[Span], limits: Limits) -> Result<Plan, PlanError> {
+    check(spans, limits)?;
     let mut order: Vec<usize> = (0..spans.len()).collect();
     order.sort_by_key(|&i| (spans[i].table, spans[i].address, i));
 

@@ -140,9 +140,9 @@ pub async fn poll_once(ctx: &mut Context, plan: &[ReadRequest], timeout: Duratio
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::modbus::device::{Fault, RegisterMap, SimDevice};
     use crate::modbus::plan::{Limits, Span, plan};
     use crate::modbus::registers::{Address, DataType, Order, Scaling, Source};
+    use crate::modbus::sim::device::{Fault, RegisterMap, SimDevice};
     use tokio_modbus::client::tcp;
 
     const PATIENCE: Duration = Duration::from_secs(10);

@@ -333,22 +333,18 @@ mod tests {
     async fn rejections_add_up_per_reason_and_source() {
         let (_dir, store) = fresh_store().await;
         let topic = "plant/TIC-101/pv";
-        store
-            .count_rejection("malformed_payload", topic, 3, 2_000)
-            .await
-            .unwrap();
-        store
-            .count_rejection("malformed_payload", topic, 2, 1_000)
-            .await
-            .unwrap();
-        store
-            .count_rejection("non_finite", topic, 1, 3_000)
-            .await
-            .unwrap();
-        store
-            .count_rejection("non_finite", topic, 0, 9_000)
-            .await
-            .unwrap();
+        let counts = [
+            ("malformed_payload", 3, 2_000),
+            ("malformed_payload", 2, 1_000),
+            ("non_finite", 1, 3_000),
+            ("non_finite", 0, 9_000),
+        ];
+        for (reason, n, at_ms) in counts {
+            store
+                .count_rejection(reason, topic, n, at_ms)
+                .await
+                .unwrap();
+        }
         assert_eq!(
             store.rejections().await.unwrap(),
             [

@@ -332,22 +332,16 @@ mod tests {
             .fetch_one(&mut *conn)
             .await
             .unwrap();
-        let synchronous: i64 = sqlx::query_scalar("PRAGMA synchronous")
-            .fetch_one(&mut *conn)
-            .await
-            .unwrap();
-        let busy: i64 = sqlx::query_scalar("PRAGMA busy_timeout")
-            .fetch_one(&mut *conn)
-            .await
-            .unwrap();
-        let foreign_keys: i64 = sqlx::query_scalar("PRAGMA foreign_keys")
-            .fetch_one(&mut *conn)
-            .await
-            .unwrap();
-        assert_eq!(
-            (journal.as_str(), synchronous, busy, foreign_keys),
-            ("wal", 1, 5000, 1)
-        );
+        assert_eq!(journal, "wal");
+        let mut numbers = Vec::new();
+        for name in ["synchronous", "busy_timeout", "foreign_keys"] {
+            let value: i64 = sqlx::query_scalar(sqlx::AssertSqlSafe(format!("PRAGMA {name}")))
+                .fetch_one(&mut *conn)
+                .await
+                .unwrap();
+            numbers.push(value);
+        }
+        assert_eq!(numbers, [1, 5000, 1]);
     }
 
     #[tokio::test]

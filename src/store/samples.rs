@@ -1,7 +1,9 @@
 //! Samples: batched idempotent inserts, range reads and retention.
 
 use super::{Result, Store};
+use crate::analysis::live::{Row, align};
 use crate::sample::{Sample, Signal};
+use crate::units::ms_to_s;
 use serde::Serialize;
 use sqlx::{QueryBuilder, Sqlite, SqliteConnection};
 use std::collections::HashMap;
@@ -29,6 +31,50 @@ pub struct InsertOutcome {
     pub non_finite: u64,
 }
 
+/// A batch's rows keyed by series id, before the transaction: the series the cache does not
+/// know yet are created in it, and their rows patched.
+struct Keyed {
+    /// (series id, time, value); 0 as the id of a row that waits for a new series.
+    rows: Vec<(i64, i64, f64)>,
+    new_series: Vec<(Arc<str>, Signal)>,
+    /// (row, index into `new_series`).
+    waiting: Vec<(usize, usize)>,
+}
+
+impl Store {
+    /// Resolves series ids from the cache and notes which rows wait for a new series; counts
+    /// and drops non-finite values.
+    fn keyed(&self, samples: &[Sample], outcome: &mut InsertOutcome) -> Keyed {
+        let mut k = Keyed {
+            rows: Vec::with_capacity(samples.len()),
+            new_series: Vec::new(),
+            waiting: Vec::new(),
+        };
+        let mut new_index: HashMap<(Arc<str>, Signal), usize> = HashMap::new();
+        let cache = self.series_cache();
+        for s in samples {
+            if !s.value.is_finite() {
+                outcome.non_finite += 1;
+                continue;
+            }
+            let key = (s.loop_tag.clone(), s.signal);
+            let id = match cache.get(&key) {
+                Some(&id) => id,
+                None => {
+                    let m = *new_index.entry(key.clone()).or_insert_with(|| {
+                        k.new_series.push(key);
+                        k.new_series.len() - 1
+                    });
+                    k.waiting.push((k.rows.len(), m));
+                    0 // patched once the series exists
+                }
+            };
+            k.rows.push((id, s.ts_ms, s.value));
+        }
+        k
+    }
+}
+
 impl Store {
     /// Stores a batch of samples in one transaction. Samples already stored are ignored and
     /// counted as duplicates, so the same batch can safely be written twice.
@@ -38,37 +84,11 @@ impl Store {
         const DOING: &str = "storing samples";
         let mut outcome = InsertOutcome::default();
 
-        // Resolve series ids from the cache; remember which rows wait for a new series.
-        let mut rows: Vec<(i64, i64, f64)> = Vec::with_capacity(samples.len());
-        let mut new_series: Vec<(Arc<str>, Signal)> = Vec::new();
-        let mut new_index: HashMap<(Arc<str>, Signal), usize> = HashMap::new();
-        let mut waiting: Vec<(usize, usize)> = Vec::new(); // (row, index into `new_series`)
-        {
-            let cache = self.series_cache();
-            for s in samples {
-                if !s.value.is_finite() {
-                    outcome.non_finite += 1;
-                    continue;
-                }
-                let key = (s.loop_tag.clone(), s.signal);
-                let id = match cache.get(&key) {
-                    Some(&id) => id,
-                    None => {
-                        let m = match new_index.get(&key) {
-                            Some(&m) => m,
-                            None => {
-                                new_series.push(key.clone());
-                                new_index.insert(key, new_series.len() - 1);
-                                new_series.len() - 1
-                            }
-                        };
-                        waiting.push((rows.len(), m));
-                        0 // patched below, once the series exists
-                    }
-                };
-                rows.push((id, s.ts_ms, s.value));
-            }
-        }
+        let Keyed {
+            mut rows,
+            new_series,
+            waiting,
+        } = self.keyed(samples, &mut outcome);
         if rows.is_empty() {
             return Ok(outcome);
         }
@@ -119,6 +139,29 @@ impl Store {
             .extend(new_series.into_iter().zip(new_ids));
         outcome.duplicates = rows.len() as u64 - outcome.inserted;
         Ok(outcome)
+    }
+
+    /// A loop's stored samples joined into rows on the PV's time stamps (PV from `from_ms` to
+    /// `to_ms`; the SP, OP and mode in force at the first PV sample may be older), exactly as the
+    /// live tracker joins them ([`align`]); and whether the loop has mode samples.
+    pub async fn loop_rows(
+        &self,
+        loop_tag: &str,
+        from_ms: i64,
+        to_ms: i64,
+    ) -> Result<(Vec<Row>, bool)> {
+        let mut series = Vec::new();
+        for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
+            let lo = if s == Signal::Pv { from_ms } else { i64::MIN };
+            let rows = self.samples(loop_tag, s, lo, to_ms).await?;
+            series.push(
+                rows.into_iter()
+                    .map(|(t, v)| (ms_to_s(t), v))
+                    .collect::<Vec<_>>(),
+            );
+        }
+        let rows = align(&series[0], &series[1], &series[2], &series[3]);
+        Ok((rows, !series[3].is_empty()))
     }
 
     /// The samples of one signal with `from_ms <= ts_ms <= to_ms`, oldest first, as

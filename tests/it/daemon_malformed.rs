@@ -245,7 +245,7 @@ async fn rejections(db: &std::path::Path) -> Result<BTreeMap<&'static str, u64>,
     store.close().await;
     let mut by_reason = BTreeMap::new();
     for r in rows? {
-        let reason = headroom::ingest::Rejection::REASONS
+        let reason = headroom::mqtt::Rejection::REASONS
             .into_iter()
             .find(|x| *x == r.reason)
             .ok_or_else(|| format!("unknown reason {}", r.reason))?;

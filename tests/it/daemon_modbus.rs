@@ -14,9 +14,9 @@ use crate::common::daemon::{
     DaemonProcess, Workspace, assert_live_matches_offline, episode_line, eventually,
     final_episodes, open_store, tail, unique,
 };
-use headroom::modbus::device::{Fault, RegisterMap, SimDevice};
 use headroom::modbus::registers::{DataType, Order, decode};
-use headroom::modbus::simloop::{LoopLayout, ServedLoop};
+use headroom::modbus::sim::device::{Fault, RegisterMap, SimDevice};
+use headroom::modbus::sim::served_loop::{LoopLayout, ServedLoop};
 use headroom::sample::Signal;
 use serde_json::Value;
 use std::collections::BTreeSet;

@@ -7,7 +7,7 @@
 //!
 //! The server task ends when the [`SimDevice`] is dropped; its open connections end with it.
 
-use super::registers::{DataType, Order, RegisterError, Source, Table, encode};
+use crate::modbus::registers::{DataType, Order, RegisterError, Source, Table, encode};
 use std::future::{Ready, ready};
 use std::io;
 use std::net::{Ipv4Addr, SocketAddr};
@@ -392,7 +392,7 @@ mod tests {
                 assert_eq!(words, vec![0x42F6, 0xE979]);
             }
             assert_eq!(
-                super::super::registers::decode(&words, DataType::F32, order),
+                crate::modbus::registers::decode(&words, DataType::F32, order),
                 f64::from(123.456_f32)
             );
         }

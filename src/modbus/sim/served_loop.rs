@@ -12,8 +12,8 @@
 //! test can watch hours of plant in minutes.
 
 use super::device::SimDevice;
-use super::registers::{Address, DataType, Order, Scaling, Source, Table};
 use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use crate::modbus::registers::{Address, DataType, Order, Scaling, Source, Table};
 use std::sync::{Arc, Weak};
 use std::time::Duration;
 use tokio::task::JoinHandle;
@@ -184,8 +184,8 @@ impl SimDevice {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::modbus::device::RegisterMap;
     use crate::modbus::registers::decode;
+    use crate::modbus::sim::device::RegisterMap;
 
     #[test]
     fn a_schedule_steps_and_repeats() {

@@ -3,13 +3,15 @@
 //! whose samples it committed, feeds the live trackers, stores their episodes and models, raises
 //! alerts, watches for stale tags, prunes old raw samples, and publishes status.
 
-use super::{Ingest, Outbound, RateLimitedLog};
-use crate::analysis::CAUTION;
+use crate::alerts::{self, Silent};
 use crate::analysis::assess::EpisodeResult;
 use crate::analysis::live::{Aligner, LiveEvent, LoopTracker, Row};
 use crate::analysis::{LoopSetup, Model};
+use crate::mqtt::source::Outbound;
 use crate::sample::{Sample, Signal};
+use crate::source::{Ingest, RateLimitedLog};
 use crate::store::{self, AlertInput, GapRow, Store};
+use crate::units::{ms_to_s, rfc3339, s_to_ms};
 use std::collections::{BTreeMap, HashMap};
 use std::sync::Arc;
 use std::sync::atomic::AtomicU64;
@@ -18,7 +20,7 @@ use tokio::sync::mpsc;
 
 /// A batch is committed at the latest this long after its first sample arrived.
 const FLUSH_EVERY: Duration = Duration::from_millis(100);
-/// …or as soon as it holds this many samples.
+/// …or as soon as it holds this many samples; no transaction holds more.
 const MAX_BATCH: usize = 5_000;
 /// Staleness, status and counters are looked at on this tick.
 const HOUSEKEEPING_EVERY: Duration = Duration::from_secs(1);
@@ -58,7 +60,7 @@ impl LoopRuntime {
         let uses_mode = expected.contains(&Signal::Mode);
         // A signal that has gone quiet holds rows back for at most a few periods.
         let patience = 5.0 * expected_period_s;
-        let gap_after_ms = (setup.options.max_gap_for(expected_period_s) * 1000.0) as i64;
+        let gap_after_ms = s_to_ms(setup.options.max_gap_for(expected_period_s));
         LoopRuntime {
             tracker: LoopTracker::new(setup),
             aligner: Aligner::new(uses_mode, patience),
@@ -96,6 +98,11 @@ pub struct Counters {
     pub alerts_raised: u64,
     pub rejected: BTreeMap<&'static str, u64>,
     pub late_samples: u64,
+    /// Transactions that stored samples, and the most samples one of them held (not published).
+    #[serde(skip)]
+    pub commits: u64,
+    #[serde(skip)]
+    pub largest_commit: usize,
 }
 
 /// The plant's clock: data time, advanced by wall time while nothing arrives, so staleness is
@@ -144,6 +151,46 @@ struct Batch {
     since: Option<Instant>,
 }
 
+impl Batch {
+    fn is_empty(&self) -> bool {
+        self.samples.is_empty() && self.acks.is_empty()
+    }
+
+    /// When the batch must be committed at the latest.
+    fn deadline(&self) -> Option<tokio::time::Instant> {
+        self.since
+            .map(|s| tokio::time::Instant::from_std(s + FLUSH_EVERY))
+    }
+}
+
+/// When the periodic chores last ran.
+struct Chores {
+    tick: tokio::time::Interval,
+    last_status: Instant,
+    last_prune: Instant,
+}
+
+impl Chores {
+    fn new() -> Chores {
+        let mut tick = tokio::time::interval(HOUSEKEEPING_EVERY);
+        tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
+        Chores {
+            tick,
+            last_status: Instant::now(),
+            last_prune: Instant::now(),
+        }
+    }
+
+    /// Whether `every` has passed since `last`; if so, starts the next period.
+    fn due(last: &mut Instant, every: Duration) -> bool {
+        let due = last.elapsed() >= every;
+        if due {
+            *last = Instant::now();
+        }
+        due
+    }
+}
+
 impl Writer {
     pub fn new(
         store: Store,
@@ -170,48 +217,18 @@ impl Writer {
     /// task that every acknowledgement has been handed over.
     pub async fn run(mut self, mut rx: mpsc::Receiver<Ingest>) -> Result<Counters, store::Error> {
         let mut batch = Batch::default();
-        let mut housekeeping = tokio::time::interval(HOUSEKEEPING_EVERY);
-        housekeeping.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
-        let mut last_status = Instant::now();
-        let mut last_prune = Instant::now();
+        let mut chores = Chores::new();
         loop {
-            let deadline = batch
-                .since
-                .map(|s| tokio::time::Instant::from_std(s + FLUSH_EVERY));
+            let deadline = batch.deadline();
             tokio::select! {
                 msg = rx.recv() => match msg {
-                    Some(Ingest::Samples { samples, ack }) => {
-                        batch.since.get_or_insert_with(Instant::now);
-                        batch.samples.extend(samples);
-                        batch.acks.extend(ack);
-                        if batch.samples.len() >= MAX_BATCH {
-                            self.flush(&mut batch).await?;
-                        }
-                    }
-                    Some(Ingest::Rejected { reason, source, detail }) => {
-                        self.reject(reason, source, detail);
-                    }
-                    Some(Ingest::Failure { reason, source }) => {
-                        *self.counters.rejected.entry(reason).or_default() += 1;
-                        *self.rejections.entry((reason, source)).or_default() += 1;
-                    }
+                    Some(msg) => self.receive(msg, &mut batch).await?,
                     None => break,
                 },
                 _ = sleep_until(deadline), if deadline.is_some() => {
                     self.flush(&mut batch).await?;
                 }
-                _ = housekeeping.tick() => {
-                    self.check_stale().await;
-                    self.flush_rejections().await;
-                    if last_status.elapsed() >= STATUS_EVERY {
-                        last_status = Instant::now();
-                        self.publish_status().await;
-                    }
-                    if last_prune.elapsed() >= PRUNE_EVERY {
-                        last_prune = Instant::now();
-                        self.prune().await;
-                    }
-                }
+                _ = chores.tick.tick() => self.housekeep(&mut chores).await,
             }
         }
         self.flush(&mut batch).await?;
@@ -224,9 +241,47 @@ impl Writer {
         Ok(self.counters)
     }
 
-    fn reject(&mut self, reason: &'static str, source: String, detail: String) {
+    /// Takes one message from a source: samples join the batch (committed once it is full),
+    /// refusals and failures are counted.
+    async fn receive(&mut self, msg: Ingest, batch: &mut Batch) -> Result<(), store::Error> {
+        match msg {
+            Ingest::Samples { samples, ack } => {
+                batch.since.get_or_insert_with(Instant::now);
+                batch.samples.extend(samples);
+                batch.acks.extend(ack);
+                if batch.samples.len() >= MAX_BATCH {
+                    self.flush(batch).await?;
+                }
+            }
+            Ingest::Rejected {
+                reason,
+                source,
+                detail,
+            } => self.reject(reason, source, detail),
+            Ingest::Failure { reason, source } => self.count_rejection(reason, source),
+        }
+        Ok(())
+    }
+
+    /// Staleness and rejection counts every tick; status and pruning when they are due.
+    async fn housekeep(&mut self, chores: &mut Chores) {
+        self.check_stale().await;
+        self.flush_rejections().await;
+        if Chores::due(&mut chores.last_status, STATUS_EVERY) {
+            self.publish_status().await;
+        }
+        if Chores::due(&mut chores.last_prune, PRUNE_EVERY) {
+            self.prune().await;
+        }
+    }
+
+    fn count_rejection(&mut self, reason: &'static str, source: String) {
         *self.counters.rejected.entry(reason).or_default() += 1;
         *self.rejections.entry((reason, source)).or_default() += 1;
+    }
+
+    fn reject(&mut self, reason: &'static str, source: String, detail: String) {
+        self.count_rejection(reason, source);
         if let Some(suppressed) = self.reject_log.allow() {
             tracing::warn!(reason, suppressed, "rejected input: {detail}");
         }
@@ -244,27 +299,45 @@ impl Writer {
         }
     }
 
-    /// Commits the batch, then acknowledges and analyses it. A transient failure (the database
-    /// busy, the disk full) is retried until it clears, holding the batch unacknowledged; any
-    /// other failure (a read-only or damaged file) ends the writer with the error, since waiting
-    /// will not mend it — nothing uncommitted has been acknowledged, so nothing is lost.
+    /// Commits the batch (in transactions of at most [`MAX_BATCH`] samples), then acknowledges
+    /// and analyses it. Nothing is acknowledged before every sample of the batch is committed.
     async fn flush(&mut self, batch: &mut Batch) -> Result<(), store::Error> {
-        if batch.samples.is_empty() && batch.acks.is_empty() {
+        if batch.is_empty() {
             batch.since = None;
             return Ok(());
         }
         let samples = std::mem::take(&mut batch.samples);
         let acks = std::mem::take(&mut batch.acks);
         batch.since = None;
+        for chunk in samples.chunks(MAX_BATCH) {
+            self.commit(chunk).await?;
+        }
+        for p in acks {
+            self.counters.messages_acknowledged += 1;
+            if self.outbound.send(Outbound::Ack(p)).await.is_err() {
+                break;
+            }
+        }
+        self.analyse(&samples).await;
+        Ok(())
+    }
+
+    /// Stores samples in one transaction. A transient failure (the database busy, the disk
+    /// full) is retried until it clears, holding the batch unacknowledged; any other failure (a
+    /// read-only or damaged file) ends the writer with the error, since waiting will not mend
+    /// it — nothing uncommitted has been acknowledged, so nothing is lost.
+    async fn commit(&mut self, samples: &[Sample]) -> Result<(), store::Error> {
         let mut failures = RateLimitedLog::new(Duration::from_secs(30));
         loop {
-            match self.store.insert_samples(&samples).await {
+            match self.store.insert_samples(samples).await {
                 Ok(outcome) => {
                     self.counters.samples_committed += outcome.inserted;
                     self.committed
                         .fetch_add(outcome.inserted, std::sync::atomic::Ordering::Relaxed);
                     self.counters.duplicates += outcome.duplicates;
-                    break;
+                    self.counters.commits += 1;
+                    self.counters.largest_commit = self.counters.largest_commit.max(samples.len());
+                    return Ok(());
                 }
                 Err(e) if !e.is_transient() => {
                     tracing::error!(error = %e, "cannot write to the store; stopping");
@@ -279,18 +352,33 @@ impl Writer {
                 }
             }
         }
-        for p in acks {
-            self.counters.messages_acknowledged += 1;
-            if self.outbound.send(Outbound::Ack(p)).await.is_err() {
-                break;
-            }
-        }
-        self.analyse(&samples).await;
-        Ok(())
     }
 
     /// Feeds committed samples to the trackers and stores what they find.
     async fn analyse(&mut self, samples: &[Sample]) {
+        let (touched, gaps) = self.take_in(samples);
+        for g in &gaps {
+            tracing::warn!(
+                loop_tag = %g.loop_tag,
+                signal = %g.signal,
+                from = %rfc3339(g.from_ms),
+                to = %rfc3339(g.to_ms),
+                "data gap: no sample of this signal in between; episodes across it are inconclusive"
+            );
+        }
+        if let Err(e) = self.store.record_gaps(&gaps).await {
+            tracing::warn!(error = %e, "could not record data gaps");
+        }
+        // The analysis is CPU work: let the runtime move other tasks off this thread meanwhile.
+        let found = tokio::task::block_in_place(|| self.evaluate(&touched));
+        for (tag, event) in found {
+            self.record(&tag, event).await;
+        }
+    }
+
+    /// Notes each sample's time, hands it to its loop's aligner, and returns the loops touched
+    /// and the silences longer than a loop's gap limit.
+    fn take_in(&mut self, samples: &[Sample]) -> (Vec<Arc<str>>, Vec<GapRow>) {
         let mut touched: Vec<Arc<str>> = Vec::new();
         let mut gaps: Vec<GapRow> = Vec::new();
         for s in samples {
@@ -315,44 +403,32 @@ impl Writer {
             }
             let seen = rt.last_seen_ms.entry(s.signal).or_insert(s.ts_ms);
             *seen = (*seen).max(s.ts_ms);
-            rt.aligner.push(s.signal, s.ts_ms as f64 / 1000.0, s.value);
+            rt.aligner.push(s.signal, ms_to_s(s.ts_ms), s.value);
             if !touched.contains(&s.loop_tag) {
                 touched.push(s.loop_tag.clone());
             }
         }
-        for g in &gaps {
-            tracing::warn!(
-                loop_tag = %g.loop_tag,
-                signal = %g.signal,
-                from = %rfc3339(g.from_ms),
-                to = %rfc3339(g.to_ms),
-                "data gap: no sample of this signal in between; episodes across it are inconclusive"
-            );
-        }
-        if let Err(e) = self.store.record_gaps(&gaps).await {
-            tracing::warn!(error = %e, "could not record data gaps");
-        }
-        let mut found: Vec<(Arc<str>, LiveEvent)> = Vec::new();
-        // The analysis is CPU work: let the runtime move other tasks off this thread meanwhile.
-        tokio::task::block_in_place(|| {
-            let mut rows: Vec<Row> = Vec::new();
-            for tag in &touched {
-                let Some(rt) = self.loops.get_mut(tag) else {
-                    continue;
-                };
-                rows.clear();
-                let late_before = rt.aligner.late;
-                rt.aligner.drain(&mut rows);
-                self.counters.late_samples += rt.aligner.late - late_before;
-                rt.tracker.extend(&rows);
-                for e in rt.tracker.evaluate() {
-                    found.push((tag.clone(), e));
-                }
+        (touched, gaps)
+    }
+
+    /// Joins the touched loops' new rows and lets their trackers judge them.
+    fn evaluate(&mut self, touched: &[Arc<str>]) -> Vec<(Arc<str>, LiveEvent)> {
+        let mut found = Vec::new();
+        let mut rows: Vec<Row> = Vec::new();
+        for tag in touched {
+            let Some(rt) = self.loops.get_mut(tag) else {
+                continue;
+            };
+            rows.clear();
+            let late_before = rt.aligner.late;
+            rt.aligner.drain(&mut rows);
+            self.counters.late_samples += rt.aligner.late - late_before;
+            rt.tracker.extend(&rows);
+            for e in rt.tracker.evaluate() {
+                found.push((tag.clone(), e));
             }
-        });
-        for (tag, event) in found {
-            self.record(&tag, event).await;
         }
+        found
     }
 
     async fn record(&mut self, tag: &Arc<str>, event: LiveEvent) {
@@ -376,8 +452,7 @@ impl Writer {
     }
 
     async fn store_episode(&mut self, tag: &Arc<str>, r: &EpisodeResult, is_final: bool, now: i64) {
-        let start_ms = (r.start_s * 1000.0).round() as i64;
-        let end_ms = (r.end_s * 1000.0).round() as i64;
+        let (start_ms, end_ms) = (s_to_ms(r.start_s), s_to_ms(r.end_s));
         if let Err(e) = self
             .store
             .upsert_episode(tag, r, start_ms, end_ms, is_final, now)
@@ -395,71 +470,20 @@ impl Writer {
             min_settling_time_s = r.min_settling_time_s,
             "setpoint change scored"
         );
-        if r.verdict.is_miss() {
-            let evidence = serde_json::json!({
-                "start": rfc3339(start_ms),
-                "sp_from": r.sp_from,
-                "sp_to": r.sp_to,
-                "settling_time_s": r.settling_time_s,
-                "overshoot_pct": r.overshoot_pct,
-                "min_settling_time_s": r.min_settling_time_s,
-                "required_op_limit": r.required_op_limit,
-                "capacity_ratio": r.capacity_ratio,
-                "saturation_duty": r.saturation_duty,
-                "final": is_final,
-            });
-            let message = format!("{}: {}", tag, r.reason);
-            self.raise(
-                tag,
-                r.verdict.as_str(),
-                message,
-                evidence,
-                start_ms.max(end_ms),
-            )
-            .await;
+        if let Some(alert) = alerts::missed_change(tag, r, is_final) {
+            self.raise(alert).await;
         }
     }
 
     /// Records an alert (one open per loop and kind), logs it and publishes it.
-    async fn raise(
-        &mut self,
-        tag: &Arc<str>,
-        kind: &str,
-        message: String,
-        evidence: serde_json::Value,
-        seen_ms: i64,
-    ) {
-        let input = AlertInput {
-            loop_tag: tag.to_string(),
-            kind: kind.to_string(),
-            message: message.clone(),
-            evidence: evidence.clone(),
-            seen_ms,
-        };
-        match self.store.raise_alert(input).await {
+    async fn raise(&mut self, alert: AlertInput) {
+        let (tag, kind) = (alert.loop_tag.clone(), alert.kind.clone());
+        match self.store.raise_alert(alert).await {
             Ok(row) => {
                 self.counters.alerts_raised += 1;
-                tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, count = row.count, "alert: {message}");
-                if let Some(topic) = &self.settings.alert_topic {
-                    let payload = serde_json::json!({
-                        "id": row.id,
-                        "loop": tag.as_ref(),
-                        "kind": kind,
-                        "state": row.state,
-                        "count": row.count,
-                        "first_seen": rfc3339(row.first_seen_ms),
-                        "last_seen": rfc3339(row.last_seen_ms),
-                        "message": message,
-                        "evidence": evidence,
-                        "caution": CAUTION,
-                    });
-                    let _ = self
-                        .outbound
-                        .send(Outbound::Publish {
-                            topic: topic.clone(),
-                            payload: payload.to_string().into_bytes(),
-                        })
-                        .await;
+                tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, count = row.count, "alert: {}", row.message);
+                if let Some(topic) = self.settings.alert_topic.clone() {
+                    self.publish(topic, alerts::payload(&row)).await;
                 }
             }
             Err(e) => {
@@ -476,9 +500,9 @@ impl Writer {
         // A signal never seen counts as silent from where watching began, not as silent
         // forever: one that starts a little after the others is not stale.
         let watched_from = self.clock.first_ms.unwrap_or(now);
-        let mut newly: Vec<(Arc<str>, Vec<Signal>, serde_json::Value)> = Vec::new();
+        let mut newly: Vec<AlertInput> = Vec::new();
         for (tag, rt) in self.loops.iter_mut() {
-            let limit_ms = (rt.stale_after_periods * rt.expected_period_s * 1000.0) as i64;
+            let limit_ms = s_to_ms(rt.stale_after_periods * rt.expected_period_s);
             let silent: Vec<Signal> = rt
                 .expected
                 .iter()
@@ -494,36 +518,24 @@ impl Writer {
                 .filter(|s| !rt.stale.contains(s))
                 .collect();
             if !fresh.is_empty() {
-                let detail: serde_json::Map<String, serde_json::Value> = silent
+                let silent: Vec<Silent> = silent
                     .iter()
-                    .map(|s| {
-                        let last = rt.last_seen_ms.get(s).map(|&t| rfc3339(t));
-                        (
-                            s.as_str().to_string(),
-                            serde_json::json!({ "last_sample": last }),
-                        )
+                    .map(|&signal| Silent {
+                        signal,
+                        last_sample_ms: rt.last_seen_ms.get(&signal).copied(),
                     })
                     .collect();
-                newly.push((
-                    tag.clone(),
-                    fresh.clone(),
-                    serde_json::Value::Object(detail),
-                ));
+                newly.push(alerts::stale_tag(tag, &fresh, &silent, now));
             }
             rt.stale = silent;
         }
-        for (tag, signals, evidence) in newly {
-            let names: Vec<&str> = signals.iter().map(|s| s.as_str()).collect();
-            let message = format!(
-                "{tag}: no {} sample for more than the expected period times the stale limit",
-                names.join("/")
-            );
-            self.raise(&tag, "stale_tag", message, evidence, now).await;
+        for alert in newly {
+            self.raise(alert).await;
         }
     }
 
     async fn publish_status(&mut self) {
-        let Some(topic) = &self.settings.status_topic else {
+        let Some(topic) = self.settings.status_topic.clone() else {
             return;
         };
         let payload = serde_json::json!({
@@ -531,12 +543,16 @@ impl Writer {
             "counters": &self.counters,
             "loops": self.loops.len(),
         });
+        self.publish(topic, payload).await;
+    }
+
+    /// Hands a message for one of the daemon's own topics to the MQTT task. When that task has
+    /// ended there is no one to publish it; the alert or status is in the store and the log.
+    async fn publish(&self, topic: String, payload: serde_json::Value) {
+        let payload = payload.to_string().into_bytes();
         let _ = self
             .outbound
-            .send(Outbound::Publish {
-                topic: topic.clone(),
-                payload: payload.to_string().into_bytes(),
-            })
+            .send(Outbound::Publish { topic, payload })
             .await;
     }
 
@@ -548,10 +564,7 @@ impl Writer {
         let margin = self
             .loops
             .values()
-            .map(|rt| {
-                let s = rt.tracker.setup();
-                (0.25 * s.options.horizon_factor * s.spec.settle_within_s * 1000.0) as i64
-            })
+            .map(|rt| horizon_ms(rt.tracker.setup(), 0.25))
             .max()
             .unwrap_or(0);
         match self.store.prune_samples(now - keep, margin).await {
@@ -560,6 +573,12 @@ impl Writer {
             Err(e) => tracing::warn!(error = %e, "could not prune old raw samples"),
         }
     }
+}
+
+/// `times` the loop's evaluation horizon (its horizon factor times its spec's settling time),
+/// in milliseconds: how far back the live analysis can look.
+pub fn horizon_ms(setup: &LoopSetup, times: f64) -> i64 {
+    s_to_ms(times * setup.options.horizon_factor * setup.spec.settle_within_s)
 }
 
 fn log_model(tag: &str, m: &Model) {
@@ -580,7 +599,5 @@ async fn sleep_until(deadline: Option<tokio::time::Instant>) {
     }
 }
 
-/// RFC 3339 text of epoch milliseconds.
-pub fn rfc3339(ms: i64) -> String {
-    jiff::Timestamp::from_millisecond(ms).map_or_else(|_| ms.to_string(), |t| t.to_string())
-}
+#[cfg(test)]
+mod tests;
