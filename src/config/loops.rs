@@ -487,16 +487,12 @@ pub(super) fn tag_problem(tag: &str) -> Option<String> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::config::Config;
-    use crate::config::fixture::{GOOD, PLANT, problems};
-    use std::path::Path;
+    use crate::config::fixture::{GOOD, PLANT, problems, refusal_in};
 
     #[test]
     fn an_inverted_op_range_is_refused_with_the_loop_tag() {
         let bad = GOOD.replace("op_max = 100.0", "op_max = -5.0");
-        let err = Config::parse(&bad, Path::new("p.toml"))
-            .unwrap_err()
-            .to_string();
+        let err = refusal_in(&bad, "p.toml");
         assert!(err.contains("TIC-101") && err.contains("op_min"), "{err}");
         assert!(err.starts_with("p.toml:5:"), "{err}");
     }
@@ -504,9 +500,7 @@ mod tests {
     #[test]
     fn a_spec_time_of_zero_is_refused() {
         let bad = GOOD.replace("settle_within_s = 900", "settle_within_s = 0");
-        let err = Config::parse(&bad, Path::new("p.toml"))
-            .unwrap_err()
-            .to_string();
+        let err = refusal_in(&bad, "p.toml");
         assert!(err.contains("settle_within_s"), "{err}");
         assert!(err.starts_with("p.toml:7:"), "{err}");
     }

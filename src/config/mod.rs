@@ -58,7 +58,9 @@
 //! - `loops`: `[loops.<tag>]` ([`LoopConfig`], [`Source`], [`ModeSource`], [`PayloadFormat`]);
 //! - [`modbus`]: `[modbus.<name>]` devices and register sources;
 //! - `report`: `[report]` ([`ReportSettings`]);
-//! - `describe`: [`Config::describe`], what `check-config` prints.
+//! - `describe`: [`Config::describe`], what `check-config` prints;
+//! - `fixture` (tests only): config text built from one set of pieces, for tests anywhere in
+//!   the crate.
 
 mod describe;
 mod error;
@@ -257,9 +259,7 @@ mod tests {
     #[test]
     fn a_misspelt_key_is_an_error_naming_file_line_and_key() {
         let bad = GOOD.replace("max_overshoot_pct", "max_overshot_pct");
-        let err = Config::parse(&bad, Path::new("plant.toml"))
-            .unwrap_err()
-            .to_string();
+        let err = problems(&bad);
         assert!(err.starts_with("plant.toml:8:"), "{err}");
         assert!(err.contains("max_overshot_pct"), "{err}");
     }

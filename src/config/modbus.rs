@@ -53,7 +53,7 @@ pub struct ModbusSource {
 /// Modbus TCP's registered port (Modbus Messaging on TCP/IP Implementation Guide V1.0b, §4.1).
 pub const DEFAULT_PORT: u16 = 502;
 /// Unit id when none is given: 1, which most TCP devices and gateways answer to (common practice).
-const DEFAULT_UNIT_ID: i64 = 1;
+const DEFAULT_UNIT_ID: u8 = 1;
 const DEFAULT_TIMEOUT_S: f64 = 1.0;
 /// Below this a poll period is a typing mistake, not a plan.
 const MIN_POLL_PERIOD_S: f64 = 0.001;
@@ -132,7 +132,7 @@ impl Checker<'_> {
                 raw.address.clone()
             }
         };
-        let unit_id = raw.unit_id.unwrap_or(DEFAULT_UNIT_ID);
+        let unit_id = raw.unit_id.unwrap_or(i64::from(DEFAULT_UNIT_ID));
         self.within(
             &at("unit_id"),
             unit_id,
@@ -145,15 +145,16 @@ impl Checker<'_> {
             raw.timeout_s.unwrap_or(DEFAULT_TIMEOUT_S),
             MAX_TIMEOUT_S,
         );
-        let max_registers = raw
-            .max_registers_per_request
-            .unwrap_or(i64::from(Table::HoldingRegisters.protocol_max()));
+        // The protocol's own limit per register request: the default request size, and the
+        // largest gap worth bridging.
+        let most = Table::HoldingRegisters.protocol_max();
+        let max_registers = raw.max_registers_per_request.unwrap_or(i64::from(most));
         let max_gap = raw.max_gap.unwrap_or(0);
         self.within(
             &at("max_gap"),
             max_gap,
-            0..=i64::from(Table::HoldingRegisters.protocol_max()),
-            "must be a whole number of registers from 0 to 125",
+            0..=i64::from(most),
+            format_args!("must be a whole number of registers from 0 to {most}"),
         );
         // A count that does not fit is refused by `Limits::new` like any other out of range.
         let limits = Limits::new(
@@ -170,7 +171,7 @@ impl Checker<'_> {
         });
         ModbusDevice {
             address,
-            unit_id: u8::try_from(unit_id).unwrap_or(1),
+            unit_id: u8::try_from(unit_id).unwrap_or(DEFAULT_UNIT_ID),
             poll_period: period,
             timeout,
             limits,

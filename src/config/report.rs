@@ -91,6 +91,7 @@ impl Checker<'_> {
 #[cfg(test)]
 mod tests {
     use crate::config::Config;
+    use crate::config::fixture::refusal_in;
     use std::path::{Path, PathBuf};
 
     const LOOP: &str =
@@ -115,9 +116,7 @@ mod tests {
         let text = format!(
             "{LOOP}[report]\nweekday = \"Moonday\"\ntime = \"7 o'clock\"\ntime_zone = \"Mars/Olympus\"\nfolder = \"r\"\nformats = [\"pdf\"]\n"
         );
-        let e = Config::parse(&text, Path::new("plant.toml"))
-            .unwrap_err()
-            .to_string();
+        let e = refusal_in(&text, "plant.toml");
         for expected in [
             "plant.toml:6:11: report.weekday: \"Moonday\" is not a weekday",
             "plant.toml:7:8: report.time:",
