@@ -4,12 +4,15 @@
 //! refused [`Setting`] in its own spelling (a TOML key, a command-line flag).
 
 use super::identify;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
-/// A loop's design spec for setpoint changes.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+/// A loop's design spec for setpoint changes. The config file's `spec = { ... }` is read into it
+/// directly (unknown keys refused, the band defaulted), then checked by [`Spec::problems`].
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Spec {
     /// Half-width of the settling band as a percentage of |Δ| (2 % by default).
+    #[serde(default = "default_settle_band_pct")]
     pub settle_band_pct: f64,
     /// The PV must be inside the band for good within this many seconds of the change.
     pub settle_within_s: f64,
@@ -63,6 +66,10 @@ impl Spec {
         }
         out
     }
+}
+
+fn default_settle_band_pct() -> f64 {
+    Spec::DEFAULT_SETTLE_BAND_PCT
 }
 
 /// The actuator range of a loop, in OP units.

@@ -20,7 +20,8 @@
 //! Addresses are 0-based protocol addresses (see [`crate::modbus::registers`]): holding register
 //! 40108 in a manual's reference notation is `table = "holding_registers", address = 107`.
 
-use super::{Checker, Source};
+use super::error::Checker;
+use super::loops::{LoopConfig, Source, tag_problem};
 use crate::modbus::plan::{self, Limits, Span};
 use crate::modbus::registers::{self, Address, DataType, Order, Scaling, Table};
 use crate::sample::Signal;
@@ -52,12 +53,14 @@ pub struct ModbusSource {
 /// Modbus TCP's registered port (Modbus Messaging on TCP/IP Implementation Guide V1.0b, §4.1).
 pub const DEFAULT_PORT: u16 = 502;
 /// Unit id when none is given: 1, which most TCP devices and gateways answer to (common practice).
-const DEFAULT_UNIT_ID: i64 = 1;
+const DEFAULT_UNIT_ID: u8 = 1;
 const DEFAULT_TIMEOUT_S: f64 = 1.0;
 /// Below this a poll period is a typing mistake, not a plan.
 const MIN_POLL_PERIOD_S: f64 = 0.001;
 /// Longest poll period: a day.
 const MAX_POLL_PERIOD_S: f64 = 86_400.0;
+/// Longest wait for one answer: a device slower than a minute is not answering.
+const MAX_TIMEOUT_S: f64 = 60.0;
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -119,81 +122,77 @@ impl Checker<'_> {
 
     fn device(&mut self, name: &str, raw: RawDevice) -> ModbusDevice {
         let at = |key: &'static str| ["modbus", name, key];
-        if let Some(m) = super::tag_problem(name) {
+        if let Some(m) = tag_problem(name) {
             self.problem(&["modbus", name], m.replace("loop tag", "device name"));
         }
         let address = match parse_device_address(&raw.address) {
             Ok(a) => a,
-            Err(m) => {
-                self.problem(&at("address"), m);
+            Err(e) => {
+                self.problem(&at("address"), e.to_string());
                 raw.address.clone()
             }
         };
-        let unit_id = raw.unit_id.unwrap_or(DEFAULT_UNIT_ID);
-        if !(0..=255).contains(&unit_id) {
-            self.problem(
-                &at("unit_id"),
-                format!("must be a whole number from 0 to 255 (got {unit_id})"),
-            );
-        }
-        let period = raw.poll_period_s;
-        if !(period.is_finite() && (MIN_POLL_PERIOD_S..=MAX_POLL_PERIOD_S).contains(&period)) {
-            self.problem(
-                &at("poll_period_s"),
-                format!(
-                    "must be a number of seconds from {MIN_POLL_PERIOD_S} to {MAX_POLL_PERIOD_S} \
-                     (got {period})"
-                ),
-            );
-        }
-        let timeout = raw.timeout_s.unwrap_or(DEFAULT_TIMEOUT_S);
-        if !(timeout.is_finite() && (MIN_POLL_PERIOD_S..=60.0).contains(&timeout)) {
-            self.problem(
-                &at("timeout_s"),
-                format!(
-                    "must be a number of seconds from {MIN_POLL_PERIOD_S} to 60 (got {timeout})"
-                ),
-            );
-        }
-        let max_registers = raw
-            .max_registers_per_request
-            .unwrap_or(i64::from(Table::HoldingRegisters.protocol_max()));
+        let unit_id = raw.unit_id.unwrap_or(i64::from(DEFAULT_UNIT_ID));
+        self.within(
+            &at("unit_id"),
+            unit_id,
+            0..=255,
+            "must be a whole number from 0 to 255",
+        );
+        let period = self.seconds(&at("poll_period_s"), raw.poll_period_s, MAX_POLL_PERIOD_S);
+        let timeout = self.seconds(
+            &at("timeout_s"),
+            raw.timeout_s.unwrap_or(DEFAULT_TIMEOUT_S),
+            MAX_TIMEOUT_S,
+        );
+        // The protocol's own limit per register request: the default request size, and the
+        // largest gap worth bridging.
+        let most = Table::HoldingRegisters.protocol_max();
+        let max_registers = raw.max_registers_per_request.unwrap_or(i64::from(most));
         let max_gap = raw.max_gap.unwrap_or(0);
-        if !(0..=i64::from(Table::HoldingRegisters.protocol_max())).contains(&max_gap) {
+        self.within(
+            &at("max_gap"),
+            max_gap,
+            0..=i64::from(most),
+            format_args!("must be a whole number of registers from 0 to {most}"),
+        );
+        // A count that does not fit is refused by `Limits::new` like any other out of range.
+        let limits = Limits::new(
+            u16::try_from(max_registers).unwrap_or(0),
+            Table::Coils.protocol_max(),
+            u16::try_from(max_gap).unwrap_or(0),
+        )
+        .unwrap_or_else(|e| {
             self.problem(
-                &at("max_gap"),
-                format!("must be a whole number of registers from 0 to 125 (got {max_gap})"),
+                &at("max_registers_per_request"),
+                format!("{e} (got {max_registers})"),
             );
-        }
-        let limits = u16::try_from(max_registers)
-            .map_err(|_| "max registers per request must be 1-125 (Modbus V1.1b3 §6.3)".to_owned())
-            .and_then(|n| {
-                Limits::new(
-                    n,
-                    Table::Coils.protocol_max(),
-                    u16::try_from(max_gap).unwrap_or(0),
-                )
-                .map_err(|e| e.to_string())
-            });
-        let limits = match limits {
-            Ok(l) => l,
-            Err(m) => {
-                self.problem(
-                    &at("max_registers_per_request"),
-                    format!("{m} (got {max_registers})"),
-                );
-                Limits::default()
-            }
-        };
+            Limits::default()
+        });
         ModbusDevice {
             address,
-            unit_id: u8::try_from(unit_id).unwrap_or(1),
-            poll_period: Duration::from_secs_f64(
-                period.clamp(MIN_POLL_PERIOD_S, MAX_POLL_PERIOD_S),
-            ),
-            timeout: Duration::from_secs_f64(timeout.clamp(MIN_POLL_PERIOD_S, 60.0)),
+            unit_id: u8::try_from(unit_id).unwrap_or(DEFAULT_UNIT_ID),
+            poll_period: period,
+            timeout,
             limits,
         }
+    }
+
+    /// A duration in seconds from [`MIN_POLL_PERIOD_S`] to `max` (a problem at `keys` when it is
+    /// not), clamped into that range.
+    fn seconds(&mut self, keys: &[&str], value: f64, max: f64) -> Duration {
+        self.within(
+            keys,
+            value,
+            MIN_POLL_PERIOD_S..=max,
+            format_args!("must be a number of seconds from {MIN_POLL_PERIOD_S} to {max}"),
+        );
+        let clamped = if value.is_nan() {
+            MIN_POLL_PERIOD_S
+        } else {
+            value.clamp(MIN_POLL_PERIOD_S, max)
+        };
+        Duration::from_secs_f64(clamped)
     }
 
     /// A register source; `devices` are the configured device names.
@@ -206,7 +205,7 @@ impl Checker<'_> {
     ) -> Source {
         let name = signal.as_str();
         let at = |key: &'static str| ["loops", tag, name, key];
-        let device = raw.device.unwrap_or_default();
+        let device = raw.device.clone().unwrap_or_default();
         if !devices.contains_key(&device) {
             let known = if devices.is_empty() {
                 "no [modbus.<name>] device is configured".to_owned()
@@ -221,71 +220,12 @@ impl Checker<'_> {
                 format!("no Modbus device named \"{device}\" ({known})"),
             );
         }
-        let table = raw.table.unwrap_or_else(|| {
-            self.problem(
-                &["loops", tag, name],
-                "a Modbus source needs `table`: \"holding_registers\", \"input_registers\", \
-                 \"coils\" or \"discrete_inputs\"",
-            );
-            Table::HoldingRegisters
-        });
-        let address = match raw.address.map(Address::parse) {
-            Some(Ok(a)) => a,
-            Some(Err(e)) => {
-                self.problem(&at("address"), e.to_string());
-                Address::new(0)
-            }
-            None => {
-                self.problem(
-                    &["loops", tag, name],
-                    "a Modbus source needs `address`: the 0-based protocol address (holding \
-                     register 40001 in reference notation is address 0)",
-                );
-                Address::new(0)
-            }
-        };
-        let data_type = match raw.data_type {
-            Some(t) => t,
-            None if table.is_bits() => DataType::Bool,
-            None => {
-                self.problem(
-                    &["loops", tag, name],
-                    "a register source needs `data_type`: u16, i16, u32, i32, f32 or f64",
-                );
-                DataType::F32
-            }
-        };
+        let (table, address, data_type) = self.register_place(tag, name, &raw);
         if raw.order.is_some() && data_type == DataType::Bool {
             self.problem(&at("order"), "a bit has no word or byte order");
         }
         let order = raw.order.unwrap_or_default();
-        let linear = raw.scale.is_some() || raw.offset.is_some();
-        let ranged = raw.raw_range.is_some() || raw.eng_range.is_some();
-        let scaling = match (linear, raw.raw_range, raw.eng_range) {
-            (true, _, _) if ranged => {
-                self.problem(
-                    &at("raw_range"),
-                    "give either scale/offset or raw_range/eng_range, not both",
-                );
-                Ok(Scaling::IDENTITY)
-            }
-            (true, _, _) => Scaling::linear(raw.scale.unwrap_or(1.0), raw.offset.unwrap_or(0.0)),
-            (false, Some([r0, r1]), Some([e0, e1])) => Scaling::range(r0, r1, e0, e1),
-            (false, Some(_), None) => {
-                self.problem(&at("raw_range"), "raw_range needs eng_range too");
-                Ok(Scaling::IDENTITY)
-            }
-            (false, None, Some(_)) => {
-                self.problem(&at("eng_range"), "eng_range needs raw_range too");
-                Ok(Scaling::IDENTITY)
-            }
-            (false, None, None) => Ok(Scaling::IDENTITY),
-        };
-        let scaling = scaling.unwrap_or_else(|e| {
-            let key = if linear { "scale" } else { "raw_range" };
-            self.problem(&at(key), e.to_string());
-            Scaling::IDENTITY
-        });
+        let scaling = self.scaling(tag, name, &raw);
         let register = registers::Source::new(table, address, data_type, order, scaling)
             .unwrap_or_else(|e| {
                 let key = if matches!(e, registers::RegisterError::TypeNotInTable { .. }) {
@@ -309,11 +249,89 @@ impl Checker<'_> {
         Source::Modbus(ModbusSource { device, register })
     }
 
+    /// Where a register source reads, and what: its table, address and data type (a bit when
+    /// the table holds bits and no type is given).
+    fn register_place(
+        &mut self,
+        tag: &str,
+        name: &str,
+        raw: &RawRegister,
+    ) -> (Table, Address, DataType) {
+        let table = raw.table.unwrap_or_else(|| {
+            self.problem(
+                &["loops", tag, name],
+                "a Modbus source needs `table`: \"holding_registers\", \"input_registers\", \
+                 \"coils\" or \"discrete_inputs\"",
+            );
+            Table::HoldingRegisters
+        });
+        let address = match raw.address.map(Address::parse) {
+            Some(Ok(a)) => a,
+            Some(Err(e)) => {
+                self.problem(&["loops", tag, name, "address"], e.to_string());
+                Address::new(0)
+            }
+            None => {
+                self.problem(
+                    &["loops", tag, name],
+                    "a Modbus source needs `address`: the 0-based protocol address (holding \
+                     register 40001 in reference notation is address 0)",
+                );
+                Address::new(0)
+            }
+        };
+        let data_type = match raw.data_type {
+            Some(t) => t,
+            None if table.is_bits() => DataType::Bool,
+            None => {
+                self.problem(
+                    &["loops", tag, name],
+                    "a register source needs `data_type`: u16, i16, u32, i32, f32 or f64",
+                );
+                DataType::F32
+            }
+        };
+        (table, address, data_type)
+    }
+
+    /// A register source's scaling: scale and offset, or a raw range onto an engineering range,
+    /// or none.
+    fn scaling(&mut self, tag: &str, name: &str, raw: &RawRegister) -> Scaling {
+        let at = |key: &'static str| ["loops", tag, name, key];
+        let linear = raw.scale.is_some() || raw.offset.is_some();
+        let ranged = raw.raw_range.is_some() || raw.eng_range.is_some();
+        let scaling = match (linear, raw.raw_range, raw.eng_range) {
+            (true, _, _) if ranged => {
+                self.problem(
+                    &at("raw_range"),
+                    "give either scale/offset or raw_range/eng_range, not both",
+                );
+                Ok(Scaling::IDENTITY)
+            }
+            (true, _, _) => Scaling::linear(raw.scale.unwrap_or(1.0), raw.offset.unwrap_or(0.0)),
+            (false, Some([r0, r1]), Some([e0, e1])) => Scaling::range(r0, r1, e0, e1),
+            (false, Some(_), None) => {
+                self.problem(&at("raw_range"), "raw_range needs eng_range too");
+                Ok(Scaling::IDENTITY)
+            }
+            (false, None, Some(_)) => {
+                self.problem(&at("eng_range"), "eng_range needs raw_range too");
+                Ok(Scaling::IDENTITY)
+            }
+            (false, None, None) => Ok(Scaling::IDENTITY),
+        };
+        scaling.unwrap_or_else(|e| {
+            let key = if linear { "scale" } else { "raw_range" };
+            self.problem(&at(key), e.to_string());
+            Scaling::IDENTITY
+        })
+    }
+
     /// Checks across loops: sources that overlap on one device, sources a device's request limit
     /// cannot hold, and devices nothing reads from.
     pub(super) fn modbus_usage(
         &mut self,
-        loops: &BTreeMap<String, super::LoopConfig>,
+        loops: &BTreeMap<String, LoopConfig>,
         devices: &BTreeMap<String, ModbusDevice>,
     ) {
         for (name, device) in devices {
@@ -360,7 +378,7 @@ impl Checker<'_> {
 
 /// The sources reading from one device: (loop tag, signal, register), in loop and signal order.
 pub fn device_sources<'a>(
-    loops: &'a BTreeMap<String, super::LoopConfig>,
+    loops: &'a BTreeMap<String, LoopConfig>,
     device: &str,
 ) -> Vec<(&'a str, Signal, &'a registers::Source)> {
     loops
@@ -390,14 +408,20 @@ fn overlaps(a: &Span, b: &Span) -> bool {
     a.table == b.table && u32::from(a.address.get()) < end(b) && u32::from(b.address.get()) < end(a)
 }
 
+/// Why a device address is unusable.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+enum AddressError {
+    #[error(
+        "expected host:port, such as \"10.0.4.21:502\" or \"plc-7.plant.example:502\" (got \"{0}\")"
+    )]
+    NotHostPort(String),
+    #[error("the port must be 1-65535 (got \"{0}\")")]
+    Port(String),
+}
+
 /// Checks `host[:port]` (an IPv6 host in brackets) and returns it with the port.
-fn parse_device_address(text: &str) -> Result<String, String> {
-    let bad = || {
-        format!(
-            "expected host:port, such as \"10.0.4.21:502\" or \"plc-7.plant.example:502\" \
-             (got \"{text}\")"
-        )
-    };
+fn parse_device_address(text: &str) -> Result<String, AddressError> {
+    let bad = || AddressError::NotHostPort(text.into());
     let (host, port) = if let Some(rest) = text.strip_prefix('[') {
         let (host, after) = rest.split_once(']').ok_or_else(bad)?;
         match after {
@@ -418,7 +442,7 @@ fn parse_device_address(text: &str) -> Result<String, String> {
         None => DEFAULT_PORT,
         Some(p) => match p.parse::<u16>() {
             Ok(p) if p > 0 => p,
-            _ => return Err(format!("the port must be 1-65535 (got \"{p}\")")),
+            _ => return Err(AddressError::Port(p.into())),
         },
     };
     if text.starts_with('[') {
@@ -430,7 +454,7 @@ fn parse_device_address(text: &str) -> Result<String, String> {
 
 /// `plan::plan` for a device's sources, in [`device_sources`] order.
 pub fn device_plan(
-    loops: &BTreeMap<String, super::LoopConfig>,
+    loops: &BTreeMap<String, LoopConfig>,
     name: &str,
     device: &ModbusDevice,
 ) -> Result<plan::Plan, plan::PlanError> {
@@ -443,59 +467,18 @@ pub fn device_plan(
 
 #[cfg(test)]
 mod tests {
-    use super::super::Config;
     use super::*;
+    use crate::config::Config;
+    use crate::config::fixture::{SKID, refusal_in};
     use std::path::Path;
 
-    /// A skid of the invented Wrenmoor pilot plant: one loop read only over Modbus, one mixing an
-    /// MQTT setpoint with Modbus PV and OP.
-    const SKID: &str = r#"
-[mqtt]
-url = "mqtt://127.0.0.1:1883"
-client_id = "headroom-test"
-alert_topic = "headroom/test/alerts"
-
-[modbus.skid-b]
-address = "127.0.0.1:1502"
-poll_period_s = 0.5
-timeout_s = 0.25
-max_gap = 4
-
-[modbus.dosing]
-address = "10.0.4.22"
-unit_id = 7
-poll_period_s = 2
-
-[loops.LIC-301]
-op_min = 0
-op_max = 100
-expected_period_s = 0.5
-spec = { settle_within_s = 120 }
-sp = { device = "skid-b", table = "holding_registers", address = 100, data_type = "f32" }
-pv = { device = "skid-b", table = "holding_registers", address = 102, data_type = "f32", order = "CDAB" }
-op = { device = "skid-b", table = "holding_registers", address = 110, data_type = "u16", raw_range = [0, 27648], eng_range = [0, 100] }
-mode = { device = "skid-b", table = "discrete_inputs", address = 3 }
-
-[loops.FIC-402]
-op_min = 0
-op_max = 100
-expected_period_s = 2
-spec = { settle_within_s = 30 }
-sp = { topic = "wrenmoor/dosing/FIC-402/sp", format = "number" }
-pv = { device = "dosing", table = "input_registers", address = 0, data_type = "i16", scale = 0.1 }
-op = { device = "dosing", table = "input_registers", address = 1, data_type = "i16", scale = 0.1, offset = -5 }
-"#;
-
     fn problems(text: &str) -> String {
-        match Config::parse(text, Path::new("skid.toml")) {
-            Ok(_) => panic!("expected the config to be refused"),
-            Err(e) => e.to_string(),
-        }
+        refusal_in(text, "skid.toml")
     }
 
     #[test]
     fn a_modbus_plant_is_read_into_devices_and_register_sources() {
-        let cfg = Config::parse(SKID, Path::new("skid.toml")).unwrap_or_else(|e| panic!("{e}"));
+        let cfg = Config::parse(&SKID, Path::new("skid.toml")).unwrap_or_else(|e| panic!("{e}"));
         let skid = &cfg.modbus["skid-b"];
         assert_eq!(skid.address, "127.0.0.1:1502");
         assert_eq!(skid.unit_id, 1);
@@ -656,6 +639,25 @@ op = { device = "dosing", table = "input_registers", address = 1, data_type = "i
         assert!(err.contains("discrete_inputs"), "{err}");
         let err = problems(&SKID.replace("\"CDAB\"", "\"DCAB\""));
         assert!(err.starts_with("skid.toml:24:"), "{err}");
+    }
+
+    #[test]
+    fn periods_that_are_not_numbers_are_refused_with_their_keys() {
+        let text = SKID
+            .replace("poll_period_s = 0.5", "poll_period_s = nan")
+            .replace("timeout_s = 0.25", "timeout_s = inf");
+        let err = problems(&text);
+        assert!(
+            err.contains(
+                "modbus.skid-b.poll_period_s: must be a number of seconds from 0.001 to 86400 \
+                 (got NaN)"
+            ),
+            "{err}"
+        );
+        assert!(
+            err.contains("modbus.skid-b.timeout_s: must be a number of seconds from 0.001 to 60"),
+            "{err}"
+        );
     }
 
     #[test]

@@ -1,0 +1,630 @@
+//! `[loops.<tag>]`: one control loop — its units, OP range, spec and analysis settings (the
+//! core's [`Spec`] and [`LoopSetup`], checked by the core's own `problems()`), its sample period
+//! and stale limit, and where each signal comes from ([`Source`]: an MQTT topic with a
+//! [`PayloadFormat`], or Modbus registers; the mode with its automatic values).
+
+use super::error::Checker;
+use super::modbus::{self, ModbusDevice, ModbusSource};
+use super::raw::{RawFormat, RawLoop, RawSource};
+use crate::analysis::{self, AnalysisOptions, AutoValues, LoopSetup, OpRange, Setting, Spec};
+use crate::mqtt::topic;
+use crate::sample::Signal;
+use serde::Deserialize;
+use std::collections::BTreeMap;
+use std::time::Duration;
+
+/// One loop.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LoopConfig {
+    /// Free text for people: what the loop controls and with what.
+    pub description: String,
+    /// Engineering unit of the PV, for display (e.g. "°C").
+    pub pv_unit: String,
+    /// Engineering unit of the OP, for display (usually "%").
+    pub op_unit: String,
+    pub op_min: f64,
+    pub op_max: f64,
+    /// The spec as the core reads it (`spec = { ... }` deserializes into it directly).
+    pub spec: Spec,
+    pub analysis: AnalysisConfig,
+    /// How often each signal should arrive (s). Required for a watched loop; also the analysis's
+    /// sample period for its default hold and gap limits.
+    pub expected_period_s: Option<f64>,
+    /// A signal with no sample for this many expected periods is stale.
+    pub stale_after_periods: f64,
+    pub sp: Option<Source>,
+    pub pv: Option<Source>,
+    pub op: Option<Source>,
+    pub mode: Option<ModeSource>,
+}
+
+/// Optional analysis settings per loop; anything left out is derived from the data.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AnalysisConfig {
+    pub sp_deadband: Option<f64>,
+    pub sp_hold_s: Option<f64>,
+    pub max_gap_s: Option<f64>,
+    pub upgrade_ratio_limit: Option<f64>,
+}
+
+/// Where one signal's samples come from.
+#[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
+pub enum Source {
+    /// Messages on an MQTT topic filter.
+    Mqtt(MqttSource),
+    /// Registers (or bits) of a Modbus TCP device, read by polling.
+    Modbus(ModbusSource),
+}
+
+impl Source {
+    /// The MQTT source, if this is one.
+    pub fn as_mqtt(&self) -> Option<&MqttSource> {
+        match self {
+            Source::Mqtt(m) => Some(m),
+            Source::Modbus(_) => None,
+        }
+    }
+
+    /// The Modbus source, if this is one.
+    pub fn as_modbus(&self) -> Option<&ModbusSource> {
+        match self {
+            Source::Modbus(m) => Some(m),
+            Source::Mqtt(_) => None,
+        }
+    }
+}
+
+/// An MQTT topic filter (`+` and `#` allowed) and how its payloads are written.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct MqttSource {
+    pub topic: String,
+    pub format: PayloadFormat,
+}
+
+/// How a payload is written.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum PayloadFormat {
+    /// Plain text holding one number, whitespace around it allowed (`21.5`). For a mode signal,
+    /// plain text holding a number or a word (`AUTO`).
+    Number,
+    /// A JSON object holding the value and optionally its time, or an array of such objects.
+    Json(JsonFields),
+}
+
+/// The field names of a JSON payload.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct JsonFields {
+    /// The value's field (default `value`).
+    pub value_field: String,
+    /// The timestamp's field (default `time`): an RFC 3339 string or epoch milliseconds. A
+    /// message without it is timed by its receipt.
+    pub time_field: String,
+}
+
+/// The mode signal's source and which of its values mean the loop is in automatic.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModeSource {
+    pub source: Source,
+    pub auto_values: AutoValues,
+}
+
+impl LoopConfig {
+    /// A signal is stale after this many expected periods without a sample, unless the loop's
+    /// `stale_after_periods` says otherwise.
+    pub const DEFAULT_STALE_AFTER_PERIODS: f64 = 10.0;
+
+    /// The source of one signal.
+    pub fn source(&self, signal: Signal) -> Option<&Source> {
+        match signal {
+            Signal::Sp => self.sp.as_ref(),
+            Signal::Pv => self.pv.as_ref(),
+            Signal::Op => self.op.as_ref(),
+            Signal::Mode => self.mode.as_ref().map(|m| &m.source),
+        }
+    }
+
+    /// The signals that have a source, in the order sp, pv, op, mode.
+    pub fn sources(&self) -> impl Iterator<Item = (Signal, &Source)> {
+        Signal::ALL
+            .into_iter()
+            .filter_map(|s| self.source(s).map(|src| (s, src)))
+    }
+
+    /// Whether the daemon watches this loop (validation makes that mean: sp, pv and op sources).
+    pub fn is_watched(&self) -> bool {
+        self.sources().next().is_some()
+    }
+
+    /// How long a signal may go without a sample before it is stale, when the loop has an
+    /// expected period.
+    pub fn stale_after(&self) -> Option<Duration> {
+        self.expected_period_s
+            .map(|p| Duration::from_secs_f64(p * self.stale_after_periods))
+    }
+
+    /// Turns the loop's section into an analysis setup, checking the spec's values.
+    pub fn setup(&self, tag: &str) -> Result<LoopSetup, analysis::Problem> {
+        let op = OpRange {
+            min: self.op_min,
+            max: self.op_max,
+        };
+        let setup = setup_as_written(tag, op, self.spec, &self.analysis, self.expected_period_s);
+        setup.validate()?;
+        Ok(setup)
+    }
+}
+
+/// A loop's analysis setup as written, before the core's validation.
+fn setup_as_written(
+    tag: &str,
+    op: OpRange,
+    spec: Spec,
+    analysis: &AnalysisConfig,
+    expected_period_s: Option<f64>,
+) -> LoopSetup {
+    let mut options = AnalysisOptions {
+        sp_deadband: analysis.sp_deadband,
+        sp_hold_s: analysis.sp_hold_s,
+        max_gap_s: analysis.max_gap_s,
+        expected_period_s,
+        ..AnalysisOptions::default()
+    };
+    if let Some(r) = analysis.upgrade_ratio_limit {
+        options.upgrade_ratio_limit = r;
+    }
+    LoopSetup {
+        tag: tag.to_owned(),
+        op,
+        spec,
+        options,
+    }
+}
+
+/// Where a refused setting sits in a loop's section: its key, under `spec` or `analysis` when
+/// it is written there. An inverted range is reported at `op_max`, the end usually mistyped.
+fn setting_keys<'a>(tag: &'a str, p: &analysis::Problem) -> Vec<&'a str> {
+    let section = match p.setting {
+        Setting::SettleBandPct | Setting::SettleWithinS | Setting::MaxOvershootPct => Some("spec"),
+        Setting::SpDeadband | Setting::SpHoldS | Setting::MaxGapS | Setting::UpgradeRatioLimit => {
+            Some("analysis")
+        }
+        Setting::OpMin | Setting::OpMax | Setting::ExpectedPeriodS => None,
+    };
+    let key = match p.other {
+        Some((other, _)) => other.key(),
+        None => p.setting.key(),
+    };
+    ["loops", tag]
+        .into_iter()
+        .chain(section)
+        .chain([key])
+        .collect()
+}
+
+/// What a source's checks need to know of the rest of the file.
+#[derive(Clone, Copy)]
+pub(super) struct Context<'a> {
+    /// Whether the file has an `[mqtt]` section.
+    pub have_mqtt: bool,
+    /// The configured Modbus devices.
+    pub devices: &'a BTreeMap<String, ModbusDevice>,
+}
+
+/// A loop's four sources as checked.
+struct Signals {
+    sp: Option<Source>,
+    pv: Option<Source>,
+    op: Option<Source>,
+    mode: Option<ModeSource>,
+}
+
+impl Checker<'_> {
+    pub(super) fn a_loop(&mut self, tag: &str, raw: RawLoop, cx: Context<'_>) -> LoopConfig {
+        if let Some(m) = tag_problem(tag) {
+            self.problem(&["loops", tag], m);
+        }
+        let op = OpRange {
+            min: raw.op_min,
+            max: raw.op_max,
+        };
+        let written = setup_as_written(tag, op, raw.spec, &raw.analysis, raw.expected_period_s);
+        for p in written.problems() {
+            self.problem(&setting_keys(tag, &p), p.to_string());
+        }
+        let stale_after_periods = raw
+            .stale_after_periods
+            .unwrap_or(LoopConfig::DEFAULT_STALE_AFTER_PERIODS);
+        self.within(
+            &["loops", tag, "stale_after_periods"],
+            stale_after_periods,
+            1.0..=f64::MAX,
+            "must be a number of periods, 1 or more",
+        );
+        let mut source =
+            |signal: Signal, raw: Option<RawSource>| raw.map(|r| self.source(tag, signal, r, cx));
+        let signals = Signals {
+            sp: source(Signal::Sp, raw.sp).map(|(s, _)| s),
+            pv: source(Signal::Pv, raw.pv).map(|(s, _)| s),
+            op: source(Signal::Op, raw.op).map(|(s, _)| s),
+            mode: source(Signal::Mode, raw.mode).map(|(source, auto_values)| ModeSource {
+                source,
+                auto_values: auto_values.unwrap_or_default(),
+            }),
+        };
+        self.watched_loop(tag, &signals, raw.expected_period_s);
+        LoopConfig {
+            description: raw.description,
+            pv_unit: raw.pv_unit,
+            op_unit: raw.op_unit,
+            op_min: raw.op_min,
+            op_max: raw.op_max,
+            spec: raw.spec,
+            analysis: raw.analysis,
+            expected_period_s: raw.expected_period_s,
+            stale_after_periods,
+            sp: signals.sp,
+            pv: signals.pv,
+            op: signals.op,
+            mode: signals.mode,
+        }
+    }
+
+    /// A loop with any source is watched, and then needs all of sp, pv and op, and a period.
+    fn watched_loop(&mut self, tag: &str, s: &Signals, expected_period_s: Option<f64>) {
+        let present: Vec<&str> = [
+            ("sp", s.sp.is_some()),
+            ("pv", s.pv.is_some()),
+            ("op", s.op.is_some()),
+            ("mode", s.mode.is_some()),
+        ]
+        .into_iter()
+        .filter_map(|(k, p)| p.then_some(k))
+        .collect();
+        if present.is_empty() {
+            return;
+        }
+        for (key, missing) in [
+            ("sp", s.sp.is_none()),
+            ("pv", s.pv.is_none()),
+            ("op", s.op.is_none()),
+        ] {
+            if missing {
+                self.problem(
+                    &["loops", tag, key],
+                    format!(
+                        "the loop has a source for {} but none for {key}: a watched loop needs \
+                         sp, pv and op",
+                        present.join(", ")
+                    ),
+                );
+            }
+        }
+        if expected_period_s.is_none() {
+            self.problem(
+                &["loops", tag, "expected_period_s"],
+                "a watched loop needs expected_period_s: how often each signal should arrive, in \
+                 seconds",
+            );
+        }
+    }
+
+    /// A signal's source, and the mode's automatic values when given.
+    fn source(
+        &mut self,
+        tag: &str,
+        signal: Signal,
+        raw: RawSource,
+        cx: Context<'_>,
+    ) -> (Source, Option<AutoValues>) {
+        let auto_values = self.auto_values(tag, signal, raw.auto_values.as_deref());
+        let register = modbus::RawRegister {
+            device: raw.device,
+            table: raw.table,
+            address: raw.address,
+            data_type: raw.data_type,
+            order: raw.order,
+            scale: raw.scale,
+            offset: raw.offset,
+            raw_range: raw.raw_range,
+            eng_range: raw.eng_range,
+        };
+        let name = signal.as_str();
+        let mqtt_keys = [
+            ("topic", raw.topic.is_some()),
+            ("format", raw.format.is_some()),
+            ("value_field", raw.value_field.is_some()),
+            ("time_field", raw.time_field.is_some()),
+        ];
+        if register.device.is_some() {
+            for (key, _) in mqtt_keys.into_iter().filter(|(_, given)| *given) {
+                self.problem(
+                    &["loops", tag, name, key],
+                    "a Modbus source (one with `device`) takes no MQTT keys",
+                );
+            }
+            let source = self.modbus_source(tag, signal, register, cx.devices);
+            return (source, auto_values);
+        }
+        for key in register.given() {
+            self.problem(
+                &["loops", tag, name, key],
+                "only applies to a Modbus source: add `device = \"<name>\"` naming a \
+                 [modbus.<name>] device, or remove it",
+            );
+        }
+        let topic = self.topic_filter(tag, name, raw.topic, cx.have_mqtt);
+        let format = self.payload_format(tag, name, raw.format, raw.value_field, raw.time_field);
+        (Source::Mqtt(MqttSource { topic, format }), auto_values)
+    }
+
+    /// The mode's automatic values; refused on any other signal.
+    fn auto_values(
+        &mut self,
+        tag: &str,
+        signal: Signal,
+        raw: Option<&[String]>,
+    ) -> Option<AutoValues> {
+        let keys = ["loops", tag, signal.as_str(), "auto_values"];
+        let v = raw?;
+        if signal != Signal::Mode {
+            self.problem(&keys, "auto_values only applies to the mode signal");
+            return None;
+        }
+        if v.is_empty() || v.iter().any(|x| x.trim().is_empty()) {
+            self.problem(
+                &keys,
+                "list at least one value, none of them blank (e.g. [\"AUTO\", \"CAS\"])",
+            );
+        }
+        Some(AutoValues::new(v))
+    }
+
+    /// An MQTT source's topic filter: present, valid, and with a broker to read it from.
+    fn topic_filter(
+        &mut self,
+        tag: &str,
+        name: &str,
+        topic: Option<String>,
+        have_mqtt: bool,
+    ) -> String {
+        let Some(topic) = topic else {
+            self.problem(
+                &["loops", tag, name],
+                "a source needs `topic` (an MQTT topic filter) or `device` (a Modbus device)",
+            );
+            return String::new();
+        };
+        let at = ["loops", tag, name, "topic"];
+        if !topic.is_empty() {
+            if let Some(m) = topic::filter_problem(&topic) {
+                self.problem(&at, m);
+            } else if !have_mqtt {
+                self.problem(
+                    &at,
+                    "an MQTT source needs an [mqtt] section naming the broker",
+                );
+            }
+        }
+        topic
+    }
+
+    /// An MQTT source's payload format, with the JSON field names.
+    fn payload_format(
+        &mut self,
+        tag: &str,
+        name: &str,
+        format: Option<RawFormat>,
+        value_field: Option<String>,
+        time_field: Option<String>,
+    ) -> PayloadFormat {
+        let at = |key: &'static str| ["loops", tag, name, key];
+        match format {
+            None => {
+                self.problem(
+                    &["loops", tag, name],
+                    "a source needs `format`: \"number\" (plain text) or \"json\"",
+                );
+                PayloadFormat::Number
+            }
+            Some(RawFormat::Number) => {
+                for (key, given) in [
+                    ("value_field", value_field.is_some()),
+                    ("time_field", time_field.is_some()),
+                ] {
+                    if given {
+                        self.problem(&at(key), "only applies to format = \"json\"");
+                    }
+                }
+                PayloadFormat::Number
+            }
+            Some(RawFormat::Json) => {
+                let value_field = value_field.unwrap_or_else(|| "value".into());
+                let time_field = time_field.unwrap_or_else(|| "time".into());
+                if value_field.is_empty() {
+                    self.problem(&at("value_field"), "cannot be empty");
+                }
+                if time_field.is_empty() {
+                    self.problem(&at("time_field"), "cannot be empty");
+                }
+                if value_field == time_field {
+                    self.problem(
+                        &at("time_field"),
+                        format!("must differ from value_field (both are \"{value_field}\")"),
+                    );
+                }
+                PayloadFormat::Json(JsonFields {
+                    value_field,
+                    time_field,
+                })
+            }
+        }
+    }
+}
+
+/// Why a loop tag (or a device name) is unusable. Tags name loops in the store, in alerts and
+/// in messages, and may become levels of topics headroom publishes, so they stay short and free
+/// of spaces and MQTT's `/ + #`.
+pub(super) fn tag_problem(tag: &str) -> Option<String> {
+    const MAX_TAG_CHARS: usize = 64;
+    if tag.is_empty() {
+        Some("a loop tag cannot be empty".into())
+    } else if tag.chars().count() > MAX_TAG_CHARS {
+        Some(format!(
+            "a loop tag can be at most {MAX_TAG_CHARS} characters"
+        ))
+    } else if tag
+        .chars()
+        .any(|c| c.is_whitespace() || c.is_control() || matches!(c, '/' | '+' | '#'))
+    {
+        Some("a loop tag cannot contain spaces, control characters, or any of / + #".into())
+    } else {
+        None
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::config::fixture::{GOOD, PLANT, problems, refusal_in};
+
+    #[test]
+    fn an_inverted_op_range_is_refused_with_the_loop_tag() {
+        let bad = GOOD.replace("op_max = 100.0", "op_max = -5.0");
+        let err = refusal_in(&bad, "p.toml");
+        assert!(err.contains("TIC-101") && err.contains("op_min"), "{err}");
+        assert!(err.starts_with("p.toml:5:"), "{err}");
+    }
+
+    #[test]
+    fn a_spec_time_of_zero_is_refused() {
+        let bad = GOOD.replace("settle_within_s = 900", "settle_within_s = 0");
+        let err = refusal_in(&bad, "p.toml");
+        assert!(err.contains("settle_within_s"), "{err}");
+        assert!(err.starts_with("p.toml:7:"), "{err}");
+    }
+
+    #[test]
+    fn a_loop_with_pv_but_no_op_is_refused() {
+        let text = PLANT.replace(
+            "op = { topic = \"plant/feed/FIC-201/op\", format = \"number\" }\n",
+            "",
+        );
+        let err = problems(&text);
+        assert!(err.contains("loops.FIC-201.op:"), "{err}");
+        assert!(err.contains("sp, pv but none for op"), "{err}");
+        // Located at the loop, since the key itself is missing.
+        assert!(err.starts_with("plant.toml:24:"), "{err}");
+    }
+
+    #[test]
+    fn periods_must_be_positive_and_given_for_watched_loops() {
+        for p in ["0", "-1.0", "nan"] {
+            let text = PLANT.replace(
+                "expected_period_s = 0.5",
+                &format!("expected_period_s = {p}"),
+            );
+            let err = problems(&text);
+            assert!(
+                err.contains("loops.FIC-201.expected_period_s"),
+                "{p}: {err}"
+            );
+        }
+        let err = problems(&PLANT.replace("expected_period_s = 0.5\n", ""));
+        assert!(
+            err.contains("loops.FIC-201.expected_period_s") && err.contains("needs"),
+            "{err}"
+        );
+        let text = PLANT.replace(
+            "expected_period_s = 0.5",
+            "expected_period_s = 0.5\nstale_after_periods = 0.5",
+        );
+        let err = problems(&text);
+        assert!(err.contains("stale_after_periods"), "{err}");
+    }
+
+    #[test]
+    fn a_source_needs_a_topic_and_a_format() {
+        let err = problems(&PLANT.replace(
+            "{ topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
+            "{ format = \"number\" }",
+        ));
+        assert!(
+            err.contains("loops.FIC-201.sp:") && err.contains("topic"),
+            "{err}"
+        );
+        let err = problems(&PLANT.replace(
+            "{ topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
+            "{ topic = \"plant/feed/FIC-201/sp\" }",
+        ));
+        assert!(
+            err.contains("loops.FIC-201.sp:") && err.contains("format"),
+            "{err}"
+        );
+        let err = problems(&PLANT.replace("format = \"json\"", "format = \"xml\""));
+        assert!(
+            err.starts_with("plant.toml:20:") && err.contains("xml"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn keys_that_do_not_apply_to_a_source_are_refused() {
+        let err = problems(&PLANT.replace(
+            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
+            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\", value_field = \"v\" }",
+        ));
+        assert!(err.contains("loops.FIC-201.sp.value_field"), "{err}");
+        let err = problems(&PLANT.replace(
+            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
+            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\", \
+             auto_values = [\"AUTO\"] }",
+        ));
+        assert!(err.contains("loops.FIC-201.sp.auto_values"), "{err}");
+        let err = problems(&PLANT.replace("time_field = \"ts\"", "time_field = \"value\""));
+        assert!(err.contains("loops.TIC-101.pv.time_field"), "{err}");
+    }
+
+    #[test]
+    fn mqtt_sources_need_an_mqtt_section() {
+        let start = PLANT.find("[mqtt]").unwrap();
+        let end = PLANT.find("[loops.TIC-101]").unwrap();
+        let text = format!("{}{}", &PLANT[..start], &PLANT[end..]);
+        let err = problems(&text);
+        assert!(err.contains("[mqtt]"), "{err}");
+    }
+
+    #[test]
+    fn loop_tags_with_spaces_or_topic_characters_are_refused() {
+        let err = problems(
+            &GOOD
+                .replace("[loops.TIC-101]", "[loops.\"TIC 101\"]")
+                .replace("[loops.TIC-101.spec]", "[loops.\"TIC 101\".spec]"),
+        );
+        assert!(err.contains("loops.\"TIC 101\""), "{err}");
+        assert!(err.starts_with("plant.toml:2:"), "{err}");
+    }
+
+    #[test]
+    fn auto_values_match_words_ignoring_case_and_numbers_by_the_list() {
+        let words = AutoValues::new(&["Auto", "CAS"]);
+        assert!(words.is_auto_text("AUTO") && words.is_auto_text(" cas "));
+        assert!(!words.is_auto_text("MAN"));
+        // Only words listed: any non-zero number is automatic.
+        assert!(words.is_auto_number(2.0) && words.is_auto_text("1"));
+        assert!(!words.is_auto_number(0.0) && !words.is_auto_text("0"));
+        // Numbers listed: exactly those.
+        let enumeration = AutoValues::new(&["1", "2"]);
+        assert!(enumeration.is_auto_number(2.0) && enumeration.is_auto_text("1.0"));
+        assert!(!enumeration.is_auto_number(3.0));
+        assert_eq!(
+            words.describe(),
+            "Auto, CAS (any case) or any non-zero number"
+        );
+        assert_eq!(enumeration.describe(), "one of 1, 2");
+        let default = AutoValues::default();
+        assert!(default.is_auto_text("auto") && default.is_auto_text("True"));
+        assert!(default.is_auto_number(1.0) && !default.is_auto_text("manual"));
+    }
+}
