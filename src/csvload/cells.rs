@@ -455,6 +455,21 @@ mod tests {
     }
 
     #[test]
+    fn a_list_with_numbers_makes_only_those_numbers_automatic() {
+        // A controller enumeration: 0 manual, 1 auto, 2 cascade, 3 tracking.
+        let mut opts = with_mode("mode");
+        opts.auto_values = AutoValues::new(&["1", "2"]);
+        let text = "time,sp,pv,op,mode\n0,1,2,3,0\n1,1,2,3,1\n2,1,2,3,2\n3,1,2,3,3\n\
+                    4,1,2,3, 2.0 \n5,1,2,3,AUTO\n";
+        let l = load_csv(text.as_bytes(), &opts).unwrap();
+        let auto: Vec<bool> = (0..l.series.len()).map(|i| l.series.is_auto(i)).collect();
+        assert_eq!(auto, [false, true, true, false, true, false]);
+        let mode = l.report.mode.unwrap();
+        assert_eq!((mode.auto_rows, mode.manual_rows), (3, 3));
+        assert_eq!(mode.read_as_manual.get("3"), Some(&1));
+    }
+
+    #[test]
     fn a_blank_mode_drops_the_row_rather_than_carrying_the_last_mode_forward() {
         let text = "time,sp,pv,op,mode\n0,1,2,3,auto\n1,1,2,3,\n2,1,2,3,man\n3,1,2,3,auto\n";
         let l = load_csv(text.as_bytes(), &with_mode("mode")).unwrap();

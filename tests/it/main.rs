@@ -6,6 +6,7 @@ mod corpus;
 mod demo;
 mod example_data;
 mod helpers;
+mod mode_rule;
 mod reference_python;
 mod scenarios;
 
