@@ -44,10 +44,16 @@ impl Tally {
     }
 
     /// " (first at row N)", for the notes.
-    pub(super) fn at(&self) -> String {
+    fn at(&self) -> String {
         self.first_row
             .map(|r| format!(" (first at row {r})"))
             .unwrap_or_default()
+    }
+
+    /// The note on the rows this tally counts, or `None` when it counts none: `say` is given
+    /// how many, such as "2 rows" (with `noun` for row), and where the first one is.
+    fn note(&self, noun: &str, say: impl FnOnce(String, String) -> String) -> Option<String> {
+        (self.rows > 0).then(|| say(plural(self.rows, noun), self.at()))
     }
 }
 
@@ -177,7 +183,8 @@ pub struct LoadReport {
     /// How the mode column was read; `None` without a mode column.
     pub mode: Option<ModeSummary>,
     /// Sample intervals of the series; always present in a successful load (which has at least
-    /// [`MIN_ROWS`] rows), `None` only in a [`CsvError::TooFewRows`] report with under two rows.
+    /// [`MIN_ROWS`](super::MIN_ROWS) rows), `None` only in a
+    /// [`CsvError::TooFewRows`](super::CsvError::TooFewRows) report with under two rows.
     pub sample_interval_s: Option<IntervalStats>,
 }
 
@@ -219,6 +226,17 @@ impl LoadReport {
     /// with time in seconds and regular sampling gives no lines.
     pub fn notes(&self) -> Vec<String> {
         let mut notes = Vec::new();
+        self.file_notes(&mut notes);
+        self.row_shape_notes(&mut notes);
+        self.dropped_notes(&mut notes);
+        self.order_notes(&mut notes);
+        notes.extend(self.mode_note());
+        notes.extend(self.sampling_note());
+        notes
+    }
+
+    /// How the file is laid out: lines before the header, byte-order mark, delimiter, time.
+    fn file_notes(&self, notes: &mut Vec<String>) {
         if self.header_row > 1 {
             notes.push(format!(
                 "skipped {} before the header on row {}",
@@ -241,43 +259,37 @@ impl LoadReport {
                  earliest, {origin}"
             ));
         }
-        let t = &self.empty_rows;
-        if t.rows > 0 {
-            notes.push(format!("skipped {}{}", plural(t.rows, "empty row"), t.at()));
-        }
-        let t = &self.repeated_headers;
-        if t.rows > 0 {
-            notes.push(format!(
-                "skipped {} repeating the header{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
-        let t = &self.short_rows;
-        if t.rows > 0 {
-            notes.push(format!(
-                "{} had fewer cells than the header; the missing cells were read as blank{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
-        let t = &self.trailing_empty_cells;
-        if t.rows > 0 {
-            notes.push(format!(
-                "{} had empty cells beyond the header's last column; those cells were ignored{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
+    }
+
+    /// Rows skipped or read differently for their shape, and rows dropped for extra values.
+    fn row_shape_notes(&self, notes: &mut Vec<String>) {
+        let shapes = [
+            self.empty_rows
+                .note("empty row", |n, at| format!("skipped {n}{at}")),
+            self.repeated_headers.note("row", |n, at| {
+                format!("skipped {n} repeating the header{at}")
+            }),
+            self.short_rows.note("row", |n, at| {
+                format!(
+                    "{n} had fewer cells than the header; the missing cells were read as blank{at}"
+                )
+            }),
+            self.trailing_empty_cells.note("row", |n, at| {
+                format!(
+                    "{n} had empty cells beyond the header's last column; those cells were \
+                     ignored{at}"
+                )
+            }),
+            self.dropped.too_many_cells.note("row", |n, at| {
+                format!("dropped {n} with more values than the header has columns{at}")
+            }),
+        ];
+        notes.extend(shapes.into_iter().flatten());
+    }
+
+    /// Rows dropped for an unusable value, per column and reason, and their total.
+    fn dropped_notes(&self, notes: &mut Vec<String>) {
         let d = &self.dropped;
-        let t = &d.too_many_cells;
-        if t.rows > 0 {
-            notes.push(format!(
-                "dropped {} with more values than the header has columns{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
         let columns = [
             ("sp", &self.columns.sp, &d.sp),
             ("pv", &self.columns.pv, &d.pv),
@@ -291,29 +303,20 @@ impl LoadReport {
                 (&drops.not_finite, "is not finite (NaN or infinite)"),
             ];
             for (t, what) in kinds {
-                if t.rows > 0 {
+                notes.extend(t.note("row", |n, at| {
                     let example = t
                         .example
                         .as_ref()
                         .map(|e| format!(", such as {e:?}"))
                         .unwrap_or_default();
-                    notes.push(format!(
-                        "dropped {} where {label} {what}{example}{}",
-                        plural(t.rows, "row"),
-                        t.at()
-                    ));
-                }
+                    format!("dropped {n} where {label} {what}{example}{at}")
+                }));
             }
         }
-        let t = &d.mode_blank;
-        if t.rows > 0 {
-            let label = column_label("mode", self.columns.mode.as_deref().unwrap_or("mode"));
-            notes.push(format!(
-                "dropped {} where {label} is blank, rather than guess the mode{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
+        let label = column_label("mode", self.columns.mode.as_deref().unwrap_or("mode"));
+        notes.extend(d.mode_blank.note("row", |n, at| {
+            format!("dropped {n} where {label} is blank, rather than guess the mode{at}")
+        }));
         let kinds =
             d.too_many_cells.rows + d.sp.cells() + d.pv.cells() + d.op.cells() + d.mode_blank.rows;
         if kinds > d.total {
@@ -322,57 +325,52 @@ impl LoadReport {
                 plural(d.total, "row")
             ));
         }
-        let t = &self.out_of_order;
-        if t.rows > 0 {
-            notes.push(format!(
-                "{} out of time order{}; sorted all rows by time",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
-        let t = &self.exact_duplicates;
-        if t.rows > 0 {
-            notes.push(format!(
-                "removed {} repeating another row's time and values exactly{}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
-        let t = &self.conflicting_duplicates;
-        if t.rows > 0 {
-            notes.push(format!(
-                "removed {} whose time appears again later in the file with different values \
-                 (conflicting duplicates, kept the last){}",
-                plural(t.rows, "row"),
-                t.at()
-            ));
-        }
-        if let Some(mode) = &self.mode
-            && mode.manual_rows > 0
-        {
-            let texts: Vec<String> = mode
-                .read_as_manual
-                .iter()
-                .map(|(text, n)| format!("{text:?} ×{n}"))
-                .collect();
-            notes.push(format!(
-                "mode: {} automatic, {} manual; read as manual: {}",
-                plural(mode.auto_rows, "row"),
-                mode.manual_rows,
-                texts.join(", ")
-            ));
-        }
-        if let Some(iv) = &self.sample_interval_s
-            && iv.is_irregular()
-        {
-            notes.push(format!(
-                "sampling is irregular: interval min {} s, median {} s, max {} s",
-                round_sig(iv.min),
-                round_sig(iv.median),
-                round_sig(iv.max)
-            ));
-        }
-        notes
+    }
+
+    /// Rows out of time order, and rows removed for repeating a time.
+    fn order_notes(&self, notes: &mut Vec<String>) {
+        let order = [
+            self.out_of_order.note("row", |n, at| {
+                format!("{n} out of time order{at}; sorted all rows by time")
+            }),
+            self.exact_duplicates.note("row", |n, at| {
+                format!("removed {n} repeating another row's time and values exactly{at}")
+            }),
+            self.conflicting_duplicates.note("row", |n, at| {
+                format!(
+                    "removed {n} whose time appears again later in the file with different \
+                     values (conflicting duplicates, kept the last){at}"
+                )
+            }),
+        ];
+        notes.extend(order.into_iter().flatten());
+    }
+
+    /// How the mode column was read, when any kept row was read as manual.
+    fn mode_note(&self) -> Option<String> {
+        let mode = self.mode.as_ref().filter(|m| m.manual_rows > 0)?;
+        let texts: Vec<String> = mode
+            .read_as_manual
+            .iter()
+            .map(|(text, n)| format!("{text:?} ×{n}"))
+            .collect();
+        Some(format!(
+            "mode: {} automatic, {} manual; read as manual: {}",
+            plural(mode.auto_rows, "row"),
+            mode.manual_rows,
+            texts.join(", ")
+        ))
+    }
+
+    /// The sample intervals, when they are irregular.
+    fn sampling_note(&self) -> Option<String> {
+        let iv = self.sample_interval_s.filter(IntervalStats::is_irregular)?;
+        Some(format!(
+            "sampling is irregular: interval min {} s, median {} s, max {} s",
+            round_sig(iv.min),
+            round_sig(iv.median),
+            round_sig(iv.max)
+        ))
     }
 }
 

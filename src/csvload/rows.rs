@@ -57,21 +57,33 @@ impl Loader {
 
     /// Handles one data row: skips, drops or keeps it, counting what it did.
     pub(super) fn take<C: Cells + ?Sized>(&mut self, record: &C, row: u64) -> Result<(), CsvError> {
-        let Loader {
-            layout,
-            auto_values,
-            report,
-            time_kind,
-            manual_texts,
-            kept,
-        } = self;
-        report.data_rows += 1;
-
-        if record.cells().all(is_blank) {
-            report.empty_rows.add(row);
+        self.report.data_rows += 1;
+        if !self.fits(record, row) {
             return Ok(());
         }
-        let width = layout.names.len();
+        let Some(time) = self.time_of(record, row)? else {
+            return Ok(());
+        };
+        // Every value and the mode are read before deciding, so each unusable one is counted.
+        let values = self.values_of(record, row)?;
+        let mode = self.mode_of(record, row)?;
+        match (values, mode) {
+            (Some(values), Some(mode)) => self.kept.push(row, time, values, mode),
+            _ => self.report.dropped.total += 1,
+        }
+        Ok(())
+    }
+
+    /// Whether the row's shape lets it be read. An all-blank row is skipped and a row with
+    /// values beyond the header's columns dropped; a short row, or one with only blank cells
+    /// beyond the header, is read and counted.
+    fn fits<C: Cells + ?Sized>(&mut self, record: &C, row: u64) -> bool {
+        let report = &mut self.report;
+        if record.cells().all(is_blank) {
+            report.empty_rows.add(row);
+            return false;
+        }
+        let width = self.layout.names.len();
         let len = record.cell_count();
         if len < width {
             report.short_rows.add(row);
@@ -81,41 +93,57 @@ impl Loader {
             } else {
                 report.dropped.too_many_cells.add(row);
                 report.dropped.total += 1;
-                return Ok(());
+                return false;
             }
         }
+        true
+    }
 
+    /// The row's time, or `None` for a row that repeats the header (counted); fixes the file's
+    /// time format at the first time.
+    fn time_of<C: Cells + ?Sized>(
+        &mut self,
+        record: &C,
+        row: u64,
+    ) -> Result<Option<TimeValue>, CsvError> {
+        let layout = &self.layout;
         // A plain decimal is a number of seconds, which fits any file but one whose time format
         // is already fixed as RFC 3339; everything else takes the general route.
-        let seconds = match time_kind {
+        let seconds = match self.time_kind {
             Some((TimeFormat::Rfc3339, _)) => None,
             _ => record.plain_number_at(layout.time),
         };
-        let time = match seconds {
-            Some(s) => {
-                time_kind.get_or_insert((TimeFormat::Seconds, row));
-                TimeValue::Seconds(s)
+        if let Some(s) = seconds {
+            self.time_kind.get_or_insert((TimeFormat::Seconds, row));
+            return Ok(Some(TimeValue::Seconds(s)));
+        }
+        let text = layout.cell(record, layout.time, row)?;
+        match read_time(text, &mut self.time_kind, row, &layout.names[layout.time]) {
+            Ok(time) => Ok(Some(time)),
+            // Checked only here, where the time failed, to keep the common path cheap.
+            Err(_) if layout.is_header_again(record) => {
+                self.report.repeated_headers.add(row);
+                Ok(None)
             }
-            None => {
-                let text = layout.cell(record, layout.time, row)?;
-                match read_time(text, time_kind, row, &layout.names[layout.time]) {
-                    Ok(time) => time,
-                    // Checked only here, where the time failed, to keep the common path cheap.
-                    Err(_) if layout.is_header_again(record) => {
-                        report.repeated_headers.add(row);
-                        return Ok(());
-                    }
-                    Err(e) => return Err(e),
-                }
-            }
-        };
+            Err(e) => Err(e),
+        }
+    }
 
+    /// The row's SP, PV and OP, or `None` when any of them is unusable; each unusable one is
+    /// counted by column and reason.
+    fn values_of<C: Cells + ?Sized>(
+        &mut self,
+        record: &C,
+        row: u64,
+    ) -> Result<Option<[f64; 3]>, CsvError> {
+        let layout = &self.layout;
+        let dropped = &mut self.report.dropped;
         let mut usable = true;
         let mut values = [0.0; 3];
         let columns = [
-            (layout.sp, &mut report.dropped.sp),
-            (layout.pv, &mut report.dropped.pv),
-            (layout.op, &mut report.dropped.op),
+            (layout.sp, &mut dropped.sp),
+            (layout.pv, &mut dropped.pv),
+            (layout.op, &mut dropped.op),
         ];
         for (value, (col, drops)) in values.iter_mut().zip(columns) {
             if let Some(v) = record.plain_number_at(col) {
@@ -135,27 +163,26 @@ impl Loader {
                 }
             }
         }
+        Ok(usable.then_some(values))
+    }
 
-        let mode = match layout.mode {
-            None => None,
-            Some(col) => {
-                let text = layout.cell(record, col, row)?;
-                if text.is_empty() {
-                    report.dropped.mode_blank.add(row);
-                    usable = false;
-                    None
-                } else {
-                    Some(read_mode(text, auto_values, manual_texts))
-                }
-            }
+    /// The row's mode: `Some(None)` without a mode column, `None` when the cell is blank
+    /// (counted), since carrying the last mode forward would be a guess.
+    fn mode_of<C: Cells + ?Sized>(
+        &mut self,
+        record: &C,
+        row: u64,
+    ) -> Result<Option<Option<ModeCell>>, CsvError> {
+        let Some(col) = self.layout.mode else {
+            return Ok(Some(None));
         };
-
-        if !usable {
-            report.dropped.total += 1;
-            return Ok(());
+        let text = self.layout.cell(record, col, row)?;
+        if text.is_empty() {
+            self.report.dropped.mode_blank.add(row);
+            return Ok(None);
         }
-        kept.push(row, time, values, mode);
-        Ok(())
+        let mode = read_mode(text, &self.auto_values, &mut self.manual_texts);
+        Ok(Some(Some(mode)))
     }
 
     /// Orders the rows kept by time, resolves repeated times and builds the series.
@@ -168,24 +195,9 @@ impl Loader {
             ..
         } = self;
         let kept = kept.in_time_order(&mut report);
-
         if layout.mode.is_some() {
-            let mut summary = ModeSummary::default();
-            for mode in &kept.mode {
-                match *mode {
-                    ModeCell::Auto => summary.auto_rows += 1,
-                    ModeCell::Manual(text) => {
-                        summary.manual_rows += 1;
-                        let key = text
-                            .and_then(|i| manual_texts.get(i))
-                            .map_or(OTHER_MANUAL_TEXTS, String::as_str);
-                        *summary.read_as_manual.entry(key.to_owned()).or_default() += 1;
-                    }
-                }
-            }
-            report.mode = Some(summary);
+            report.mode = Some(mode_summary(&kept.mode, &manual_texts));
         }
-
         let Kept {
             row: rows,
             time,
@@ -194,33 +206,10 @@ impl Loader {
             op,
             mode,
         } = kept;
-        let time_s: Vec<f64> = match time {
-            Times::Seconds(seconds) => seconds,
-            Times::Any(times) => {
-                let origin = match times.first() {
-                    Some(TimeValue::Instant(ts)) => Some(*ts),
-                    _ => None,
-                };
-                report.time_origin = origin;
-                times
-                    .iter()
-                    .map(|t| match *t {
-                        TimeValue::Seconds(s) => s,
-                        TimeValue::Instant(ts) => seconds_since(origin.unwrap_or(ts), ts),
-                    })
-                    .collect()
-            }
-        };
-        // Two distinct timestamps nanoseconds apart can round to the same f64 far from the origin.
-        if let Some(i) = time_s.windows(2).position(|w| w[1] <= w[0]) {
-            return Err(CsvError::TimesTooClose {
-                first: rows[i].min(rows[i + 1]),
-                second: rows[i].max(rows[i + 1]),
-            });
-        }
+        let time_s = time.into_seconds(&mut report.time_origin);
+        check_times_apart(&time_s, &rows)?;
         report.rows_kept = time_s.len();
         report.sample_interval_s = IntervalStats::of(&time_s);
-
         if time_s.len() < MIN_ROWS {
             return Err(CsvError::TooFewRows {
                 usable: time_s.len(),
@@ -228,12 +217,42 @@ impl Loader {
                 report: Box::new(report),
             });
         }
-
         let auto = layout
             .mode
             .map(|_| mode.iter().map(|m| *m == ModeCell::Auto).collect());
         let series = Series::new(time_s, sp, pv, op, auto)?;
         Ok(Loaded { series, report })
+    }
+}
+
+/// How the mode column was read over the rows kept, with `manual_texts` the distinct texts
+/// read as manual that the modes point into.
+fn mode_summary(modes: &[ModeCell], manual_texts: &[String]) -> ModeSummary {
+    let mut summary = ModeSummary::default();
+    for mode in modes {
+        match *mode {
+            ModeCell::Auto => summary.auto_rows += 1,
+            ModeCell::Manual(text) => {
+                summary.manual_rows += 1;
+                let key = text
+                    .and_then(|i| manual_texts.get(i))
+                    .map_or(OTHER_MANUAL_TEXTS, String::as_str);
+                *summary.read_as_manual.entry(key.to_owned()).or_default() += 1;
+            }
+        }
+    }
+    summary
+}
+
+/// Refuses two distinct timestamps that came out as the same seconds: nanoseconds apart, they
+/// can round to the same f64 far from the origin.
+fn check_times_apart(time_s: &[f64], rows: &[u64]) -> Result<(), CsvError> {
+    match time_s.windows(2).position(|w| w[1] <= w[0]) {
+        Some(i) => Err(CsvError::TimesTooClose {
+            first: rows[i].min(rows[i + 1]),
+            second: rows[i].max(rows[i + 1]),
+        }),
+        None => Ok(()),
     }
 }
 
@@ -279,7 +298,29 @@ impl Times {
         }
     }
 
-    pub(super) fn select(&self, order: &[usize]) -> Times {
+    /// The series' time column. RFC 3339 times become seconds since the earliest, which is put
+    /// in `origin`; seconds are kept as they are.
+    fn into_seconds(self, origin: &mut Option<jiff::Timestamp>) -> Vec<f64> {
+        match self {
+            Times::Seconds(seconds) => seconds,
+            Times::Any(times) => {
+                let first = match times.first() {
+                    Some(TimeValue::Instant(ts)) => Some(*ts),
+                    _ => None,
+                };
+                *origin = first;
+                times
+                    .iter()
+                    .map(|t| match *t {
+                        TimeValue::Seconds(s) => s,
+                        TimeValue::Instant(ts) => seconds_since(first.unwrap_or(ts), ts),
+                    })
+                    .collect()
+            }
+        }
+    }
+
+    fn select(&self, order: &[usize]) -> Times {
         match self {
             Times::Seconds(s) => Times::Seconds(select(s, order)),
             Times::Any(t) => Times::Any(select(t, order)),
