@@ -107,7 +107,7 @@ pub(super) fn seconds_since(origin: jiff::Timestamp, ts: jiff::Timestamp) -> f64
 }
 
 /// Powers of ten that are exact in an f64.
-pub(super) const EXACT_POWERS_OF_TEN: [f64; 23] = [
+const EXACT_POWERS_OF_TEN: [f64; 23] = [
     1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16,
     1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
 ];
@@ -163,7 +163,7 @@ pub(super) fn decimal_prefix(bytes: &[u8]) -> (Option<f64>, usize) {
 }
 
 /// A finite number, with -0 made +0 so that equal times compare equal when sorted.
-pub(super) fn finite_number(text: &str) -> Option<Result<f64, ()>> {
+fn finite_number(text: &str) -> Option<Result<f64, ()>> {
     if let Some(v) = plain_decimal(text.as_bytes()) {
         return Some(Ok(v));
     }
@@ -211,13 +211,13 @@ pub(super) fn read_time(
     }
 }
 
-pub(super) enum TimeProblem {
+enum TimeProblem {
     Blank,
     NoOffset,
     Unreadable,
 }
 
-pub(super) fn parse_time(text: &str) -> Result<(TimeValue, TimeFormat), TimeProblem> {
+fn parse_time(text: &str) -> Result<(TimeValue, TimeFormat), TimeProblem> {
     if text.is_empty() {
         return Err(TimeProblem::Blank);
     }

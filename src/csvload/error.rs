@@ -112,17 +112,17 @@ pub enum CsvError {
     Series(#[from] SeriesError),
 }
 
-pub(super) fn quoted_list(names: &[String]) -> String {
+fn quoted_list(names: &[String]) -> String {
     let quoted: Vec<String> = names.iter().map(|n| format!("{n:?}")).collect();
     quoted.join(", ")
 }
 
-pub(super) fn number_list(numbers: &[usize]) -> String {
+fn number_list(numbers: &[usize]) -> String {
     let s: Vec<String> = numbers.iter().map(usize::to_string).collect();
     s.join(", ")
 }
 
-pub(super) fn utf8_hint(not_utf8: &bool) -> &'static str {
+fn utf8_hint(not_utf8: &bool) -> &'static str {
     if *not_utf8 {
         " (the header is not valid UTF-8; save the export with UTF-8 encoding)"
     } else {
@@ -130,7 +130,7 @@ pub(super) fn utf8_hint(not_utf8: &bool) -> &'static str {
     }
 }
 
-pub(super) fn reasons(report: &LoadReport) -> String {
+fn reasons(report: &LoadReport) -> String {
     let notes = report.notes();
     if notes.is_empty() {
         String::new()

@@ -14,7 +14,7 @@ pub(super) fn rows_hint(bytes: &[u8]) -> usize {
 }
 
 /// How many times `byte` occurs in `bytes`.
-pub(super) fn count_byte(bytes: &[u8], byte: u8) -> usize {
+fn count_byte(bytes: &[u8], byte: u8) -> usize {
     // Counted in blocks small enough for a byte-wide count, which the compiler vectorises well.
     let in_block = |block: &[u8]| block.iter().map(|&b| u8::from(b == byte)).sum::<u8>();
     bytes
@@ -56,7 +56,7 @@ impl Text {
 
 /// How many lines end in `bytes[from..to]`; lines end at "\n", "\r\n" or a lone "\r". A "\r" at
 /// `to - 1` is looked at together with the byte after it.
-pub(super) fn count_line_breaks(bytes: &[u8], from: usize, to: usize) -> u64 {
+fn count_line_breaks(bytes: &[u8], from: usize, to: usize) -> u64 {
     let to = to.min(bytes.len());
     let from = from.min(to);
     let span = &bytes[from..to];
@@ -186,7 +186,7 @@ pub(super) struct LineCounter<'a> {
 
 impl LineCounter<'_> {
     /// The 1-based line holding byte `offset`.
-    pub(super) fn row_at(&mut self, offset: usize) -> u64 {
+    fn row_at(&mut self, offset: usize) -> u64 {
         if offset < self.at {
             self.at = 0;
             self.breaks = 0;

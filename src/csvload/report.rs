@@ -35,7 +35,7 @@ impl Tally {
         self.add_inner(row, Some(text));
     }
 
-    pub(super) fn add_inner(&mut self, row: u64, text: Option<&str>) {
+    fn add_inner(&mut self, row: u64, text: Option<&str>) {
         self.rows += 1;
         if self.first_row.is_none_or(|first| row < first) {
             self.first_row = Some(row);
@@ -188,7 +188,7 @@ pub struct LoadReport {
     pub sample_interval_s: Option<IntervalStats>,
 }
 
-pub(super) fn serialize_origin<S: serde::Serializer>(
+fn serialize_origin<S: serde::Serializer>(
     origin: &Option<jiff::Timestamp>,
     s: S,
 ) -> Result<S::Ok, S::Error> {
@@ -375,7 +375,7 @@ impl LoadReport {
 }
 
 /// "pv", or `pv ("TIC-101.PV")` when the header calls it something else.
-pub(super) fn column_label(role: &str, name: &str) -> String {
+fn column_label(role: &str, name: &str) -> String {
     if name.eq_ignore_ascii_case(role) {
         role.to_owned()
     } else {
@@ -384,7 +384,7 @@ pub(super) fn column_label(role: &str, name: &str) -> String {
 }
 
 /// Six significant digits, so notes do not show binary rounding noise.
-pub(super) fn round_sig(v: f64) -> f64 {
+fn round_sig(v: f64) -> f64 {
     if v == 0.0 || !v.is_finite() {
         return v;
     }

@@ -23,15 +23,15 @@ pub(super) struct Start {
 
 /// Applies the module's policy to one data row at a time, then orders and checks the rows kept.
 pub(super) struct Loader {
-    pub(super) layout: Layout,
+    layout: Layout,
     /// Which mode values mean automatic.
-    pub(super) auto_values: AutoValues,
-    pub(super) report: LoadReport,
+    auto_values: AutoValues,
+    report: LoadReport,
     /// The file's time format and the row that fixed it.
-    pub(super) time_kind: Option<(TimeFormat, u64)>,
+    time_kind: Option<(TimeFormat, u64)>,
     /// Distinct texts read as manual, in the order first met.
-    pub(super) manual_texts: Vec<String>,
-    pub(super) kept: Kept,
+    manual_texts: Vec<String>,
+    kept: Kept,
 }
 
 impl Loader {
@@ -257,26 +257,26 @@ fn check_times_apart(time_s: &[f64], rows: &[u64]) -> Result<(), CsvError> {
 }
 
 /// The rows kept so far, column by column, with what is needed to put them in time order.
-pub(super) struct Kept {
+struct Kept {
     /// Row (line in the file) of each kept row.
-    pub(super) row: Vec<u64>,
-    pub(super) time: Times,
-    pub(super) sp: Vec<f64>,
-    pub(super) pv: Vec<f64>,
-    pub(super) op: Vec<f64>,
+    row: Vec<u64>,
+    time: Times,
+    sp: Vec<f64>,
+    pv: Vec<f64>,
+    op: Vec<f64>,
     /// Empty without a mode column; otherwise one per kept row.
-    pub(super) mode: Vec<ModeCell>,
+    mode: Vec<ModeCell>,
 }
 
 /// The kept rows' times. Seconds are stored as they are, to become the series' time column
 /// directly; RFC 3339 times are held as read until the origin is known.
-pub(super) enum Times {
+enum Times {
     Seconds(Vec<f64>),
     Any(Vec<TimeValue>),
 }
 
 impl Times {
-    pub(super) fn at(&self, i: usize) -> TimeValue {
+    fn at(&self, i: usize) -> TimeValue {
         match self {
             Times::Seconds(s) => TimeValue::Seconds(s[i]),
             Times::Any(t) => t[i],
@@ -285,7 +285,7 @@ impl Times {
 
     /// Adds a time. A file has one time format (another is an error), so the first RFC 3339
     /// time is the only one that can find seconds here and switch the column over.
-    pub(super) fn push(&mut self, time: TimeValue) {
+    fn push(&mut self, time: TimeValue) {
         match (&mut *self, time) {
             (Times::Seconds(s), TimeValue::Seconds(v)) => s.push(v),
             (Times::Any(t), time) => t.push(time),
@@ -329,7 +329,7 @@ impl Times {
 }
 
 /// The elements of `values` at `order`, in that order (positions past the end are skipped).
-pub(super) fn select<T: Copy>(values: &[T], order: &[usize]) -> Vec<T> {
+fn select<T: Copy>(values: &[T], order: &[usize]) -> Vec<T> {
     order
         .iter()
         .filter_map(|&i| values.get(i).copied())
@@ -337,7 +337,7 @@ pub(super) fn select<T: Copy>(values: &[T], order: &[usize]) -> Vec<T> {
 }
 
 impl Kept {
-    pub(super) fn with_capacity(n: usize, has_mode: bool) -> Kept {
+    fn with_capacity(n: usize, has_mode: bool) -> Kept {
         Kept {
             row: Vec::with_capacity(n),
             time: Times::Seconds(Vec::with_capacity(n)),
@@ -352,7 +352,7 @@ impl Kept {
         }
     }
 
-    pub(super) fn push(
+    fn push(
         &mut self,
         row: u64,
         time: TimeValue,
@@ -370,7 +370,7 @@ impl Kept {
     }
 
     /// Whether rows `a` and `b` carry the same values (their times being equal).
-    pub(super) fn same_values(&self, a: usize, b: usize) -> bool {
+    fn same_values(&self, a: usize, b: usize) -> bool {
         let auto = |i: usize| self.mode.get(i).map(|m| *m == ModeCell::Auto);
         self.sp[a] == self.sp[b]
             && self.pv[a] == self.pv[b]
@@ -381,7 +381,7 @@ impl Kept {
     /// The rows sorted stably by time, so rows sharing a time stay in file order, with only the
     /// last row of each run of equal times kept (the last in the file). The others count as
     /// exact duplicates when their values match it, conflicting when not.
-    pub(super) fn in_time_order(self, report: &mut LoadReport) -> Kept {
+    fn in_time_order(self, report: &mut LoadReport) -> Kept {
         let increasing = match &self.time {
             Times::Seconds(s) => {
                 count_out_of_order(s, f64::total_cmp, &self.row, &mut report.out_of_order)
@@ -428,7 +428,7 @@ impl Kept {
 /// Counts in `tally` the rows with a time earlier than the latest time above them in the file,
 /// and tells whether every time is later than the one before it (then the rows are in order
 /// already and no time repeats).
-pub(super) fn count_out_of_order<T>(
+fn count_out_of_order<T>(
     times: &[T],
     cmp: impl Fn(&T, &T) -> Ordering,
     rows: &[u64],
