@@ -352,13 +352,7 @@ impl Kept {
         }
     }
 
-    fn push(
-        &mut self,
-        row: u64,
-        time: TimeValue,
-        [sp, pv, op]: [f64; 3],
-        mode: Option<ModeCell>,
-    ) {
+    fn push(&mut self, row: u64, time: TimeValue, [sp, pv, op]: [f64; 3], mode: Option<ModeCell>) {
         self.row.push(row);
         self.time.push(time);
         self.sp.push(sp);
