@@ -26,41 +26,22 @@ const T0_S: i64 = 1_764_000_000;
 const PERIOD_S: i64 = 1;
 const SAMPLES: i64 = 1_200;
 
-const CONFIG: &str = r#"
-[mqtt]
-url = "mqtt://localhost:1883"
-client_id = "mode-rule"
-alert_topic = "plant/alerts"
-
-[loops.TIC-101]
-op_min = 0.0
-op_max = 100.0
-expected_period_s = 1.0
-
-[loops.TIC-101.spec]
-settle_within_s = 60
-
-[loops.TIC-101.sp]
-topic = "plant/TIC-101/sp"
-format = "json"
-time_field = "time"
-
-[loops.TIC-101.pv]
-topic = "plant/TIC-101/pv"
-format = "json"
-time_field = "time"
-
-[loops.TIC-101.op]
-topic = "plant/TIC-101/op"
-format = "json"
-time_field = "time"
-
-[loops.TIC-101.mode]
-topic = "plant/TIC-101/mode"
-format = "json"
-time_field = "time"
-auto_values = ["1", "2", "Cas"]
-"#;
+/// The config: one loop whose four signals arrive as JSON with their own time, and whose
+/// mode's automatic values are the controller's auto and cascade numbers and the word Cas.
+fn config_text() -> String {
+    let mut text = format!(
+        "[mqtt]\nurl = \"mqtt://localhost:1883\"\nclient_id = \"mode-rule\"\n\
+         alert_topic = \"plant/alerts\"\n\n[loops.{TAG}]\nexpected_period_s = 1.0\n\
+         op_min = 0.0\nop_max = 100.0\n[loops.{TAG}.spec]\nsettle_within_s = 60\n"
+    );
+    for signal in ["sp", "pv", "op", "mode"] {
+        text += &format!(
+            "[loops.{TAG}.{signal}]\ntopic = \"plant/{TAG}/{signal}\"\nformat = \"json\"\n\
+             time_field = \"time\"\n"
+        );
+    }
+    text + "auto_values = [\"1\", \"2\", \"Cas\"]\n"
+}
 
 /// The mode the controller reports from `from_s` (seconds after the first sample) on, as it
 /// writes it: a JSON value for the live payload and the same text for the CSV cell.
@@ -203,7 +184,7 @@ fn one_mode_signal_gives_the_same_windows_live_and_offline() {
     let dir = tempfile::tempdir().unwrap();
     let config_path = dir.path().join("headroom.toml");
     std::fs::File::create(&config_path)
-        .and_then(|mut f| f.write_all(CONFIG.as_bytes()))
+        .and_then(|mut f| f.write_all(config_text().as_bytes()))
         .unwrap();
     let config = Config::load(&config_path).expect("the config is valid");
     let ticks = ticks();
