@@ -74,7 +74,7 @@ impl Cells for [PlainCell<'_>] {
     }
 }
 
-/// Blank as [`Layout::cell`] would read it: nothing but whitespace.
+/// Blank as [`Layout::cell`](super::header::Layout::cell) would read it: nothing but whitespace.
 pub(super) fn is_blank(cell: &[u8]) -> bool {
     // A visible ASCII character is neither whitespace nor part of a multi-byte character, so
     // the usual first byte of a number settles it without decoding the cell.

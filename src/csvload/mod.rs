@@ -28,7 +28,7 @@
 //!   OP drops the row, counted per column and reason. Surrounding whitespace is fine.
 //! - **Mode** (optional column). Blank drops the row, because carrying the last mode forward would
 //!   be a guess. Whether a value means automatic is the product's one rule,
-//!   [`AutoValues`](crate::analysis::AutoValues) (the same as for a live mode signal); anything
+//!   [`AutoValues`] (the same as for a live mode signal); anything
 //!   else means manual, and the report lists the texts it read as manual.
 //! - **Order.** Rows are sorted stably by time, counting those that were out of order. Rows that
 //!   repeat a time with identical values are removed; rows that repeat a time with different

@@ -122,7 +122,7 @@ pub(super) struct PlainRecords<'a> {
 #[derive(Debug, Clone, Copy)]
 pub(super) struct PlainCell<'a> {
     pub(super) text: &'a [u8],
-    /// The cell's value if it is a plain decimal, as [`plain_decimal`] reads it.
+    /// The cell's value if it is a plain decimal, as [`plain_decimal`](super::cells::plain_decimal) reads it.
     pub(super) number: Option<f64>,
 }
 
