@@ -10,6 +10,7 @@ mod cli_flags;
 mod corpus;
 mod demo;
 mod example_data;
+mod mode_rule;
 mod reference_python;
 mod scenarios;
 

@@ -1,0 +1,173 @@
+//! Why a load stopped, and the wording helpers its messages and the notes share.
+
+use std::io;
+
+use thiserror::Error;
+
+use super::cells::TimeFormat;
+use super::report::LoadReport;
+use crate::analysis::SeriesError;
+
+/// Longest excerpt of a cell quoted back in an error or note; cells can be arbitrarily long.
+pub(super) const EXCERPT_CHARS: usize = 40;
+
+/// Why a file could not be loaded. Rows are line numbers in the file (the header is normally
+/// row 1); columns are named as in the header.
+#[derive(Debug, Error)]
+#[non_exhaustive]
+pub enum CsvError {
+    #[error("could not read the file at row {row}: {source}")]
+    Io {
+        row: u64,
+        #[source]
+        source: io::Error,
+    },
+    #[error("the file is empty: it needs a header row naming the columns, such as time,sp,pv,op")]
+    Empty,
+    #[error("row {row} could not be split into cells: {message}")]
+    Malformed { row: u64, message: String },
+    #[error(
+        "row {row}, column {column:?}: the text is not valid UTF-8; save the export with UTF-8 \
+         encoding (often offered as \"CSV UTF-8\")"
+    )]
+    InvalidUtf8 { row: u64, column: String },
+    #[error(
+        "the header on row {row} has no column named {wanted:?} for the {role}; its columns are: \
+         {}{}",
+        quoted_list(.found),
+        utf8_hint(.header_not_utf8)
+    )]
+    MissingColumn {
+        row: u64,
+        role: &'static str,
+        wanted: String,
+        /// The header's names, trimmed (invalid UTF-8 shown as U+FFFD).
+        found: Vec<String>,
+        header_not_utf8: bool,
+    },
+    #[error(
+        "the header on row {row} names {} columns {wanted:?} (columns {}), so the {role} is \
+         ambiguous; rename all but one",
+        .positions.len(),
+        number_list(.positions)
+    )]
+    AmbiguousColumn {
+        row: u64,
+        role: &'static str,
+        wanted: String,
+        /// 1-based positions of the matching columns.
+        positions: Vec<usize>,
+    },
+    #[error("row {row}, column {column:?}: the time is blank; every row needs a time")]
+    BlankTime { row: u64, column: String },
+    #[error(
+        "row {row}, column {column:?}: {value:?} is neither a finite number of seconds nor an \
+         RFC 3339 timestamp such as 2024-05-01T08:00:00Z"
+    )]
+    BadTime {
+        row: u64,
+        column: String,
+        value: String,
+    },
+    #[error(
+        "row {row}, column {column:?}: {value:?} has no UTC offset, so the instant it names is \
+         unknown; add Z (for UTC) or an offset such as +02:00"
+    )]
+    TimeWithoutOffset {
+        row: u64,
+        column: String,
+        value: String,
+    },
+    #[error(
+        "row {row}, column {column:?}: {value:?} is {found}, but the first time (row {first_row}) \
+         is {expected}; one file must use one time format"
+    )]
+    MixedTimeFormats {
+        row: u64,
+        column: String,
+        value: String,
+        first_row: u64,
+        expected: TimeFormat,
+        found: TimeFormat,
+    },
+    #[error(
+        "rows {first} and {second} have timestamps too close together to tell apart in seconds \
+         over a file this long; remove one of them"
+    )]
+    TimesTooClose { first: u64, second: u64 },
+    #[error(
+        "only {} out of {} (at least {needed} are needed){}",
+        plural(*.usable, "usable row"),
+        plural(.report.data_rows, "data row"),
+        reasons(.report)
+    )]
+    TooFewRows {
+        usable: usize,
+        needed: usize,
+        /// The full account of what happened to the other rows.
+        report: Box<LoadReport>,
+    },
+    /// Should not happen: the loader establishes the series' invariants itself.
+    #[error("the loaded columns were refused: {0}")]
+    Series(#[from] SeriesError),
+}
+
+fn quoted_list(names: &[String]) -> String {
+    let quoted: Vec<String> = names.iter().map(|n| format!("{n:?}")).collect();
+    quoted.join(", ")
+}
+
+fn number_list(numbers: &[usize]) -> String {
+    let s: Vec<String> = numbers.iter().map(usize::to_string).collect();
+    s.join(", ")
+}
+
+fn utf8_hint(not_utf8: &bool) -> &'static str {
+    if *not_utf8 {
+        " (the header is not valid UTF-8; save the export with UTF-8 encoding)"
+    } else {
+        ""
+    }
+}
+
+fn reasons(report: &LoadReport) -> String {
+    let notes = report.notes();
+    if notes.is_empty() {
+        String::new()
+    } else {
+        format!(": {}", notes.join("; "))
+    }
+}
+
+/// A cell's text shortened for quoting back to the user.
+pub(super) fn excerpt(text: &str) -> String {
+    if text.chars().count() <= EXCERPT_CHARS {
+        text.to_owned()
+    } else {
+        let mut s: String = text.chars().take(EXCERPT_CHARS).collect();
+        s.push('…');
+        s
+    }
+}
+
+pub(super) fn plural(n: usize, noun: &str) -> String {
+    if n == 1 {
+        format!("1 {noun}")
+    } else {
+        format!("{n} {noun}s")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::csvload::test_support::*;
+
+    #[test]
+    fn long_cells_are_shortened_when_quoted_back() {
+        let long = "x".repeat(500);
+        let err = load(&format!("time,sp,pv,op\n{long},1,2,3\n")).unwrap_err();
+        let msg = err.to_string();
+        assert!(msg.len() < 300, "{msg}");
+        assert!(msg.contains('…'));
+    }
+}
