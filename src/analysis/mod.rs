@@ -13,6 +13,7 @@ pub mod identify;
 pub mod live;
 pub mod metrics;
 pub mod mode;
+pub mod optimal;
 pub mod segment;
 mod series;
 pub mod setup;
