@@ -14,6 +14,7 @@ pub mod live;
 pub mod metrics;
 pub mod mode;
 pub mod optimal;
+pub mod quality;
 pub mod segment;
 mod series;
 pub mod setup;
