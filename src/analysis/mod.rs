@@ -8,6 +8,7 @@
 //! episode its verdict and the loop its recommendation ([`tuning`] supplies PI settings).
 
 pub mod assess;
+pub mod controller;
 pub mod feasibility;
 pub mod identify;
 pub mod live;
