@@ -173,7 +173,7 @@ pub fn write(
     // The form's own three numbers, with times in seconds and the gain in OP per PV.
     let (k, i, d) = match convention.form {
         Form::Ideal => (kc, has_i.then_some(ti), has_d.then_some(td)),
-        Form::Parallel => (kc, has_i.then(|| kc / ti), has_d.then(|| kc * td)),
+        Form::Parallel => (kc, has_i.then(|| kc / ti), has_d.then_some(kc * td)),
         Form::Series => {
             if !has_d {
                 (kc, has_i.then_some(ti), None)
