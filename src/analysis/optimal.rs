@@ -374,7 +374,16 @@ impl<'q> Sim<'q> {
         let mut prev_excess = excess(0.0);
         // Time of the last entry into the band.
         let mut entered: Option<f64> = None;
-        let mut run = |x: &mut [f64; 3], dur: f64, u: f64| {
+        // Where the hold leaves a plant that settles by itself; the watch ends once the state is
+        // so close to it that the output cannot leave the band any more.
+        let rest_state = solve(&p.a, &p.b.map(|b| -b * self.u_hold), p.n);
+        let scale_c = (0..p.n).map(|i| p.c[i].abs()).sum::<f64>().max(1e-300);
+        let near_rest = |x: &[f64; 3]| {
+            rest_state.is_some_and(|xs| {
+                (0..p.n).all(|i| (x[i] - xs[i]).abs() * scale_c <= 1e-3 * band.max(1e-300))
+            })
+        };
+        let mut run = |x: &mut [f64; 3], dur: f64, u: f64, until_rest: bool| {
             let full = (dur / self.dt).floor() as usize;
             let rest = dur - full as f64 * self.dt;
             let rest_step = (rest > 0.0).then(|| Step::of(p, rest));
@@ -393,13 +402,16 @@ impl<'q> Sim<'q> {
                     entered = Some(t - h * (-e) / (prev_excess - e));
                 }
                 prev_excess = e;
+                if until_rest && e <= 0.0 && near_rest(x) {
+                    break;
+                }
             }
         };
-        run(&mut x, t1, self.u_far);
-        run(&mut x, t2, self.u_near);
+        run(&mut x, t1, self.u_far, false);
+        run(&mut x, t2, self.u_near, false);
         // Hold: watch until the state can no longer leave the band.
         let watch = 12.0 * p.slowest_s.max(self.dt * 10.0) + 10.0 * self.dt;
-        run(&mut x, watch, self.u_hold);
+        run(&mut x, watch, self.u_hold, true);
         let Some(entry) = entered else {
             return if excess(p.output(&x)) <= 0.0 && prev_excess <= 0.0 && excess(0.0) <= 0.0 {
                 0.0
@@ -651,7 +663,7 @@ mod tests {
         } else {
             (q.u_lo, q.u_hi)
         };
-        let dt = t1_max / 3000.0;
+        let dt = t1_max / 2000.0;
         let band = q.band_fraction * q.delta.abs();
         let mut best = f64::INFINITY;
         for i in 0..=n1 {
@@ -660,7 +672,7 @@ mod tests {
                 let mut x = [0.0; 3];
                 let mut t = 0.0;
                 let mut last = 0.0;
-                let end = t1 + t2 + 15.0 * p.slowest_s.max(t1_max / 10.0);
+                let end = t1 + t2 + 10.0 * p.slowest_s.max(t1_max / 10.0);
                 while t < end {
                     let u = if t < t1 {
                         far
