@@ -16,6 +16,7 @@ pub mod metrics;
 pub mod mode;
 pub mod optimal;
 pub mod quality;
+pub mod regulation;
 pub mod segment;
 mod series;
 pub mod setup;
