@@ -8,11 +8,15 @@
 //! episode its verdict and the loop its recommendation ([`tuning`] supplies PI settings).
 
 pub mod assess;
+pub mod controller;
 pub mod feasibility;
 pub mod identify;
 pub mod live;
 pub mod metrics;
 pub mod mode;
+pub mod optimal;
+pub mod quality;
+pub mod regulation;
 pub mod segment;
 mod series;
 pub mod setup;

@@ -1,0 +1,905 @@
+//! The fastest settling an actuator allows, for any linear process model of up to three states,
+//! by search over bang–bang–hold input sequences.
+//!
+//! The process starts at rest (all deviation variables 0) and must bring its output into the band
+//! `Δ ± b·|Δ|` and keep it there, with its input (the OP, as a deviation from the operating
+//! point) inside `[u_lo, u_hi]`. By the bang–bang principle the fastest inputs sit at a limit,
+//! with at most n − 1 switches for a plant of order n with real poles (time-optimal control of
+//! linear systems; Athans & Falb, *Optimal Control*, 1966, ch. 7 — from memory); to stay in the
+//! band the input then holds the value that keeps the output at the target. The search therefore
+//! tries the sequences
+//!
+//! ```text
+//!   u = u_far  for t1,   then u = u_near for t2,   then u = u_hold for good
+//! ```
+//!
+//! (`u_far` the limit in the direction the change needs, `u_near` the opposite one), over a grid of
+//! (t1, t2) refined around the best cell, plus, for each t1, the t2 at which the output comes to
+//! rest under the hold (which is where the optimum of a plant with two integrators lies). The
+//! dead time only shifts the answer: the switching times of a delayed process are those of the
+//! undelayed one.
+//!
+//! For a first-order plant the result equals the closed form of the feasibility module,
+//! t* = θ + τ·ln(R / (R − (1 − b)|Δ|)); tests check that, the double integrator's rest-to-rest
+//! time 2·√(d/a), and every family against a brute-force scan.
+
+// Small dense matrices (n ≤ 4) read best with explicit indices.
+#![allow(clippy::needless_range_loop)]
+
+/// A linear process in deviation variables: ẋ = A·x + B·u(t − θ), y = C·x, with n ≤ 3 states.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Plant {
+    n: usize,
+    a: [[f64; 3]; 3],
+    b: [f64; 3],
+    c: [f64; 3],
+    /// Dead time θ (s).
+    pub dead_time_s: f64,
+    /// The slowest time scale of the plant (s), which sets how long a hold is watched.
+    slowest_s: f64,
+}
+
+impl Plant {
+    /// K·e^(−θs)/(τs + 1).
+    pub fn first_order(gain: f64, time_constant_s: f64, dead_time_s: f64) -> Plant {
+        let t = time_constant_s;
+        Plant {
+            n: 1,
+            a: [[-1.0 / t, 0.0, 0.0], [0.0; 3], [0.0; 3]],
+            b: [gain / t, 0.0, 0.0],
+            c: [1.0, 0.0, 0.0],
+            dead_time_s,
+            slowest_s: t,
+        }
+    }
+
+    /// K·e^(−θs)/((τ1·s + 1)(τ2·s + 1)), overdamped.
+    pub fn second_order(gain: f64, tau1_s: f64, tau2_s: f64, dead_time_s: f64) -> Plant {
+        // x1 = first lag's output, x2 = second lag's output = y.
+        Plant {
+            n: 2,
+            a: [
+                [-1.0 / tau1_s, 0.0, 0.0],
+                [1.0 / tau2_s, -1.0 / tau2_s, 0.0],
+                [0.0; 3],
+            ],
+            b: [gain / tau1_s, 0.0, 0.0],
+            c: [0.0, 1.0, 0.0],
+            dead_time_s,
+            slowest_s: tau1_s.max(tau2_s),
+        }
+    }
+
+    /// k·e^(−θs)/s, or k·e^(−θs)/(s·(τs + 1)) with a lag: the output rate per unit of input is
+    /// `gain_per_s` (PV units per second per OP unit).
+    pub fn integrating(gain_per_s: f64, lag_s: Option<f64>, dead_time_s: f64) -> Plant {
+        match lag_s {
+            None => Plant {
+                n: 1,
+                a: [[0.0; 3]; 3],
+                b: [gain_per_s, 0.0, 0.0],
+                c: [1.0, 0.0, 0.0],
+                dead_time_s,
+                slowest_s: 0.0,
+            },
+            Some(t) => Plant {
+                // x1 = lagged input, x2 = y.
+                n: 2,
+                a: [[-1.0 / t, 0.0, 0.0], [gain_per_s, 0.0, 0.0], [0.0; 3]],
+                b: [1.0 / t, 0.0, 0.0],
+                c: [0.0, 1.0, 0.0],
+                dead_time_s,
+                slowest_s: t,
+            },
+        }
+    }
+
+    /// ÿ = a·u: two integrators, a test plant with a published time-optimal solution.
+    pub fn double_integrator(accel_per_unit: f64) -> Plant {
+        Plant {
+            n: 2,
+            a: [[0.0; 3], [1.0, 0.0, 0.0], [0.0; 3]],
+            b: [accel_per_unit, 0.0, 0.0],
+            c: [0.0, 1.0, 0.0],
+            dead_time_s: 0.0,
+            slowest_s: 0.0,
+        }
+    }
+
+    /// The steady-state gain, `None` for a plant with an integrator.
+    pub fn static_gain(&self) -> Option<f64> {
+        // Solve A·x = −B; the gain is C·x.
+        let x = solve(&self.a, &self.b.map(|v| -v), self.n)?;
+        Some(dot(&self.c, &x, self.n))
+    }
+
+    fn output(&self, x: &[f64; 3]) -> f64 {
+        dot(&self.c, x, self.n)
+    }
+
+    /// The output's rate ẏ = C·(A·x + B·u).
+    fn output_rate(&self, x: &[f64; 3], u: f64) -> f64 {
+        let mut dx = [0.0; 3];
+        for (i, d) in dx.iter_mut().enumerate().take(self.n) {
+            *d = (0..self.n).map(|j| self.a[i][j] * x[j]).sum::<f64>() + self.b[i] * u;
+        }
+        dot(&self.c, &dx, self.n)
+    }
+}
+
+/// One question: how fast can the plant, at rest, settle on a change of `delta`?
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Question {
+    pub plant: Plant,
+    /// The change of the output (PV units, signed).
+    pub delta: f64,
+    /// Half-width of the band as a fraction of |Δ| (0.02 for 2 %).
+    pub band_fraction: f64,
+    /// Input limits as deviations from the operating point: `u_lo ≤ 0 ≤ u_hi`.
+    pub u_lo: f64,
+    pub u_hi: f64,
+}
+
+/// The input sequence behind a bound.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Sequence {
+    /// Time at the far limit, then at the near limit (s).
+    pub t1_s: f64,
+    pub t2_s: f64,
+    pub u_far: f64,
+    pub u_near: f64,
+    pub u_hold: f64,
+}
+
+/// The answer.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Fastest {
+    /// The band can be entered and kept from `t_star_s` after the change on (dead time
+    /// included), with this input sequence.
+    Settles { t_star_s: f64, sequence: Sequence },
+    /// No admissible input holds the output at the target: the hold value lies outside the
+    /// limits.
+    Unreachable,
+}
+
+/// The fastest settling for `q`, by search (see the module documentation).
+pub fn fastest(q: &Question) -> Fastest {
+    let Some(u_hold) = hold_input(q) else {
+        return Fastest::Unreachable;
+    };
+    if q.delta == 0.0 {
+        return settled_at(q, 0.0, 0.0, 0.0, u_hold);
+    }
+    let (u_far, u_near) = if needs_positive_input(q) {
+        (q.u_hi, q.u_lo)
+    } else {
+        (q.u_lo, q.u_hi)
+    };
+    let sim = Sim::new(q, u_far, u_near, u_hold);
+    let t_max = sim.search_span();
+    let mut best = (f64::INFINITY, 0.0, 0.0);
+    let consider = |t1: f64, t2: f64, best: &mut (f64, f64, f64)| {
+        let ts = sim.settling(t1, t2);
+        if ts < best.0 {
+            *best = (ts, t1, t2);
+        }
+    };
+    let no_counter = |_: f64| Some(0.0);
+    let rest = |t1: f64| sim.rest_switch(t1, 0.5 * t_max);
+    // Bang, then hold: a grid (enough for a plant that settles by itself on the hold), and the
+    // first bang long enough for the resting output to reach the band (what a plant with an
+    // integrator needs).
+    const N1: usize = 240;
+    for i in 0..=N1 {
+        consider(t_max * i as f64 / N1 as f64, 0.0, &mut best);
+    }
+    if let Some(t1) = sim.band_edge(t_max, no_counter) {
+        for k in 0..=20 {
+            consider(t1 * (1.0 + 0.002 * k as f64), 0.0, &mut best);
+        }
+    }
+    if q.plant.n > 1 {
+        // Bang, counter-bang, then hold: a grid, the counter-bang that brings the output to rest
+        // for each first bang, and the first bang whose resting output reaches the band.
+        const M1: usize = 60;
+        const M2: usize = 30;
+        for i in 0..=M1 {
+            let t1 = t_max * i as f64 / M1 as f64;
+            for j in 1..=M2 {
+                consider(t1, 0.5 * t_max * j as f64 / M2 as f64, &mut best);
+            }
+            if let Some(t2) = rest(t1) {
+                consider(t1, t2, &mut best);
+            }
+        }
+        if let Some(t1) = sim.band_edge(t_max, rest) {
+            for k in 0..=20 {
+                let t1 = t1 * (1.0 + 0.002 * k as f64);
+                if let Some(t2) = rest(t1) {
+                    consider(t1, t2, &mut best);
+                }
+            }
+        }
+    }
+    // Refine around the best found on finer local grids.
+    let mut step = t_max / N1 as f64;
+    for _ in 0..3 {
+        let (_, c1, c2) = best;
+        for i in -10..=10 {
+            let t1 = (c1 + step * i as f64 / 5.0).max(0.0);
+            if q.plant.n > 1 && c2 > 0.0 {
+                for j in -10..=10 {
+                    consider(t1, (c2 + step * j as f64 / 5.0).max(0.0), &mut best);
+                }
+                if let Some(t2) = rest(t1) {
+                    consider(t1, t2, &mut best);
+                }
+            } else {
+                consider(t1, 0.0, &mut best);
+            }
+        }
+        step /= 5.0;
+    }
+    let (ts, t1, t2) = best;
+    if !ts.is_finite() {
+        return Fastest::Unreachable;
+    }
+    Fastest::Settles {
+        t_star_s: q.plant.dead_time_s + ts,
+        sequence: Sequence {
+            t1_s: t1,
+            t2_s: t2,
+            u_far,
+            u_near,
+            u_hold,
+        },
+    }
+}
+
+fn settled_at(q: &Question, t: f64, t1: f64, t2: f64, u_hold: f64) -> Fastest {
+    Fastest::Settles {
+        t_star_s: q.plant.dead_time_s + t,
+        sequence: Sequence {
+            t1_s: t1,
+            t2_s: t2,
+            u_far: u_hold,
+            u_near: u_hold,
+            u_hold,
+        },
+    }
+}
+
+/// The input that holds the output at the target for good, if the limits allow it.
+fn hold_input(q: &Question) -> Option<f64> {
+    let u = match q.plant.static_gain() {
+        Some(k) if k != 0.0 => q.delta / k,
+        Some(_) => return None,
+        // A plant with an integrator rests at the operating point's input.
+        None => 0.0,
+    };
+    (q.u_lo <= u && u <= q.u_hi).then_some(u)
+}
+
+/// Whether the change needs the input above the operating point first.
+fn needs_positive_input(q: &Question) -> bool {
+    // The output's initial direction under a positive input is the sign of the first non-zero
+    // Markov parameter C·A^k·B.
+    let mut v = q.plant.b;
+    for _ in 0..q.plant.n {
+        let m = dot(&q.plant.c, &v, q.plant.n);
+        if m != 0.0 {
+            return (m > 0.0) == (q.delta > 0.0);
+        }
+        v = mat_vec(&q.plant.a, &v, q.plant.n);
+    }
+    q.delta > 0.0
+}
+
+/// Simulates candidate sequences exactly (zero-order hold between steps).
+struct Sim<'q> {
+    q: &'q Question,
+    u_far: f64,
+    u_near: f64,
+    u_hold: f64,
+    dt: f64,
+    /// One step's transition (Φ) and input (Γ) matrices.
+    step: Step,
+}
+
+#[derive(Debug, Clone, Copy)]
+struct Step {
+    phi: [[f64; 3]; 3],
+    gamma: [f64; 3],
+}
+
+impl<'q> Sim<'q> {
+    fn new(q: &'q Question, u_far: f64, u_near: f64, u_hold: f64) -> Sim<'q> {
+        let scale = Sim::time_scale(q, u_far);
+        let dt = scale / 400.0;
+        Sim {
+            q,
+            u_far,
+            u_near,
+            u_hold,
+            dt,
+            step: Step::of(&q.plant, dt),
+        }
+    }
+
+    /// A time scale of the change: the slowest lag, or the time to cover the distance at full
+    /// input rate for a plant without one.
+    fn time_scale(q: &Question, u_far: f64) -> f64 {
+        let p = &q.plant;
+        let distance = q.delta.abs();
+        // Time to cover the distance if the output moved at its initial full-input rate after
+        // the fastest lag: a lower bound for pure integrators.
+        let rate = (0..p.n)
+            .map(|k| {
+                let mut v = p.b;
+                for _ in 0..k {
+                    v = mat_vec(&p.a, &v, p.n);
+                }
+                dot(&p.c, &v, p.n).abs()
+            })
+            .fold(0.0, f64::max)
+            * u_far.abs();
+        let by_rate = if rate > 0.0 {
+            (distance / rate).sqrt().max(distance / rate)
+        } else {
+            1.0
+        };
+        p.slowest_s.max(by_rate).max(1e-9)
+    }
+
+    /// How far t1 (and twice t2) is searched: long enough for the slowest plant to cover the
+    /// change at full input.
+    fn search_span(&self) -> f64 {
+        let scale = Sim::time_scale(self.q, self.u_far);
+        // At full input a self-regulating plant reaches (1 − b) of a reachable change within a
+        // few time constants; the search covers well beyond.
+        12.0 * scale
+    }
+
+    /// The settling time (dead time excluded) of the sequence (t1, t2, hold), or infinity when
+    /// the output never stays in the band. The entry into the band is interpolated between
+    /// steps.
+    fn settling(&self, t1: f64, t2: f64) -> f64 {
+        let p = &self.q.plant;
+        let target = self.q.delta;
+        let band = self.q.band_fraction * target.abs();
+        // Distance outside the band (negative inside).
+        let excess = |y: f64| (y - target).abs() - band;
+        let mut x = [0.0; 3];
+        let mut t = 0.0;
+        let mut prev_excess = excess(0.0);
+        // Time of the last entry into the band.
+        let mut entered: Option<f64> = None;
+        // Where the hold leaves a plant that settles by itself; the watch ends once the state is
+        // so close to it that the output cannot leave the band any more.
+        let rest_state = solve(&p.a, &p.b.map(|b| -b * self.u_hold), p.n);
+        let scale_c = (0..p.n).map(|i| p.c[i].abs()).sum::<f64>().max(1e-300);
+        let near_rest = |x: &[f64; 3]| {
+            rest_state.is_some_and(|xs| {
+                (0..p.n).all(|i| (x[i] - xs[i]).abs() * scale_c <= 1e-3 * band.max(1e-300))
+            })
+        };
+        let mut run = |x: &mut [f64; 3], dur: f64, u: f64, until_rest: bool| {
+            let full = (dur / self.dt).floor() as usize;
+            let rest = dur - full as f64 * self.dt;
+            let rest_step = (rest > 0.0).then(|| Step::of(p, rest));
+            for k in 0..=full {
+                let (step, h) = match (k < full, &rest_step) {
+                    (true, _) => (&self.step, self.dt),
+                    (false, Some(s)) => (s, rest),
+                    (false, None) => break,
+                };
+                *x = step.apply(x, u, p.n);
+                t += h;
+                let e = excess(p.output(x));
+                if e > 0.0 {
+                    entered = None;
+                } else if prev_excess > 0.0 {
+                    entered = Some(t - h * (-e) / (prev_excess - e));
+                }
+                prev_excess = e;
+                if until_rest && e <= 0.0 && near_rest(x) {
+                    break;
+                }
+            }
+        };
+        run(&mut x, t1, self.u_far, false);
+        run(&mut x, t2, self.u_near, false);
+        // Hold: watch until the state can no longer leave the band.
+        let watch = 12.0 * p.slowest_s.max(self.dt * 10.0) + 10.0 * self.dt;
+        run(&mut x, watch, self.u_hold, true);
+        let Some(entry) = entered else {
+            return if excess(p.output(&x)) <= 0.0 && prev_excess <= 0.0 && excess(0.0) <= 0.0 {
+                0.0
+            } else {
+                f64::INFINITY
+            };
+        };
+        // Far in the future the held output must still be inside (a plant with integrators
+        // drifts unless it came to rest).
+        if excess(self.resting_output(&x)) > 0.0 {
+            return f64::INFINITY;
+        }
+        entry
+    }
+
+    /// Where the output rests when the hold input is applied from state `x` on (far in the
+    /// future; it drifts off for a plant with two integrators that is still moving).
+    fn resting_output(&self, x: &[f64; 3]) -> f64 {
+        let p = &self.q.plant;
+        let far = 1000.0 * p.slowest_s.max(self.search_span());
+        p.output(&Step::of(p, far).apply(x, self.u_hold, p.n))
+    }
+
+    /// The state after the first bang of `t1` and a counter-bang of `t2`.
+    fn state_after(&self, t1: f64, t2: f64) -> [f64; 3] {
+        let p = &self.q.plant;
+        let x = Step::of(p, t1).apply(&[0.0; 3], self.u_far, p.n);
+        Step::of(p, t2).apply(&x, self.u_near, p.n)
+    }
+
+    /// The shortest first bang (with the counter-bang `counter(t1)` after it) whose resting
+    /// output reaches the near edge of the band, by bisection; `None` when even the longest
+    /// searched does not.
+    fn band_edge(&self, t_max: f64, counter: impl Fn(f64) -> Option<f64>) -> Option<f64> {
+        let target = self.q.delta;
+        let edge = target - target.signum() * self.q.band_fraction * target.abs() * 0.999;
+        // Signed progress past the edge in the direction of the change.
+        let progress = |t1: f64| -> Option<f64> {
+            let t2 = counter(t1)?;
+            let y = self.resting_output(&self.state_after(t1, t2));
+            Some((y - edge) * target.signum())
+        };
+        const N: usize = 400;
+        let mut lo = 0.0;
+        for i in 1..=N {
+            let hi = t_max * i as f64 / N as f64;
+            if progress(hi).is_some_and(|v| v >= 0.0) {
+                let (mut a, mut b) = (lo, hi);
+                for _ in 0..60 {
+                    let m = 0.5 * (a + b);
+                    if progress(m).is_some_and(|v| v >= 0.0) {
+                        b = m;
+                    } else {
+                        a = m;
+                    }
+                }
+                return Some(b);
+            }
+            lo = hi;
+        }
+        None
+    }
+
+    /// The t2 at which the output's rate under the hold input crosses zero (the output comes to
+    /// rest), searched up to `t2_max`.
+    fn rest_switch(&self, t1: f64, t2_max: f64) -> Option<f64> {
+        let p = &self.q.plant;
+        let at_t1 = self.state_after(t1, 0.0);
+        let rate_after = |t2: f64| {
+            let x = Step::of(p, t2).apply(&at_t1, self.u_near, p.n);
+            p.output_rate(&x, self.u_hold)
+        };
+        let r0 = rate_after(0.0);
+        if r0 == 0.0 {
+            return None;
+        }
+        // Scan for the first sign change, then bisect.
+        const N: usize = 200;
+        let mut lo = 0.0;
+        for i in 1..=N {
+            let hi = t2_max * i as f64 / N as f64;
+            if rate_after(hi).signum() != r0.signum() {
+                let (mut a, mut b) = (lo, hi);
+                for _ in 0..80 {
+                    let m = 0.5 * (a + b);
+                    if rate_after(m).signum() == r0.signum() {
+                        a = m;
+                    } else {
+                        b = m;
+                    }
+                }
+                return Some(0.5 * (a + b));
+            }
+            lo = hi;
+        }
+        None
+    }
+}
+
+impl Step {
+    /// The exact zero-order-hold step of length `h`: Φ = e^(A·h), Γ = ∫₀ʰ e^(A·s) ds · B, from the
+    /// exponential of the augmented matrix [[A, B], [0, 0]].
+    fn of(p: &Plant, h: f64) -> Step {
+        let n = p.n;
+        let m = n + 1;
+        let mut aug = [[0.0; 4]; 4];
+        for i in 0..n {
+            for j in 0..n {
+                aug[i][j] = p.a[i][j] * h;
+            }
+            aug[i][n] = p.b[i] * h;
+        }
+        let e = expm(&aug, m);
+        let mut phi = [[0.0; 3]; 3];
+        let mut gamma = [0.0; 3];
+        for i in 0..n {
+            phi[i][..n].copy_from_slice(&e[i][..n]);
+            gamma[i] = e[i][n];
+        }
+        Step { phi, gamma }
+    }
+
+    fn apply(&self, x: &[f64; 3], u: f64, n: usize) -> [f64; 3] {
+        let mut out = [0.0; 3];
+        for i in 0..n {
+            out[i] = (0..n).map(|j| self.phi[i][j] * x[j]).sum::<f64>() + self.gamma[i] * u;
+        }
+        out
+    }
+}
+
+/// Matrix exponential of an m×m matrix (m ≤ 4) by scaling and squaring with a Taylor series.
+fn expm(a: &[[f64; 4]; 4], m: usize) -> [[f64; 4]; 4] {
+    let norm = (0..m)
+        .map(|i| (0..m).map(|j| a[i][j].abs()).sum::<f64>())
+        .fold(0.0, f64::max);
+    let squarings = if norm > 0.5 {
+        (norm / 0.5).log2().ceil() as u32
+    } else {
+        0
+    };
+    let scale = 0.5f64.powi(squarings as i32);
+    let mut s = [[0.0; 4]; 4];
+    for i in 0..m {
+        for j in 0..m {
+            s[i][j] = a[i][j] * scale;
+        }
+    }
+    // Σ s^k / k! up to k = 18: with ‖s‖ ≤ 0.5 the remainder is below 1e-20.
+    let mut result = identity(m);
+    let mut term = identity(m);
+    for k in 1..=18 {
+        term = mat_mul(&term, &s, m);
+        for row in term.iter_mut().take(m) {
+            for v in row.iter_mut().take(m) {
+                *v /= k as f64;
+            }
+        }
+        for i in 0..m {
+            for j in 0..m {
+                result[i][j] += term[i][j];
+            }
+        }
+    }
+    for _ in 0..squarings {
+        result = mat_mul(&result, &result, m);
+    }
+    result
+}
+
+fn identity(m: usize) -> [[f64; 4]; 4] {
+    let mut out = [[0.0; 4]; 4];
+    for (i, row) in out.iter_mut().enumerate().take(m) {
+        row[i] = 1.0;
+    }
+    out
+}
+
+fn mat_mul(a: &[[f64; 4]; 4], b: &[[f64; 4]; 4], m: usize) -> [[f64; 4]; 4] {
+    let mut out = [[0.0; 4]; 4];
+    for i in 0..m {
+        for j in 0..m {
+            out[i][j] = (0..m).map(|k| a[i][k] * b[k][j]).sum();
+        }
+    }
+    out
+}
+
+fn mat_vec(a: &[[f64; 3]; 3], v: &[f64; 3], n: usize) -> [f64; 3] {
+    let mut out = [0.0; 3];
+    for i in 0..n {
+        out[i] = (0..n).map(|j| a[i][j] * v[j]).sum();
+    }
+    out
+}
+
+fn dot(a: &[f64; 3], b: &[f64; 3], n: usize) -> f64 {
+    (0..n).map(|i| a[i] * b[i]).sum()
+}
+
+/// Solves A·x = r for n ≤ 3 by Gaussian elimination with partial pivoting; `None` when A is
+/// singular (the plant has an integrator).
+fn solve(a: &[[f64; 3]; 3], r: &[f64; 3], n: usize) -> Option<[f64; 3]> {
+    let mut m = *a;
+    let mut v = *r;
+    for col in 0..n {
+        let pivot = (col..n).max_by(|&i, &j| m[i][col].abs().total_cmp(&m[j][col].abs()))?;
+        if m[pivot][col].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(col, pivot);
+        v.swap(col, pivot);
+        for row in col + 1..n {
+            let f = m[row][col] / m[col][col];
+            for k in col..n {
+                m[row][k] -= f * m[col][k];
+            }
+            v[row] -= f * v[col];
+        }
+    }
+    let mut x = [0.0; 3];
+    for row in (0..n).rev() {
+        let s: f64 = (row + 1..n).map(|k| m[row][k] * x[k]).sum();
+        x[row] = (v[row] - s) / m[row][row];
+    }
+    Some(x)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::feasibility::{Reach, min_settling_time};
+    use crate::analysis::identify::Fopdt;
+
+    fn t_star(q: &Question) -> f64 {
+        match fastest(q) {
+            Fastest::Settles { t_star_s, .. } => t_star_s,
+            Fastest::Unreachable => f64::INFINITY,
+        }
+    }
+
+    /// Brute force: the earliest settling over a fine uniform grid of (t1, t2), simulated by
+    /// plain Euler steps — an independent integrator and no refinement.
+    fn brute_force(q: &Question, t1_max: f64, t2_max: f64, n1: usize, n2: usize) -> f64 {
+        let p = &q.plant;
+        let u_hold = hold_input(q).expect("reachable");
+        let (far, near) = if needs_positive_input(q) {
+            (q.u_hi, q.u_lo)
+        } else {
+            (q.u_lo, q.u_hi)
+        };
+        let dt = t1_max / 2000.0;
+        let band = q.band_fraction * q.delta.abs();
+        let mut best = f64::INFINITY;
+        for i in 0..=n1 {
+            for j in 0..=n2 {
+                let (t1, t2) = (t1_max * i as f64 / n1 as f64, t2_max * j as f64 / n2 as f64);
+                let mut x = [0.0; 3];
+                let mut t = 0.0;
+                let mut last = 0.0;
+                let end = t1 + t2 + 10.0 * p.slowest_s.max(t1_max / 10.0);
+                while t < end {
+                    let u = if t < t1 {
+                        far
+                    } else if t < t1 + t2 {
+                        near
+                    } else {
+                        u_hold
+                    };
+                    let mut dx = [0.0; 3];
+                    for r in 0..p.n {
+                        dx[r] = (0..p.n).map(|c| p.a[r][c] * x[c]).sum::<f64>() + p.b[r] * u;
+                    }
+                    for r in 0..p.n {
+                        x[r] += dt * dx[r];
+                    }
+                    t += dt;
+                    if (p.output(&x) - q.delta).abs() > band {
+                        last = t;
+                    }
+                }
+                if (p.output(&x) - q.delta).abs() <= band && last < t - 1.0 * p.slowest_s.max(dt) {
+                    best = best.min(last);
+                }
+            }
+        }
+        p.dead_time_s + best
+    }
+
+    #[test]
+    fn first_order_equals_the_closed_form() {
+        // K = 2, τ = 10, θ = 2, Δ = 1, b = 0.02: t* for headroom h (shared/REFERENCES.md §5:
+        // 0.55 → 24.1557, 0.75 → 12.5939, 1.00 → 8.7334, 1.50 → 5.9551; t* formula, checked
+        // there by a bang-bang simulation).
+        for (h, expected) in [
+            (0.55, 24.1557),
+            (0.75, 12.5939),
+            (1.0, 8.7334),
+            (1.5, 5.9551),
+        ] {
+            let q = Question {
+                plant: Plant::first_order(2.0, 10.0, 2.0),
+                delta: 1.0,
+                band_fraction: 0.02,
+                u_lo: -5.0,
+                u_hi: h,
+            };
+            let got = t_star(&q);
+            assert!((got - expected).abs() < 0.01, "h {h}: {got} vs {expected}");
+            let closed = match min_settling_time(
+                &Fopdt {
+                    gain: 2.0,
+                    time_constant_s: 10.0,
+                    dead_time_s: 2.0,
+                },
+                1.0,
+                h,
+                0.02,
+            ) {
+                Reach::Reachable { t_star_s } => t_star_s,
+                Reach::Unreachable { .. } => f64::INFINITY,
+            };
+            assert!(
+                (got - closed).abs() < 0.01,
+                "h {h}: {got} vs closed form {closed}"
+            );
+        }
+    }
+
+    #[test]
+    fn a_change_beyond_the_reach_is_unreachable() {
+        let q = Question {
+            plant: Plant::first_order(2.0, 10.0, 2.0),
+            delta: 1.0,
+            band_fraction: 0.02,
+            u_lo: -5.0,
+            u_hi: 0.49,
+        };
+        assert_eq!(fastest(&q), Fastest::Unreachable);
+    }
+
+    #[test]
+    fn a_negative_gain_process_needs_the_lower_limit() {
+        let q = Question {
+            plant: Plant::first_order(-2.0, 10.0, 2.0),
+            delta: 1.0,
+            band_fraction: 0.02,
+            u_lo: -0.75,
+            u_hi: 5.0,
+        };
+        assert!((t_star(&q) - 12.5939).abs() < 0.01);
+    }
+
+    #[test]
+    fn the_double_integrator_meets_the_published_rest_to_rest_time() {
+        // ÿ = a·u, |u| ≤ 1, rest to rest over d: one switch at the midpoint,
+        // t_min = 2·√(d/a) (Athans & Falb 1966, ch. 7 — from memory). With a band of ±b·d the
+        // output may come to rest anywhere in it, and it is settled from the moment it passes
+        // the near edge p = (1 − b)·d on the way (derived here): resting at r, it passes p at
+        // 2·√(r/a) − √(2(r − p)/a), which falls with r up to r = 2p, so for b < 1/3 the best
+        // rest is the far edge (1 + b)·d and t* = 2·√((1 + b)·d/a) − 2·√(b·d/a). As b → 0 this
+        // is the published 2·√(d/a).
+        for (a, d, b) in [(1.0, 4.0, 0.02), (0.5, 10.0, 0.05), (2.0, 1.0, 1e-6)] {
+            let q = Question {
+                plant: Plant::double_integrator(a),
+                delta: d,
+                band_fraction: b,
+                u_lo: -1.0,
+                u_hi: 1.0,
+            };
+            let expected = 2.0 * ((1.0 + b) * d / a).sqrt() - 2.0 * (b * d / a).sqrt();
+            let got = t_star(&q);
+            assert!(
+                (got - expected).abs() < 0.005 * expected,
+                "a {a} d {d} b {b}: {got} vs {expected}"
+            );
+        }
+        let q = Question {
+            plant: Plant::double_integrator(2.0),
+            delta: 1.0,
+            band_fraction: 1e-6,
+            u_lo: -1.0,
+            u_hi: 1.0,
+        };
+        let published = 2.0 * (1.0f64 / 2.0).sqrt();
+        assert!((t_star(&q) - published).abs() < 0.005 * published);
+    }
+
+    #[test]
+    fn a_pure_integrator_with_dead_time_reaches_the_band_edge_at_full_rate() {
+        // ẏ = k·u(t − θ): at full input the band edge (1 − b)·Δ is reached after
+        // (1 − b)·Δ / (k·h), then the input returns to the balance and the level stays.
+        let q = Question {
+            plant: Plant::integrating(0.01, None, 5.0),
+            delta: 2.0,
+            band_fraction: 0.02,
+            u_lo: -20.0,
+            u_hi: 40.0,
+        };
+        let expected = 5.0 + 0.98 * 2.0 / (0.01 * 40.0);
+        assert!((t_star(&q) - expected).abs() < 0.01 * expected);
+    }
+
+    #[test]
+    fn second_order_and_integrating_with_lag_match_brute_force() {
+        let cases = [
+            Question {
+                plant: Plant::second_order(1.5, 40.0, 12.0, 5.0),
+                delta: 3.0,
+                band_fraction: 0.02,
+                u_lo: -10.0,
+                u_hi: 4.0,
+            },
+            Question {
+                plant: Plant::second_order(1.5, 40.0, 12.0, 5.0),
+                delta: -3.0,
+                band_fraction: 0.05,
+                u_lo: -2.5,
+                u_hi: 10.0,
+            },
+            Question {
+                plant: Plant::integrating(0.02, Some(20.0), 3.0),
+                delta: 1.0,
+                band_fraction: 0.02,
+                u_lo: -2.0,
+                u_hi: 2.0,
+            },
+        ];
+        for q in cases {
+            let Fastest::Settles { t_star_s, sequence } = fastest(&q) else {
+                panic!("{q:?} is reachable");
+            };
+            // What the search reports is real: an independent simulation of its sequence stays
+            // in the band from t* on.
+            let last_out = last_outside_euler(&q, &sequence);
+            assert!(
+                last_out <= t_star_s + 0.01 * t_star_s,
+                "{q:?}: reported {t_star_s}, the sequence leaves the band at {last_out}"
+            );
+            // And it is no slower than the best of a uniform brute-force scan.
+            let span = 6.0 * q.plant.slowest_s;
+            let brute = brute_force(&q, span, span / 2.0, 60, 30);
+            assert!(
+                t_star_s <= brute * 1.01,
+                "{q:?}: search {t_star_s} vs brute force {brute}"
+            );
+        }
+    }
+
+    /// The last time (dead time included) the output of `seq` is outside the band, by plain
+    /// Euler steps.
+    fn last_outside_euler(q: &Question, seq: &Sequence) -> f64 {
+        let p = &q.plant;
+        let dt = 1e-3;
+        let band = q.band_fraction * q.delta.abs();
+        let end = seq.t1_s + seq.t2_s + 20.0 * p.slowest_s.max(1.0);
+        let (mut x, mut t, mut last) = ([0.0; 3], 0.0, 0.0);
+        while t < end {
+            let u = if t < seq.t1_s {
+                seq.u_far
+            } else if t < seq.t1_s + seq.t2_s {
+                seq.u_near
+            } else {
+                seq.u_hold
+            };
+            let mut dx = [0.0; 3];
+            for r in 0..p.n {
+                dx[r] = (0..p.n).map(|c| p.a[r][c] * x[c]).sum::<f64>() + p.b[r] * u;
+            }
+            for r in 0..p.n {
+                x[r] += dt * dx[r];
+            }
+            t += dt;
+            if (p.output(&x) - q.delta).abs() > band {
+                last = t;
+            }
+        }
+        p.dead_time_s + last
+    }
+
+    #[test]
+    fn the_matrix_exponential_of_a_rotation_is_a_rotation() {
+        // e^([[0, −1], [1, 0]]·t) = [[cos t, −sin t], [sin t, cos t]].
+        let mut a = [[0.0; 4]; 4];
+        a[0][1] = -2.0;
+        a[1][0] = 2.0;
+        let e = expm(&a, 2);
+        assert!((e[0][0] - 2f64.cos()).abs() < 1e-12);
+        assert!((e[1][0] - 2f64.sin()).abs() < 1e-12);
+    }
+}

@@ -1,0 +1,871 @@
+//! Regulation health between setpoint changes: how the loop holds its setpoint against loads.
+//!
+//! Definitions (the product's contract, DESIGN.md "Regulation"):
+//! - A **hold** is a stretch with the setpoint unchanged, after the response to the last change
+//!   settled (or its window ended), up to the next change, a data gap, an exit from automatic or
+//!   the end of data. Every figure below is over holds only.
+//! - The **hold band** is max(4σ, the configured `hold_band`), σ the PV noise estimated robustly
+//!   from second differences with the median absolute deviation (for white noise the second
+//!   difference has variance 6σ²), so slow movements do not inflate it.
+//! - A **disturbance** starts at the first sample of a run of at least 3 samples outside the
+//!   band; it recovers at the first sample from which the PV stays inside for at least 60 s or
+//!   until the hold ends. Its verdict: `actuator_limited` when the OP was within 0.5 % of span of
+//!   a limit on at least 30 % of its out-of-band samples (the load exceeded what the actuator
+//!   can counter), else `recovered`, else `not_recovered` when the hold ended by a setpoint
+//!   change or the end of data with the PV still out, else `inconclusive` (a gap or manual).
+//! - **Oscillation** (after Hägglund, "A control-loop performance monitor", *Control Eng.
+//!   Practice* 3(11), 1995): the control error's half-cycles between zero crossings are
+//!   compared by their IAE with a sine of the acceptable amplitude a (here the hold band) over
+//!   the same half-period, whose IAE is 2a/ω; larger ones are counted with exponential
+//!   forgetting over 50 periods, and more than 10 make an oscillation. Period: the mean of the
+//!   counted cycles; amplitude: the median half peak-to-peak PV swing per cycle.
+//! - **Likely cause**, always with its evidence: `valve` when the cross-correlation of OP and PV
+//!   over the oscillation is odd (a zero crossing at lag 0; Horch, "A simple method for detection
+//!   of stiction in control valves", *Control Eng. Practice* 7, 1999 — details from memory),
+//!   otherwise `tuning` when the period lies where a loop with the identified dead time cycles by
+//!   itself (2 to 10 dead times, this product's rule), otherwise `load`; none without a model.
+//! - Routine figures: time at an OP limit, OP travel per hour, OP reversals per hour (by more
+//!   than 0.1 % of span, so noise does not count) and the minimum-variance index
+//!   η = σ²_mv / σ²_y (Harris 1989, normalised as Huang & Shah 1999, 1 = minimum variance): an
+//!   AR model of the PV deviation, its impulse response ψ, σ²_mv = σ²_a·Σ_{i<d} ψ_i² with
+//!   d = ⌊θ/Ts⌋ + 1 samples of dead time.
+
+use super::Series;
+use super::identify::median_in_place;
+use super::setup::OpRange;
+use serde::Serialize;
+
+/// Why a hold ended.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum HoldEnd {
+    SetpointChange,
+    DataGap,
+    ManualMode,
+    EndOfData,
+}
+
+/// A held-setpoint stretch: samples `[start, end)`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Hold {
+    pub start: usize,
+    pub end: usize,
+    pub end_reason: HoldEnd,
+}
+
+/// A disturbance's outcome.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum DisturbanceVerdict {
+    Recovered,
+    ActuatorLimited,
+    NotRecovered,
+    Inconclusive,
+}
+
+/// One load disturbance.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Disturbance {
+    pub start_s: f64,
+    pub end_s: f64,
+    /// Largest PV − SP during it, signed, PV units.
+    pub peak_deviation: f64,
+    pub recovery_time_s: Option<f64>,
+    pub op_at_limit_frac: f64,
+    pub verdict: DisturbanceVerdict,
+}
+
+/// What probably drives an oscillation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Cause {
+    Valve,
+    Tuning,
+    Load,
+}
+
+/// The oscillation finding.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Oscillation {
+    pub detected: bool,
+    pub period_s: Option<f64>,
+    pub amplitude: Option<f64>,
+    pub likely_cause: Option<Cause>,
+    /// The evidence behind the cause, in words.
+    pub evidence: Option<String>,
+}
+
+/// Regulation figures of a loop.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Regulation {
+    pub oscillation: Oscillation,
+    pub disturbances: Vec<Disturbance>,
+    pub time_at_limit_frac: Option<f64>,
+    pub op_travel_per_h: Option<f64>,
+    pub op_reversals_per_h: Option<f64>,
+    pub min_variance_index: Option<f64>,
+    /// The band used (PV units, half-width) and the PV noise σ behind it.
+    pub hold_band: Option<f64>,
+    pub pv_noise_sd: Option<f64>,
+    /// Hours of hold analysed.
+    pub hold_hours: f64,
+}
+
+/// What the regulation analysis needs besides the data.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RegulationSettings {
+    pub op: OpRange,
+    /// A configured absolute hold band (PV units), if any.
+    pub hold_band: Option<f64>,
+    /// The identified dead time, if a model exists.
+    pub dead_time_s: Option<f64>,
+}
+
+/// Samples in a row outside the band that start a disturbance.
+const MIN_OUT_RUN: usize = 3;
+/// How long the PV must stay inside to count as recovered (s).
+const RECOVERED_AFTER_S: f64 = 60.0;
+/// The share of out-of-band samples at an OP limit that makes a disturbance actuator-limited.
+const AT_LIMIT_SHARE: f64 = 0.3;
+/// OP within this share of its span from a limit is at the limit (DESIGN: 0.5 %).
+const LIMIT_MARGIN: f64 = 0.005;
+/// A reversal of the OP counts when it moves back by more than this share of its span.
+const REVERSAL_SHARE: f64 = 0.001;
+/// Hägglund's alarm count, and the supervision time in periods.
+const N_LIM: f64 = 10.0;
+const SUPERVISION_PERIODS: f64 = 50.0;
+/// AR order of the minimum-variance estimate (10–30 typical — from memory).
+const AR_ORDER: usize = 15;
+
+/// Analyses the holds of a series.
+pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings) -> Regulation {
+    let t = series.time_s();
+    let holds: Vec<Hold> = holds
+        .iter()
+        .copied()
+        .filter(|h| h.end > h.start + 2)
+        .collect();
+    let hold_hours: f64 = holds.iter().map(|h| t[h.end - 1] - t[h.start]).sum::<f64>() / 3600.0;
+    let sigma = noise_sd(series.pv(), &holds);
+    let band = sigma.map(|s| (4.0 * s).max(settings.hold_band.unwrap_or(0.0)));
+    let mut oscillation = Oscillation {
+        detected: false,
+        period_s: None,
+        amplitude: None,
+        likely_cause: None,
+        evidence: None,
+    };
+    let mut disturbances = Vec::new();
+    if let Some(band) = band.filter(|b| *b > 0.0) {
+        let mut found: Vec<(OscillationFit, Hold)> = Vec::new();
+        for h in &holds {
+            match oscillation_in(series, h, band) {
+                Some(fit) => found.push((fit, *h)),
+                None => disturbances.extend(disturbances_in(series, h, band, settings.op)),
+            }
+        }
+        if let Some((fit, hold)) = found
+            .into_iter()
+            .max_by(|a, b| a.0.counted.total_cmp(&b.0.counted))
+        {
+            let (cause, evidence) = cause_of(series, &hold, &fit, settings.dead_time_s);
+            oscillation = Oscillation {
+                detected: true,
+                period_s: Some(fit.period_s),
+                amplitude: Some(fit.amplitude),
+                likely_cause: cause,
+                evidence: Some(evidence),
+            };
+        }
+    }
+    let per_hour = |x: f64| (hold_hours > 0.0).then(|| x / hold_hours);
+    let (at_limit, travel, reversals) = op_figures(series, &holds, settings.op);
+    Regulation {
+        oscillation,
+        disturbances,
+        time_at_limit_frac: at_limit,
+        op_travel_per_h: per_hour(travel),
+        op_reversals_per_h: per_hour(reversals as f64),
+        min_variance_index: min_variance_index(series, &holds, settings.dead_time_s),
+        hold_band: band,
+        pv_noise_sd: sigma,
+        hold_hours,
+    }
+}
+
+/// The PV noise σ from second differences inside holds, by the median absolute deviation.
+pub fn noise_sd(pv: &[f64], holds: &[Hold]) -> Option<f64> {
+    let mut d2: Vec<f64> = holds
+        .iter()
+        .flat_map(|h| (h.start + 1..h.end - 1).map(move |i| pv[i + 1] - 2.0 * pv[i] + pv[i - 1]))
+        .collect();
+    if d2.len() < 10 {
+        return None;
+    }
+    let med = median_in_place(&mut d2);
+    let mut dev: Vec<f64> = d2.iter().map(|x| (x - med).abs()).collect();
+    Some(1.4826 * median_in_place(&mut dev) / 6f64.sqrt())
+}
+
+fn at_limit(op: f64, range: OpRange) -> bool {
+    let m = LIMIT_MARGIN * range.span();
+    op <= range.min + m || op >= range.max - m
+}
+
+/// The disturbances of one hold.
+fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Disturbance> {
+    let (t, sp, pv, u) = (series.time_s(), series.sp(), series.pv(), series.op());
+    let out = |i: usize| (pv[i] - sp[i]).abs() > band;
+    let mut list = Vec::new();
+    let mut i = h.start;
+    while i < h.end {
+        // The start: the first sample of a run of at least MIN_OUT_RUN outside.
+        if !(i + MIN_OUT_RUN <= h.end && (i..i + MIN_OUT_RUN).all(out)) {
+            i += 1;
+            continue;
+        }
+        let start = i;
+        // The recovery: the first sample from which the PV stays inside for RECOVERED_AFTER_S,
+        // or until the hold ends.
+        let mut recovered = None;
+        let mut j = start + 1;
+        while j < h.end {
+            if out(j) {
+                j += 1;
+                continue;
+            }
+            let mut k = j;
+            while k < h.end && !out(k) && t[k] - t[j] < RECOVERED_AFTER_S {
+                k += 1;
+            }
+            if k == h.end || !out(k) {
+                recovered = Some(j);
+                break;
+            }
+            j = k;
+        }
+        let stop = recovered.unwrap_or(h.end);
+        let outside: Vec<usize> = (start..stop).filter(|&k| out(k)).collect();
+        let limited = outside.iter().filter(|&&k| at_limit(u[k], op)).count();
+        let frac = limited as f64 / outside.len().max(1) as f64;
+        let peak = (start..stop)
+            .map(|k| pv[k] - sp[k])
+            .max_by(|a, b| a.abs().total_cmp(&b.abs()))
+            .unwrap_or(0.0);
+        let verdict = if frac >= AT_LIMIT_SHARE {
+            DisturbanceVerdict::ActuatorLimited
+        } else if recovered.is_some() {
+            DisturbanceVerdict::Recovered
+        } else {
+            match h.end_reason {
+                HoldEnd::SetpointChange | HoldEnd::EndOfData => DisturbanceVerdict::NotRecovered,
+                HoldEnd::DataGap | HoldEnd::ManualMode => DisturbanceVerdict::Inconclusive,
+            }
+        };
+        list.push(Disturbance {
+            start_s: t[start],
+            end_s: t[stop.min(h.end - 1)],
+            peak_deviation: peak,
+            recovery_time_s: recovered.map(|r| t[r] - t[start]),
+            op_at_limit_frac: frac,
+            verdict,
+        });
+        i = stop.max(start + 1);
+    }
+    list
+}
+
+/// A detected oscillation in one hold.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct OscillationFit {
+    period_s: f64,
+    amplitude: f64,
+    /// The forgetting count at its largest.
+    counted: f64,
+    /// Samples `[from, to)` of the counted half-cycles.
+    from: usize,
+    to: usize,
+}
+
+/// Hägglund's test on one hold: half-cycles of the control error whose IAE exceeds that of a
+/// sine of amplitude `band` over the same half-period, counted with exponential forgetting over
+/// 50 periods; more than 10 make an oscillation.
+fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<OscillationFit> {
+    let (t, sp, pv) = (series.time_s(), series.sp(), series.pv());
+    let e = |i: usize| sp[i] - pv[i];
+    // Zero crossings of the error.
+    let mut crossings = Vec::new();
+    for i in h.start + 1..h.end {
+        if (e(i) > 0.0) != (e(i - 1) > 0.0) {
+            crossings.push(i);
+        }
+    }
+    // Half-cycles with their IAE, duration and peak.
+    struct Half {
+        start: usize,
+        end: usize,
+        duration: f64,
+        peak: f64,
+        large: bool,
+    }
+    let halves: Vec<Half> = crossings
+        .windows(2)
+        .map(|w| {
+            let (a, b) = (w[0], w[1]);
+            let iae: f64 = (a..b).map(|i| e(i).abs() * (t[i + 1] - t[i])).sum();
+            let duration = t[b] - t[a];
+            let peak = (a..b).map(|i| e(i).abs()).fold(0.0, f64::max);
+            // IAE of a·sin over one half-period T/2 is 2a/ω = a·T/π.
+            let limit = band * duration / std::f64::consts::PI * 2.0;
+            Half {
+                start: a,
+                end: b,
+                duration,
+                peak,
+                large: iae > limit,
+            }
+        })
+        .collect();
+    let large: Vec<&Half> = halves.iter().filter(|h| h.large).collect();
+    if large.len() < 2 {
+        return None;
+    }
+    let mut durations: Vec<f64> = large.iter().map(|h| h.duration).collect();
+    let half_period = median_in_place(&mut durations);
+    let t_sup = SUPERVISION_PERIODS * 2.0 * half_period;
+    let (mut count, mut best, mut last_t) = (0.0f64, 0.0f64, t[large[0].start]);
+    let (mut from, mut to) = (large[0].start, large[0].end);
+    let mut run_start = large[0].start;
+    for hc in &large {
+        let now = t[hc.end];
+        count = count * (-(now - last_t) / t_sup).exp() + 1.0;
+        last_t = now;
+        if count > best {
+            best = count;
+            from = run_start;
+            to = hc.end;
+        }
+        if count < 1.5 {
+            run_start = hc.start;
+        }
+    }
+    if best <= N_LIM {
+        return None;
+    }
+    let counted: Vec<&&Half> = large
+        .iter()
+        .filter(|hc| hc.start >= from && hc.end <= to)
+        .collect();
+    let period_s = 2.0 * counted.iter().map(|hc| hc.duration).sum::<f64>() / counted.len() as f64;
+    // One cycle is two successive half-cycles: its half peak-to-peak swing is the mean of their
+    // peaks.
+    let mut swings: Vec<f64> = counted
+        .windows(2)
+        .step_by(2)
+        .map(|w| 0.5 * (w[0].peak + w[1].peak))
+        .collect();
+    let amplitude = if swings.is_empty() {
+        counted[0].peak
+    } else {
+        median_in_place(&mut swings)
+    };
+    Some(OscillationFit {
+        period_s,
+        amplitude,
+        counted: best,
+        from,
+        to,
+    })
+}
+
+/// The likely cause of an oscillation, and the evidence in words.
+fn cause_of(
+    series: &Series,
+    h: &Hold,
+    fit: &OscillationFit,
+    dead_time_s: Option<f64>,
+) -> (Option<Cause>, String) {
+    let (from, to) = (fit.from.max(h.start), fit.to.min(h.end));
+    let u = &series.op()[from..to];
+    let y = &series.pv()[from..to];
+    let t = series.time_s();
+    let dt = (t[to - 1] - t[from]) / (to - from - 1).max(1) as f64;
+    let max_lag = ((fit.period_s / dt) as usize).clamp(1, u.len() / 2);
+    let ccf = |lag: isize| cross_correlation(u, y, lag);
+    let r0 = ccf(0);
+    let (mut best_pos, mut best_neg) = (0.0f64, 0.0f64);
+    for l in 1..=max_lag as isize {
+        let (p, n) = (ccf(l), ccf(-l));
+        if p.abs() > best_pos.abs() {
+            best_pos = p;
+        }
+        if n.abs() > best_neg.abs() {
+            best_neg = n;
+        }
+    }
+    let peak = best_pos.abs().max(best_neg.abs()).max(r0.abs());
+    // Odd: near zero at lag 0, extremes of opposite sign either side. Even: an extremum at 0.
+    let odd = r0.abs() < 0.3 * peak && best_pos * best_neg < 0.0;
+    if odd {
+        return (
+            Some(Cause::Valve),
+            format!(
+                "the OP–PV cross-correlation is odd (r(0) = {r0:.2}, extremes {best_neg:.2} and \
+                 {best_pos:.2} either side), the signature of a sticking valve"
+            ),
+        );
+    }
+    let shape = format!("the OP–PV cross-correlation has its extremum at lag 0 (r(0) = {r0:.2})");
+    match dead_time_s {
+        Some(theta) if theta > 0.0 => {
+            let ratio = fit.period_s / theta;
+            if (2.0..=10.0).contains(&ratio) {
+                (
+                    Some(Cause::Tuning),
+                    format!(
+                        "{shape}, and the period is {ratio:.1} dead times, where a loop this \
+                         aggressive cycles by itself"
+                    ),
+                )
+            } else {
+                (
+                    Some(Cause::Load),
+                    format!(
+                        "{shape}, and the period is {ratio:.1} dead times, far from the loop's \
+                         own cycle: it enters from outside"
+                    ),
+                )
+            }
+        }
+        _ => (
+            None,
+            format!("{shape}; without a process model the cause is not judged"),
+        ),
+    }
+}
+
+/// Normalised cross-correlation of `u` (shifted by `lag`) and `y`.
+fn cross_correlation(u: &[f64], y: &[f64], lag: isize) -> f64 {
+    let n = u.len().min(y.len());
+    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len().max(1) as f64;
+    let (mu, my) = (mean(&u[..n]), mean(&y[..n]));
+    let su = u[..n].iter().map(|v| (v - mu).powi(2)).sum::<f64>().sqrt();
+    let sy = y[..n].iter().map(|v| (v - my).powi(2)).sum::<f64>().sqrt();
+    if su == 0.0 || sy == 0.0 {
+        return 0.0;
+    }
+    let mut s = 0.0;
+    for (k, uk) in u[..n].iter().enumerate() {
+        let j = k as isize + lag;
+        if j >= 0 && (j as usize) < n {
+            s += (uk - mu) * (y[j as usize] - my);
+        }
+    }
+    s / (su * sy)
+}
+
+/// Share of hold samples at an OP limit, total OP travel, and OP reversals by more than 0.1 % of
+/// span.
+fn op_figures(series: &Series, holds: &[Hold], op: OpRange) -> (Option<f64>, f64, usize) {
+    let u = series.op();
+    let threshold = REVERSAL_SHARE * op.span();
+    let (mut n, mut at, mut travel, mut reversals) = (0usize, 0usize, 0.0, 0usize);
+    for h in holds {
+        // The direction of travel (+1, −1, or 0 before the first clear move) and the extreme
+        // reached in it; a move back from the extreme by more than the threshold is a reversal.
+        let (mut dir, mut extreme) = (0i8, u[h.start]);
+        for i in h.start..h.end {
+            let v = u[i];
+            n += 1;
+            if at_limit(v, op) {
+                at += 1;
+            }
+            if i > h.start {
+                travel += (v - u[i - 1]).abs();
+            }
+            match dir {
+                0 if (v - extreme).abs() > threshold => {
+                    dir = if v > extreme { 1 } else { -1 };
+                    extreme = v;
+                }
+                1 if v > extreme => extreme = v,
+                1 if extreme - v > threshold => {
+                    reversals += 1;
+                    dir = -1;
+                    extreme = v;
+                }
+                -1 if v < extreme => extreme = v,
+                -1 if v - extreme > threshold => {
+                    reversals += 1;
+                    dir = 1;
+                    extreme = v;
+                }
+                _ => {}
+            }
+        }
+    }
+    ((n > 0).then(|| at as f64 / n as f64), travel, reversals)
+}
+
+/// The minimum-variance index η = σ²_mv/σ²_y of the PV deviation in holds (Harris 1989; Huang &
+/// Shah normalisation), `None` without a dead time or with too little data.
+pub fn min_variance_index(
+    series: &Series,
+    holds: &[Hold],
+    dead_time_s: Option<f64>,
+) -> Option<f64> {
+    let theta = dead_time_s?;
+    let t = series.time_s();
+    let mut dts: Vec<f64> = holds
+        .iter()
+        .flat_map(|h| (h.start + 1..h.end).map(move |i| t[i] - t[i - 1]))
+        .collect();
+    if dts.is_empty() {
+        return None;
+    }
+    let ts = median_in_place(&mut dts);
+    let d = (theta / ts).floor() as usize + 1;
+    let deviations: Vec<Vec<f64>> = holds
+        .iter()
+        .map(|h| {
+            let y: Vec<f64> = (h.start..h.end)
+                .map(|i| series.pv()[i] - series.sp()[i])
+                .collect();
+            let m = y.iter().sum::<f64>() / y.len().max(1) as f64;
+            y.into_iter().map(|v| v - m).collect()
+        })
+        .filter(|y: &Vec<f64>| y.len() > 4 * AR_ORDER)
+        .collect();
+    harris_index(&deviations, AR_ORDER, d)
+}
+
+/// η for zero-mean series (pooled), an AR(`order`) fit by least squares and `d` samples of
+/// dead time.
+pub fn harris_index(series: &[Vec<f64>], order: usize, d: usize) -> Option<f64> {
+    let p = order;
+    // Normal equations of y[k] = Σ a_i·y[k−i] + ε.
+    let mut m = vec![vec![0.0; p]; p];
+    let mut r = vec![0.0; p];
+    let (mut count, mut sum_sq) = (0usize, 0.0);
+    for y in series {
+        for k in p..y.len() {
+            for i in 0..p {
+                r[i] += y[k - i - 1] * y[k];
+                for j in 0..p {
+                    m[i][j] += y[k - i - 1] * y[k - j - 1];
+                }
+            }
+        }
+        sum_sq += y.iter().map(|v| v * v).sum::<f64>();
+        count += y.len();
+    }
+    if count < 10 * p {
+        return None;
+    }
+    let a = solve_dense(m, r)?;
+    // Residual variance.
+    let (mut res, mut n_res) = (0.0, 0usize);
+    for y in series {
+        for k in p..y.len() {
+            let pred: f64 = (0..p).map(|i| a[i] * y[k - i - 1]).sum();
+            res += (y[k] - pred).powi(2);
+            n_res += 1;
+        }
+    }
+    let var_a = res / n_res as f64;
+    let var_y = sum_sq / count as f64;
+    // Impulse response of 1/(1 − Σ a_i q^−i): ψ0 = 1, ψk = Σ a_i ψ_{k−i}.
+    let mut psi = vec![0.0; d];
+    for k in 0..d {
+        psi[k] = if k == 0 {
+            1.0
+        } else {
+            (1..=p.min(k)).map(|i| a[i - 1] * psi[k - i]).sum()
+        };
+    }
+    let var_mv = var_a * psi.iter().map(|v| v * v).sum::<f64>();
+    (var_y > 0.0).then(|| (var_mv / var_y).clamp(0.0, 1.0))
+}
+
+/// Gaussian elimination with partial pivoting.
+fn solve_dense(mut m: Vec<Vec<f64>>, mut r: Vec<f64>) -> Option<Vec<f64>> {
+    let n = r.len();
+    for c in 0..n {
+        let p = (c..n).max_by(|&a, &b| m[a][c].abs().total_cmp(&m[b][c].abs()))?;
+        if m[p][c].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(c, p);
+        r.swap(c, p);
+        let pivot = m[c].clone();
+        for i in c + 1..n {
+            let f = m[i][c] / pivot[c];
+            for (mij, pj) in m[i].iter_mut().zip(&pivot).skip(c) {
+                *mij -= f * pj;
+            }
+            r[i] -= f * r[c];
+        }
+    }
+    let mut x = vec![0.0; n];
+    for i in (0..n).rev() {
+        let s: f64 = (i + 1..n).map(|j| m[i][j] * x[j]).sum();
+        x[i] = (r[i] - s) / m[i][i];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::sim::Rng;
+
+    /// A series sampled every `dt` seconds with SP fixed at 50 and the given PV and OP.
+    fn series(dt: f64, pv: Vec<f64>, op: Vec<f64>) -> Series {
+        let n = pv.len();
+        Series::new(
+            (0..n).map(|i| i as f64 * dt).collect(),
+            vec![50.0; n],
+            pv,
+            op,
+            None,
+        )
+        .unwrap()
+    }
+
+    fn whole(s: &Series, end_reason: HoldEnd) -> Vec<Hold> {
+        vec![Hold {
+            start: 0,
+            end: s.len(),
+            end_reason,
+        }]
+    }
+
+    const SETTINGS: RegulationSettings = RegulationSettings {
+        op: OpRange::DEFAULT,
+        hold_band: None,
+        dead_time_s: Some(20.0),
+    };
+
+    fn noise(n: usize, sd: f64, seed: u64) -> Vec<f64> {
+        let mut rng = Rng::new(seed);
+        (0..n).map(|_| sd * rng.normal()).collect()
+    }
+
+    #[test]
+    fn the_harris_index_of_an_ar1_disturbance_is_one_minus_phi_to_the_2d() {
+        // y_t = φ·y_{t−1} + a_t without control: σ²_y = σ²_a/(1 − φ²), σ²_mv = σ²_a(1 − φ^2d)/
+        // (1 − φ²), so η = 1 − φ^(2d) (shared/REFERENCES.md §4, derived there and checked by
+        // simulation): φ = 0.9 → d = 1: 0.19, d = 3: 0.468559, d = 5: 0.651322.
+        let a = noise(200_000, 1.0, 11);
+        let mut y = vec![0.0; a.len()];
+        for k in 1..a.len() {
+            y[k] = 0.9 * y[k - 1] + a[k];
+        }
+        for (d, expected) in [(1, 0.19), (3, 0.468559), (5, 0.651322)] {
+            let eta = harris_index(std::slice::from_ref(&y), 15, d).unwrap();
+            assert!((eta - expected).abs() < 0.01, "d {d}: {eta} vs {expected}");
+        }
+    }
+
+    #[test]
+    fn the_noise_estimate_ignores_slow_movements() {
+        // σ = 0.05 on a slow drift of 2 units over the hold: second differences see the noise.
+        let n = 5000;
+        let e = noise(n, 0.05, 3);
+        let pv: Vec<f64> = (0..n)
+            .map(|i| 50.0 + 2.0 * (i as f64 / n as f64) + e[i])
+            .collect();
+        let s = series(1.0, pv, vec![40.0; n]);
+        let sd = noise_sd(s.pv(), &whole(&s, HoldEnd::EndOfData)).unwrap();
+        assert!((sd - 0.05).abs() < 0.005, "{sd}");
+    }
+
+    /// Two hours at 1 s; a load at 1000 s pushes the PV up by `size` and the loop brings it back
+    /// with a 60 s time constant; the OP answers, held at `op_during` while the PV is out if
+    /// given.
+    fn with_load(size: f64, recovers: bool, op_during: Option<f64>) -> Series {
+        let n = 7200;
+        let e = noise(n, 0.02, 5);
+        let mut pv = Vec::with_capacity(n);
+        let mut op = Vec::with_capacity(n);
+        for (i, noise) in e.iter().enumerate() {
+            let t = i as f64;
+            let dev = if t < 1000.0 {
+                0.0
+            } else if recovers {
+                size * (-(t - 1000.0) / 60.0).exp()
+            } else {
+                size
+            };
+            pv.push(50.0 + dev + noise);
+            let out = dev.abs() > 0.1;
+            op.push(match (out, op_during) {
+                (true, Some(v)) => v,
+                _ => 40.0 - 5.0 * dev,
+            });
+        }
+        series(1.0, pv, op)
+    }
+
+    #[test]
+    fn a_load_that_the_loop_counters_is_recovered_with_its_peak_and_recovery_time() {
+        let s = with_load(1.0, true, None);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        assert_eq!(r.disturbances.len(), 1, "{:?}", r.disturbances);
+        let d = &r.disturbances[0];
+        assert_eq!(d.verdict, DisturbanceVerdict::Recovered);
+        assert!((d.start_s - 1000.0).abs() <= 1.0);
+        assert!((d.peak_deviation - 1.0).abs() < 0.1);
+        // Inside the band (4σ = 0.08) for good once 1.0·e^(−t/60) is below the band less the
+        // noise: between 60·ln(1/0.12) ≈ 127 s and 60·ln(1/0.04) ≈ 193 s (±2σ of noise).
+        let rec = d.recovery_time_s.unwrap();
+        assert!((127.0..=193.0).contains(&rec), "{rec}");
+        assert!(!r.oscillation.detected);
+    }
+
+    #[test]
+    fn a_load_met_with_the_op_at_its_limit_is_actuator_limited() {
+        let s = with_load(1.0, false, Some(100.0));
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        assert_eq!(r.disturbances.len(), 1);
+        assert_eq!(
+            r.disturbances[0].verdict,
+            DisturbanceVerdict::ActuatorLimited
+        );
+        assert!(r.disturbances[0].op_at_limit_frac > 0.99);
+        assert!(r.time_at_limit_frac.unwrap() > 0.8);
+    }
+
+    #[test]
+    fn a_load_still_out_at_the_end_of_the_hold_is_judged_by_how_the_hold_ended() {
+        let s = with_load(1.0, false, None);
+        for (end, verdict) in [
+            (HoldEnd::SetpointChange, DisturbanceVerdict::NotRecovered),
+            (HoldEnd::EndOfData, DisturbanceVerdict::NotRecovered),
+            (HoldEnd::DataGap, DisturbanceVerdict::Inconclusive),
+            (HoldEnd::ManualMode, DisturbanceVerdict::Inconclusive),
+        ] {
+            let r = regulation(&s, &whole(&s, end), &SETTINGS);
+            assert_eq!(r.disturbances[0].verdict, verdict, "{end:?}");
+            assert_eq!(r.disturbances[0].recovery_time_s, None);
+        }
+    }
+
+    /// Six hours of a 120 s cycle of amplitude 1 at 1 s; `valve` makes it a sticking valve's
+    /// shape (the OP ramps as a triangle, the PV jumps as a square wave a quarter cycle later),
+    /// otherwise the OP mirrors the PV (proportional action on the error).
+    fn cycling(valve: bool) -> Series {
+        let n = 21_600;
+        let e = noise(n, 0.02, 9);
+        let w = 2.0 * std::f64::consts::PI / 120.0;
+        let mut pv = Vec::new();
+        let mut op = Vec::new();
+        for (i, noise) in e.iter().enumerate() {
+            let t = i as f64;
+            if valve {
+                let phase = (t / 120.0).fract();
+                let tri = if phase < 0.5 {
+                    4.0 * phase - 1.0
+                } else {
+                    3.0 - 4.0 * phase
+                };
+                op.push(40.0 + 5.0 * tri);
+                pv.push(50.0 + (w * t).sin().signum() * 1.0 + noise);
+            } else {
+                pv.push(50.0 + (w * t).sin() + noise);
+                op.push(40.0 - 5.0 * (w * t).sin());
+            }
+        }
+        series(1.0, pv, op)
+    }
+
+    #[test]
+    fn a_cycling_loop_is_found_with_its_period_amplitude_and_cause() {
+        let s = cycling(false);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        let o = &r.oscillation;
+        assert!(o.detected);
+        assert!((o.period_s.unwrap() - 120.0).abs() < 6.0, "{o:?}");
+        assert!((o.amplitude.unwrap() - 1.0).abs() < 0.1, "{o:?}");
+        // 120 s is 6 dead times of 20 s: the loop's own cycle.
+        assert_eq!(o.likely_cause, Some(Cause::Tuning), "{o:?}");
+        assert!(r.disturbances.is_empty(), "cycles are not disturbances");
+        // With a 2 s dead time the same cycle is 60 dead times: it comes from outside.
+        let short = RegulationSettings {
+            dead_time_s: Some(2.0),
+            ..SETTINGS
+        };
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &short);
+        assert_eq!(r.oscillation.likely_cause, Some(Cause::Load));
+        // Without a model no cause is named.
+        let none = RegulationSettings {
+            dead_time_s: None,
+            ..SETTINGS
+        };
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &none);
+        assert_eq!(r.oscillation.likely_cause, None);
+        assert!(
+            r.oscillation
+                .evidence
+                .unwrap()
+                .contains("without a process model")
+        );
+    }
+
+    #[test]
+    fn a_sticking_valve_shape_is_called_valve_with_its_evidence() {
+        let s = cycling(true);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        assert!(r.oscillation.detected);
+        assert_eq!(
+            r.oscillation.likely_cause,
+            Some(Cause::Valve),
+            "{:?}",
+            r.oscillation
+        );
+        assert!(r.oscillation.evidence.unwrap().contains("odd"));
+    }
+
+    #[test]
+    fn a_healthy_loop_with_random_loads_does_not_oscillate() {
+        for seed in 0..20 {
+            let n = 21_600;
+            let e = noise(n, 0.02, 100 + seed);
+            let bumps = noise(n, 1.0, 200 + seed);
+            let mut pv = Vec::new();
+            let mut dev = 0.0;
+            for i in 0..n {
+                // Random loads: a bump now and then, removed by the loop with a 60 s constant.
+                if bumps[i] > 3.0 {
+                    dev += 0.5 * bumps[i].signum();
+                }
+                dev *= (-1.0f64 / 60.0).exp();
+                pv.push(50.0 + dev + e[i]);
+            }
+            let op: Vec<f64> = pv.iter().map(|p| 40.0 - 5.0 * (p - 50.0)).collect();
+            let s = series(1.0, pv, op);
+            let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+            assert!(!r.oscillation.detected, "seed {seed}: {:?}", r.oscillation);
+        }
+    }
+
+    #[test]
+    fn op_reversals_count_moves_back_beyond_a_tenth_of_a_percent_only() {
+        // A sawtooth between 40 and 60 with a 100 s period (2 reversals per period) plus noise of
+        // 0.01 % of span, which must not count; OP travel is 40 per period.
+        let n = 3600;
+        let e = noise(n, 0.01, 1);
+        let op: Vec<f64> = (0..n)
+            .map(|i| {
+                let ph = (i as f64 / 100.0).fract();
+                let tri = if ph < 0.5 { ph * 2.0 } else { 2.0 - ph * 2.0 };
+                40.0 + 20.0 * tri + e[i]
+            })
+            .collect();
+        let s = series(1.0, vec![50.0; n], op);
+        let (at, travel, rev) = op_figures(&s, &whole(&s, HoldEnd::EndOfData), OpRange::DEFAULT);
+        assert_eq!(at, Some(0.0));
+        assert!((rev as f64 - 72.0).abs() <= 1.0, "{rev}");
+        assert!((travel / 36.0 - 40.0).abs() < 2.0, "{travel}");
+    }
+}
