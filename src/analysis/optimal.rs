@@ -176,71 +176,17 @@ pub fn fastest(q: &Question) -> Fastest {
         (q.u_lo, q.u_hi)
     };
     let sim = Sim::new(q, u_far, u_near, u_hold);
-    let t_max = sim.search_span();
-    let mut best = (f64::INFINITY, 0.0, 0.0);
-    let consider = |t1: f64, t2: f64, best: &mut (f64, f64, f64)| {
-        let ts = sim.settling(t1, t2);
-        if ts < best.0 {
-            *best = (ts, t1, t2);
-        }
+    let mut search = Search {
+        t_max: sim.search_span(),
+        sim,
+        best: (f64::INFINITY, 0.0, 0.0),
     };
-    let no_counter = |_: f64| Some(0.0);
-    let rest = |t1: f64| sim.rest_switch(t1, 0.5 * t_max);
-    // Bang, then hold: a grid (enough for a plant that settles by itself on the hold), and the
-    // first bang long enough for the resting output to reach the band (what a plant with an
-    // integrator needs).
-    const N1: usize = 240;
-    for i in 0..=N1 {
-        consider(t_max * i as f64 / N1 as f64, 0.0, &mut best);
-    }
-    if let Some(t1) = sim.band_edge(t_max, no_counter) {
-        for k in 0..=20 {
-            consider(t1 * (1.0 + 0.002 * k as f64), 0.0, &mut best);
-        }
-    }
+    search.bang_hold();
     if q.plant.n > 1 {
-        // Bang, counter-bang, then hold: a grid, the counter-bang that brings the output to rest
-        // for each first bang, and the first bang whose resting output reaches the band.
-        const M1: usize = 60;
-        const M2: usize = 30;
-        for i in 0..=M1 {
-            let t1 = t_max * i as f64 / M1 as f64;
-            for j in 1..=M2 {
-                consider(t1, 0.5 * t_max * j as f64 / M2 as f64, &mut best);
-            }
-            if let Some(t2) = rest(t1) {
-                consider(t1, t2, &mut best);
-            }
-        }
-        if let Some(t1) = sim.band_edge(t_max, rest) {
-            for k in 0..=20 {
-                let t1 = t1 * (1.0 + 0.002 * k as f64);
-                if let Some(t2) = rest(t1) {
-                    consider(t1, t2, &mut best);
-                }
-            }
-        }
+        search.bang_bang_hold();
     }
-    // Refine around the best found on finer local grids.
-    let mut step = t_max / N1 as f64;
-    for _ in 0..3 {
-        let (_, c1, c2) = best;
-        for i in -10..=10 {
-            let t1 = (c1 + step * i as f64 / 5.0).max(0.0);
-            if q.plant.n > 1 && c2 > 0.0 {
-                for j in -10..=10 {
-                    consider(t1, (c2 + step * j as f64 / 5.0).max(0.0), &mut best);
-                }
-                if let Some(t2) = rest(t1) {
-                    consider(t1, t2, &mut best);
-                }
-            } else {
-                consider(t1, 0.0, &mut best);
-            }
-        }
-        step /= 5.0;
-    }
-    let (ts, t1, t2) = best;
+    search.refine();
+    let (ts, t1, t2) = search.best;
     if !ts.is_finite() {
         return Fastest::Unreachable;
     }
@@ -253,6 +199,92 @@ pub fn fastest(q: &Question) -> Fastest {
             u_near,
             u_hold,
         },
+    }
+}
+
+/// The search over (t1, t2): the best settling time found so far and where.
+struct Search<'q> {
+    sim: Sim<'q>,
+    t_max: f64,
+    /// (settling time, t1, t2).
+    best: (f64, f64, f64),
+}
+
+impl Search<'_> {
+    /// Steps of the first grid over t1.
+    const N1: usize = 240;
+
+    fn consider(&mut self, t1: f64, t2: f64) {
+        let ts = self.sim.settling(t1, t2);
+        if ts < self.best.0 {
+            self.best = (ts, t1, t2);
+        }
+    }
+
+    /// The counter-bang after a first bang of `t1` that brings the output to rest.
+    fn rest(&self, t1: f64) -> Option<f64> {
+        self.sim.rest_switch(t1, 0.5 * self.t_max)
+    }
+
+    /// Bang, then hold: a grid (enough for a plant that settles by itself on the hold), and the
+    /// first bang long enough for the resting output to reach the band (what a plant with an
+    /// integrator needs).
+    fn bang_hold(&mut self) {
+        for i in 0..=Self::N1 {
+            self.consider(self.t_max * i as f64 / Self::N1 as f64, 0.0);
+        }
+        if let Some(t1) = self.sim.band_edge(self.t_max, |_| Some(0.0)) {
+            for k in 0..=20 {
+                self.consider(t1 * (1.0 + 0.002 * k as f64), 0.0);
+            }
+        }
+    }
+
+    /// Bang, counter-bang, then hold: a grid, the counter-bang that brings the output to rest
+    /// for each first bang, and the first bang whose resting output reaches the band.
+    fn bang_bang_hold(&mut self) {
+        const M1: usize = 60;
+        const M2: usize = 30;
+        for i in 0..=M1 {
+            let t1 = self.t_max * i as f64 / M1 as f64;
+            for j in 1..=M2 {
+                self.consider(t1, 0.5 * self.t_max * j as f64 / M2 as f64);
+            }
+            if let Some(t2) = self.rest(t1) {
+                self.consider(t1, t2);
+            }
+        }
+        if let Some(t1) = self.sim.band_edge(self.t_max, |t1| self.rest(t1)) {
+            for k in 0..=20 {
+                let t1 = t1 * (1.0 + 0.002 * k as f64);
+                if let Some(t2) = self.rest(t1) {
+                    self.consider(t1, t2);
+                }
+            }
+        }
+    }
+
+    /// Refines around the best found on three ever finer local grids.
+    fn refine(&mut self) {
+        let two_phases = self.sim.q.plant.n > 1;
+        let mut step = self.t_max / Self::N1 as f64;
+        for _ in 0..3 {
+            let (_, c1, c2) = self.best;
+            for i in -10..=10 {
+                let t1 = (c1 + step * i as f64 / 5.0).max(0.0);
+                if two_phases && c2 > 0.0 {
+                    for j in -10..=10 {
+                        self.consider(t1, (c2 + step * j as f64 / 5.0).max(0.0));
+                    }
+                    if let Some(t2) = self.rest(t1) {
+                        self.consider(t1, t2);
+                    }
+                } else {
+                    self.consider(t1, 0.0);
+                }
+            }
+            step /= 5.0;
+        }
     }
 }
 

@@ -287,56 +287,51 @@ struct OscillationFit {
     to: usize,
 }
 
-/// Hägglund's test on one hold: half-cycles of the control error whose IAE exceeds that of a
-/// sine of amplitude `band` over the same half-period, counted with exponential forgetting over
-/// 50 periods; more than 10 make an oscillation.
-fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<OscillationFit> {
+/// One half-cycle of the control error between two zero crossings.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct HalfCycle {
+    start: usize,
+    end: usize,
+    duration: f64,
+    /// Largest |error| in it.
+    peak: f64,
+    /// Whether its IAE exceeds that of a sine of the acceptable amplitude.
+    large: bool,
+}
+
+/// The half-cycles of the control error in a hold. A half-cycle is large when its IAE exceeds
+/// that of a sine of amplitude `band` over the same half-period: the IAE of a·sin over one
+/// half-period T/2 is 2a/ω = a·T/π.
+fn half_cycles(series: &Series, h: &Hold, band: f64) -> Vec<HalfCycle> {
     let (t, sp, pv) = (series.time_s(), series.sp(), series.pv());
     let e = |i: usize| sp[i] - pv[i];
-    // Zero crossings of the error.
-    let mut crossings = Vec::new();
-    for i in h.start + 1..h.end {
-        if (e(i) > 0.0) != (e(i - 1) > 0.0) {
-            crossings.push(i);
-        }
-    }
-    // Half-cycles with their IAE, duration and peak.
-    struct Half {
-        start: usize,
-        end: usize,
-        duration: f64,
-        peak: f64,
-        large: bool,
-    }
-    let halves: Vec<Half> = crossings
+    let crossings: Vec<usize> = (h.start + 1..h.end)
+        .filter(|&i| (e(i) > 0.0) != (e(i - 1) > 0.0))
+        .collect();
+    crossings
         .windows(2)
         .map(|w| {
             let (a, b) = (w[0], w[1]);
             let iae: f64 = (a..b).map(|i| e(i).abs() * (t[i + 1] - t[i])).sum();
             let duration = t[b] - t[a];
-            let peak = (a..b).map(|i| e(i).abs()).fold(0.0, f64::max);
-            // IAE of a·sin over one half-period T/2 is 2a/ω = a·T/π.
-            let limit = band * duration / std::f64::consts::PI * 2.0;
-            Half {
+            HalfCycle {
                 start: a,
                 end: b,
                 duration,
-                peak,
-                large: iae > limit,
+                peak: (a..b).map(|i| e(i).abs()).fold(0.0, f64::max),
+                large: iae > 2.0 * band * duration / std::f64::consts::PI,
             }
         })
-        .collect();
-    let large: Vec<&Half> = halves.iter().filter(|h| h.large).collect();
-    if large.len() < 2 {
-        return None;
-    }
-    let mut durations: Vec<f64> = large.iter().map(|h| h.duration).collect();
-    let half_period = median_in_place(&mut durations);
-    let t_sup = SUPERVISION_PERIODS * 2.0 * half_period;
+        .collect()
+}
+
+/// Counts large half-cycles with exponential forgetting over `t_sup`: the largest count and the
+/// samples `[from, to)` of the run that reached it.
+fn forgetting_count(t: &[f64], large: &[HalfCycle], t_sup: f64) -> (f64, usize, usize) {
     let (mut count, mut best, mut last_t) = (0.0f64, 0.0f64, t[large[0].start]);
     let (mut from, mut to) = (large[0].start, large[0].end);
     let mut run_start = large[0].start;
-    for hc in &large {
+    for hc in large {
         let now = t[hc.end];
         count = count * (-(now - last_t) / t_sup).exp() + 1.0;
         last_t = now;
@@ -349,10 +344,27 @@ fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<OscillationFit
             run_start = hc.start;
         }
     }
+    (best, from, to)
+}
+
+/// Hägglund's test on one hold: large half-cycles counted with exponential forgetting over 50
+/// periods; more than 10 make an oscillation.
+fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<OscillationFit> {
+    let large: Vec<HalfCycle> = half_cycles(series, h, band)
+        .into_iter()
+        .filter(|hc| hc.large)
+        .collect();
+    if large.len() < 2 {
+        return None;
+    }
+    let mut durations: Vec<f64> = large.iter().map(|h| h.duration).collect();
+    let half_period = median_in_place(&mut durations);
+    let t_sup = SUPERVISION_PERIODS * 2.0 * half_period;
+    let (best, from, to) = forgetting_count(series.time_s(), &large, t_sup);
     if best <= N_LIM {
         return None;
     }
-    let counted: Vec<&&Half> = large
+    let counted: Vec<&HalfCycle> = large
         .iter()
         .filter(|hc| hc.start >= from && hc.end <= to)
         .collect();
