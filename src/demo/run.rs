@@ -343,6 +343,9 @@ pub async fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<(), DemoE
     Ok(simulate(options, &files, broker, device, out).await?)
 }
 
+/// Ctrl-C or SIGTERM, shared by every phase of the run.
+type Interrupt = std::pin::Pin<Box<dyn std::future::Future<Output = ()> + Send>>;
+
 /// The accelerated run, its summary, and the real-time run after it with `keep_running`.
 async fn simulate(
     options: &DemoOptions,
@@ -373,7 +376,6 @@ async fn simulate(
     };
 
     let mut daemon = RunningDaemon::start(files, &defs, ports, speed, clock.clone()).await?;
-    let committed = daemon.committed.clone();
     let reader = Store::open_read_only(&files.store)
         .await
         .context("cannot open the demo's store for reading")?;
@@ -391,9 +393,83 @@ async fn simulate(
         start_ms,
         publish_tx,
     };
+    announce(out, options, files, &broker, &side)?;
+    let wall_start = Instant::now();
+    let progress = Progress::start(
+        shared.clone(),
+        daemon.committed.clone(),
+        reader.clone(),
+        start_ms,
+        duration_s,
+    );
+    let mut interrupt: Interrupt = Box::pin(crate::daemon::shutdown::shutdown_signal());
+    let mut interrupted =
+        send_first_samples(&mut side, &daemon, &broker, files, &mut interrupt).await?;
+    let mut sim_s = 0.0f64;
+    if !interrupted {
+        match accelerated(&mut side, &mut daemon, options, &mut interrupt, &mut sim_s).await {
+            Ok(i) => interrupted = i,
+            Err(e) => {
+                progress.stop().await;
+                return Err(e);
+            }
+        }
+    }
+    side.publish().await?;
+    let caught_up = wait_for_commits(&shared, &daemon.committed).await;
+    let run_wall = wall_start.elapsed();
+    progress.stop().await;
+    if !caught_up {
+        tracing::warn!("the daemon had not committed everything it was sent when the demo ended");
+    }
+    let config = daemon.config.clone();
+    // The daemon closes the store last, so SQLite folds its write-ahead log back into the file.
+    reader.close().await;
+    daemon.stop().await?;
+    let facts = summary::RunFacts {
+        simulated_s: plant_time(&shared, start_ms),
+        wall: run_wall,
+        speed,
+        interrupted,
+        files: summary::FilePaths {
+            config: files.config.clone(),
+            store: files.store.clone(),
+            log: files.log.clone(),
+            reports: Vec::new(),
+        },
+    };
+    summarise(files, &config, &defs, &shared, start_ms, facts, out).await?;
 
+    if options.keep_running && !interrupted {
+        // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
+        let daemon = RunningDaemon::start(files, &defs, ports, 1.0, clock).await?;
+        real_time(
+            &mut side,
+            daemon,
+            &broker,
+            ports,
+            &mut interrupt,
+            sim_s,
+            out,
+        )
+        .await?;
+    }
+    drop(side);
+    stop_publisher.send_replace(true);
+    Ok(())
+}
+
+/// What runs where, printed before the run starts.
+fn announce(
+    out: &mut dyn Write,
+    options: &DemoOptions,
+    files: &Files,
+    broker: &broker::EmbeddedBroker,
+    side: &PlantSide,
+) -> anyhow::Result<()> {
     let via = |link: Link| {
-        defs.iter()
+        side.defs
+            .iter()
             .filter(|d| d.link == link)
             .map(|d| d.tag)
             .collect::<Vec<_>>()
@@ -401,12 +477,13 @@ async fn simulate(
     };
     writeln!(
         out,
-        "Heron Reach pilot plant, simulated: {} loops, {:.1} days of plant time at {speed:.0}× real time.\n\
+        "Heron Reach pilot plant, simulated: {} loops, {:.1} days of plant time at {:.0}× real time.\n\
          MQTT broker (embedded):    mqtt://{}  {} publish on {TOPIC_ROOT}/#, headroom on headroom/#\n\
          Modbus device (simulated): {}  {} in its registers\n\
          headroom's store: {}   log: {}",
-        defs.len(),
-        duration_s / 86_400.0,
+        side.defs.len(),
+        options.duration_s / 86_400.0,
+        options.speed,
         broker.addr,
         via(Link::Mqtt),
         side.device.addr(),
@@ -415,27 +492,25 @@ async fn simulate(
         files.log.display()
     )?;
     out.flush()?;
-    let wall_start = Instant::now();
-    let progress = Progress::start(
-        shared.clone(),
-        committed.clone(),
-        reader.clone(),
-        start_ms,
-        duration_s,
-    );
+    Ok(())
+}
 
-    let interrupt = crate::daemon::shutdown::shutdown_signal();
-    tokio::pin!(interrupt);
-    let mut interrupted = false;
-
-    // The first samples go out until the daemon has stored them: messages published before its
-    // subscription is in place are dropped by the broker, and inserts are idempotent, so sending
-    // the same samples again is harmless.
+/// Sends the first samples until the daemon has stored them: messages published before its
+/// subscription is in place are dropped by the broker, and inserts are idempotent, so sending
+/// the same samples again is harmless. Returns whether the run was interrupted meanwhile.
+async fn send_first_samples(
+    side: &mut PlantSide,
+    daemon: &RunningDaemon,
+    broker: &broker::EmbeddedBroker,
+    files: &Files,
+    interrupt: &mut Interrupt,
+) -> anyhow::Result<bool> {
     side.advance(0.0);
-    let first = side.outbox.drain(&defs);
+    let first = side.outbox.drain(&side.defs);
     let first_count: u64 = first.iter().map(|m| m.2).sum();
     let deadline = Instant::now() + FIRST_SAMPLES_TIMEOUT;
-    while committed.load(Ordering::Relaxed) < first_count {
+    let mut interrupted = false;
+    while daemon.committed.load(Ordering::Relaxed) < first_count {
         for (t, p, _) in &first {
             side.publish_tx
                 .send((t.clone(), p.clone()))
@@ -451,37 +526,47 @@ async fn simulate(
         );
         tokio::select! {
             _ = tokio::time::sleep(Duration::from_millis(300)) => {}
-            _ = &mut interrupt => { interrupted = true; break; }
+            _ = &mut *interrupt => { interrupted = true; break; }
         }
     }
-    shared.published.fetch_add(first_count, Ordering::Relaxed);
+    side.shared
+        .published
+        .fetch_add(first_count, Ordering::Relaxed);
+    Ok(interrupted)
+}
 
-    // The accelerated run. One tick is one Modbus sample period of plant time (at least 1 ms,
-    // tokio's timer resolution), so each poll finds new values.
+/// The accelerated run. One tick is one Modbus sample period of plant time (at least 1 ms,
+/// tokio's timer resolution), so each poll finds new values. Plant time waits while the daemon
+/// lags too far behind. Returns whether the run was interrupted.
+async fn accelerated(
+    side: &mut PlantSide,
+    daemon: &mut RunningDaemon,
+    options: &DemoOptions,
+    interrupt: &mut Interrupt,
+    sim_s: &mut f64,
+) -> anyhow::Result<bool> {
+    let (duration_s, speed) = (options.duration_s, options.speed);
     let tick_wall = Duration::from_secs_f64((MODBUS_PERIOD_S / speed).clamp(0.001, 0.05));
     let max_step = MAX_TICK_WALL.max(2 * tick_wall);
-    let mut sim_s = 0.0f64;
     let mut last = Instant::now();
     let mut last_publish = Instant::now();
     let mut tick = tokio::time::interval(tick_wall);
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
-    while !interrupted && side.plant.time_s() < duration_s {
+    while side.plant.time_s() < duration_s {
         tokio::select! {
             _ = tick.tick() => {}
-            _ = &mut interrupt => { interrupted = true; }
-            res = &mut daemon.task => {
-                progress.stop().await;
-                return Err(daemon_ended(res));
-            }
+            _ = &mut *interrupt => return Ok(true),
+            res = &mut daemon.task => return Err(daemon_ended(res)),
         }
         let dt = last.elapsed().min(max_step);
         last = Instant::now();
-        let lag = shared
+        let lag = side
+            .shared
             .published
             .load(Ordering::Relaxed)
-            .saturating_sub(committed.load(Ordering::Relaxed));
+            .saturating_sub(daemon.committed.load(Ordering::Relaxed));
         if lag < MAX_LAG_SAMPLES {
-            sim_s = (sim_s + speed * dt.as_secs_f64()).min(duration_s);
+            *sim_s = (*sim_s + speed * dt.as_secs_f64()).min(duration_s);
         }
         side.advance(sim_s.floor());
         if last_publish.elapsed() >= PUBLISH_EVERY || side.plant.time_s() >= duration_s {
@@ -489,73 +574,65 @@ async fn simulate(
             side.publish().await?;
         }
     }
-    side.publish().await?;
-    let caught_up = wait_for_commits(&shared, &committed).await;
-    let run_wall = wall_start.elapsed();
-    progress.stop().await;
-    if !caught_up {
-        tracing::warn!("the daemon had not committed everything it was sent when the demo ended");
-    }
-    let config = daemon.config.clone();
-    // The daemon closes the store last, so SQLite folds its write-ahead log back into the file.
-    reader.close().await;
-    daemon.stop().await?;
+    Ok(false)
+}
 
+/// The summary of the run, read back from the store, and its loop-health report.
+async fn summarise(
+    files: &Files,
+    config: &Config,
+    defs: &[LoopDef],
+    shared: &Shared,
+    start_ms: i64,
+    mut facts: summary::RunFacts,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
     let reader = Store::open_read_only(&files.store)
         .await
         .context("cannot open the demo's store for reading")?;
-    let summaries = summary::gather(&reader, &config, &files.config, &defs).await?;
-    let reports = write_report(&reader, &config, files, start_ms, plant_end_ms(&shared)).await?;
-    summary::render(
-        &summaries,
-        &summary::RunFacts {
-            simulated_s: plant_time(&shared, start_ms),
-            wall: run_wall,
-            speed,
-            interrupted,
-            files: summary::FilePaths {
-                config: files.config.clone(),
-                store: files.store.clone(),
-                log: files.log.clone(),
-                reports,
-            },
-        },
-        out,
-    )?;
+    let summaries = summary::gather(&reader, config, &files.config, defs).await?;
+    facts.files.reports =
+        write_report(&reader, config, files, start_ms, plant_end_ms(shared)).await?;
+    summary::render(&summaries, &facts, out)?;
     reader.close().await;
-
-    if options.keep_running && !interrupted {
-        // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
-        let mut daemon = RunningDaemon::start(files, &defs, ports, 1.0, clock).await?;
-        writeln!(
-            out,
-            "\nStill running, now in real time: the plant, the broker at mqtt://{addr}, the Modbus \
-             device at {dev} and the daemon. Watch with any MQTT client, e.g.\n  \
-             mosquitto_sub -h 127.0.0.1 -p {port} -t '{TOPIC_ROOT}/#' -t 'headroom/#' -v\n\
-             Ctrl-C stops.",
-            addr = broker.addr,
-            dev = side.device.addr(),
-            port = ports.0,
-        )?;
-        out.flush()?;
-        let mut tick = tokio::time::interval(Duration::from_millis(250));
-        let mut last = Instant::now();
-        loop {
-            tokio::select! {
-                _ = tick.tick() => {}
-                _ = &mut interrupt => break,
-                res = &mut daemon.task => return Err(daemon_ended(res)),
-            }
-            sim_s += last.elapsed().as_secs_f64();
-            last = Instant::now();
-            side.advance(sim_s.floor());
-            side.publish().await?;
-        }
-        daemon.stop().await?;
-    }
-    drop(side);
-    stop_publisher.send_replace(true);
     Ok(())
+}
+
+/// After the accelerated run: the plant in real time against a new daemon, until Ctrl-C.
+async fn real_time(
+    side: &mut PlantSide,
+    mut daemon: RunningDaemon,
+    broker: &broker::EmbeddedBroker,
+    ports: (u16, u16),
+    interrupt: &mut Interrupt,
+    mut sim_s: f64,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
+    writeln!(
+        out,
+        "\nStill running, now in real time: the plant, the broker at mqtt://{addr}, the Modbus \
+         device at {dev} and the daemon. Watch with any MQTT client, e.g.\n  \
+         mosquitto_sub -h 127.0.0.1 -p {port} -t '{TOPIC_ROOT}/#' -t 'headroom/#' -v\n\
+         Ctrl-C stops.",
+        addr = broker.addr,
+        dev = side.device.addr(),
+        port = ports.0,
+    )?;
+    out.flush()?;
+    let mut tick = tokio::time::interval(Duration::from_millis(250));
+    let mut last = Instant::now();
+    loop {
+        tokio::select! {
+            _ = tick.tick() => {}
+            _ = &mut *interrupt => break,
+            res = &mut daemon.task => return Err(daemon_ended(res)),
+        }
+        sim_s += last.elapsed().as_secs_f64();
+        last = Instant::now();
+        side.advance(sim_s.floor());
+        side.publish().await?;
+    }
+    daemon.stop().await
 }
 
 fn plant_end_ms(shared: &Shared) -> i64 {
