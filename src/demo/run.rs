@@ -69,6 +69,16 @@ impl Files {
         }
         Ok(())
     }
+
+    /// The paths for the summary; the reports are added once written.
+    fn paths(&self) -> summary::FilePaths {
+        summary::FilePaths {
+            config: self.config.clone(),
+            store: self.store.clone(),
+            log: self.log.clone(),
+            reports: Vec::new(),
+        }
+    }
 }
 
 /// The MQTT topic of one loop signal.
@@ -284,6 +294,29 @@ struct PlantSide {
 }
 
 impl PlantSide {
+    fn new(
+        plant: Plant,
+        device: SimDevice,
+        shared: Arc<Shared>,
+        start_ms: i64,
+        publish_tx: mpsc::Sender<(String, Vec<u8>)>,
+    ) -> PlantSide {
+        let defs = plant.defs().to_vec();
+        PlantSide {
+            layouts: defs
+                .iter()
+                .map(|d| registers::layout(d.tag).filter(|_| d.link == Link::Modbus))
+                .collect(),
+            outbox: Outbox::new(defs.len(), start_ms),
+            plant,
+            defs,
+            device,
+            shared,
+            start_ms,
+            publish_tx,
+        }
+    }
+
     /// Advances the plant to `t_s`, queues the MQTT loops' samples, and writes the Modbus loops'
     /// current values into the device together with the clock, under the device's lock. A poll
     /// then sees values and a clock of the same moment — or, when the plant moves on between
@@ -343,6 +376,20 @@ pub async fn run(options: &DemoOptions, out: &mut dyn Write) -> Result<(), DemoE
     Ok(simulate(options, &files, broker, device, out).await?)
 }
 
+/// The plant's clock, starting `duration_s` before now on a whole second (so sample stamps are
+/// round), the counters shared with the progress line, and the clock as the daemon reads it.
+fn plant_clock(duration_s: f64) -> (i64, Arc<Shared>, Clock) {
+    let now_ms = jiff::Timestamp::now().as_millisecond();
+    let start_ms = (now_ms - (duration_s * 1000.0) as i64).div_euclid(1000) * 1000;
+    let shared = Arc::new(Shared::default());
+    shared.clock_ms.store(start_ms, Ordering::Relaxed);
+    let clock: Clock = {
+        let shared = shared.clone();
+        Arc::new(move || shared.clock_ms.load(Ordering::Relaxed))
+    };
+    (start_ms, shared, clock)
+}
+
 /// Ctrl-C or SIGTERM, shared by every phase of the run.
 type Interrupt = std::pin::Pin<Box<dyn std::future::Future<Output = ()> + Send>>;
 
@@ -365,34 +412,13 @@ async fn simulate(
     };
     let plant = Plant::new(horizon_s);
     let defs: Vec<LoopDef> = plant.defs().to_vec();
-    let now_ms = jiff::Timestamp::now().as_millisecond();
-    // Whole seconds, so the plant's sample stamps are round.
-    let start_ms = (now_ms - (duration_s * 1000.0) as i64).div_euclid(1000) * 1000;
-    let shared = Arc::new(Shared::default());
-    shared.clock_ms.store(start_ms, Ordering::Relaxed);
-    let clock: Clock = {
-        let shared = shared.clone();
-        Arc::new(move || shared.clock_ms.load(Ordering::Relaxed))
-    };
-
+    let (start_ms, shared, clock) = plant_clock(duration_s);
     let mut daemon = RunningDaemon::start(files, &defs, ports, speed, clock.clone()).await?;
     let reader = Store::open_read_only(&files.store)
         .await
         .context("cannot open the demo's store for reading")?;
     let (publish_tx, stop_publisher) = start_publisher(ports.0);
-    let mut side = PlantSide {
-        layouts: defs
-            .iter()
-            .map(|d| registers::layout(d.tag).filter(|_| d.link == Link::Modbus))
-            .collect(),
-        outbox: Outbox::new(defs.len(), start_ms),
-        plant,
-        defs: defs.clone(),
-        device,
-        shared: shared.clone(),
-        start_ms,
-        publish_tx,
-    };
+    let mut side = PlantSide::new(plant, device, shared.clone(), start_ms, publish_tx);
     announce(out, options, files, &broker, &side)?;
     let wall_start = Instant::now();
     let progress = Progress::start(
@@ -431,12 +457,7 @@ async fn simulate(
         wall: run_wall,
         speed,
         interrupted,
-        files: summary::FilePaths {
-            config: files.config.clone(),
-            store: files.store.clone(),
-            log: files.log.clone(),
-            reports: Vec::new(),
-        },
+        files: files.paths(),
     };
     summarise(files, &config, &defs, &shared, start_ms, facts, out).await?;
 
