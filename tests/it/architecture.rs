@@ -124,7 +124,8 @@ fn named_paths(code: &str) -> Vec<String> {
         let mut from = 0;
         while let Some(i) = code[from..].find(start) {
             let at = from + i;
-            let clean = at == 0 || !(bytes[at - 1].is_ascii_alphanumeric() || bytes[at - 1] == b'_');
+            let clean =
+                at == 0 || !(bytes[at - 1].is_ascii_alphanumeric() || bytes[at - 1] == b'_');
             let len = code[at..]
                 .find(|c: char| !(c.is_alphanumeric() || c == '_' || c == ':'))
                 .unwrap_or(code.len() - at);
@@ -249,7 +250,11 @@ fn the_import_graph_of_src_has_no_circle() {
             visit(&mut state, v);
         }
     }
-    assert!(state.circles.is_empty(), "import circles: {:?}", state.circles);
+    assert!(
+        state.circles.is_empty(),
+        "import circles: {:?}",
+        state.circles
+    );
 }
 
 #[test]
@@ -279,7 +284,11 @@ fn the_analysis_core_imports_only_itself_and_the_ground() {
     }
     for g in ground {
         let targets = &graph[g];
-        assert!(targets.is_empty(), "{} is ground but imports {targets:?}", g.display());
+        assert!(
+            targets.is_empty(),
+            "{} is ground but imports {targets:?}",
+            g.display()
+        );
     }
 }
 
@@ -377,7 +386,12 @@ fn no_source_file_is_over_a_thousand_lines() {
 fn the_graph_reader_resolves_use_trees_and_relative_paths() {
     assert_eq!(
         expand_use("crate::a::{self, b::{C, d}, e}"),
-        ["crate::a", "crate::a::b::C", "crate::a::b::d", "crate::a::e"]
+        [
+            "crate::a",
+            "crate::a::b::C",
+            "crate::a::b::d",
+            "crate::a::e"
+        ]
     );
     let files: BTreeSet<PathBuf> = ["src/a/mod.rs", "src/a/b.rs", "src/c.rs"]
         .into_iter()
@@ -388,8 +402,14 @@ fn the_graph_reader_resolves_use_trees_and_relative_paths() {
         resolve("super::super::c::Thing", from, &files),
         Some("src/c.rs".into())
     );
-    assert_eq!(resolve("super::Item", from, &files), Some("src/a/mod.rs".into()));
-    assert_eq!(resolve("crate::a::b::f", from, &files), Some("src/a/b.rs".into()));
+    assert_eq!(
+        resolve("super::Item", from, &files),
+        Some("src/a/mod.rs".into())
+    );
+    assert_eq!(
+        resolve("crate::a::b::f", from, &files),
+        Some("src/a/b.rs".into())
+    );
     assert_eq!(resolve("std::fs", from, &files), None);
     assert_eq!(module_of(Path::new("src/a/mod.rs")), ["a"]);
     assert!(named_paths("let x = crate::c::f(); use super::{y, z};").len() >= 3);
