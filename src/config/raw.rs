@@ -83,7 +83,8 @@ pub(super) struct RawSource {
     pub value_field: Option<String>,
     pub time_field: Option<String>,
     pub auto_values: Option<Vec<String>>,
-    // Modbus keys (see [`RawRegister`]); serde cannot flatten under deny_unknown_fields.
+    // Modbus keys (see [`RawSource::register_keys`]); serde cannot flatten under
+    // deny_unknown_fields.
     pub device: Option<String>,
     pub table: Option<Table>,
     pub address: Option<i64>,
@@ -144,23 +145,9 @@ pub(super) struct RawDevice {
     pub max_gap: Option<i64>,
 }
 
-/// The register keys of a signal's source, as written (flattened into the source's table).
-#[derive(Debug, Default, Deserialize)]
-pub(super) struct RawRegister {
-    pub device: Option<String>,
-    pub table: Option<Table>,
-    pub address: Option<i64>,
-    pub data_type: Option<DataType>,
-    pub order: Option<Order>,
-    pub scale: Option<f64>,
-    pub offset: Option<f64>,
-    pub raw_range: Option<[f64; 2]>,
-    pub eng_range: Option<[f64; 2]>,
-}
-
-impl RawRegister {
+impl RawSource {
     /// The register keys that are present, for "does not apply" messages.
-    pub(super) fn given(&self) -> Vec<&'static str> {
+    pub(super) fn register_keys(&self) -> Vec<&'static str> {
         [
             ("device", self.device.is_some()),
             ("table", self.table.is_some()),

@@ -3,7 +3,7 @@
 //! [`ModeSource`] with its automatic values), and the checks of one source as written.
 
 use super::error::Checker;
-use super::raw::{RawFormat, RawRegister, RawSource};
+use super::raw::{RawFormat, RawSource};
 use crate::analysis::AutoValues;
 use crate::modbus::registers::{self, Address, DataType, Scaling, Table};
 use crate::modbus::source::ModbusDevice;
@@ -81,17 +81,6 @@ impl Checker<'_> {
         cx: Context<'_>,
     ) -> (Source, Option<AutoValues>) {
         let auto_values = self.auto_values(tag, signal, raw.auto_values.as_deref());
-        let register = RawRegister {
-            device: raw.device,
-            table: raw.table,
-            address: raw.address,
-            data_type: raw.data_type,
-            order: raw.order,
-            scale: raw.scale,
-            offset: raw.offset,
-            raw_range: raw.raw_range,
-            eng_range: raw.eng_range,
-        };
         let name = signal.as_str();
         let mqtt_keys = [
             ("topic", raw.topic.is_some()),
@@ -99,17 +88,17 @@ impl Checker<'_> {
             ("value_field", raw.value_field.is_some()),
             ("time_field", raw.time_field.is_some()),
         ];
-        if register.device.is_some() {
+        if raw.device.is_some() {
             for (key, _) in mqtt_keys.into_iter().filter(|(_, given)| *given) {
                 self.problem(
                     &["loops", tag, name, key],
                     "a Modbus source (one with `device`) takes no MQTT keys",
                 );
             }
-            let source = self.modbus_source(tag, signal, register, cx.devices);
+            let source = self.modbus_source(tag, signal, &raw, cx.devices);
             return (source, auto_values);
         }
-        for key in register.given() {
+        for key in raw.register_keys() {
             self.problem(
                 &["loops", tag, name, key],
                 "only applies to a Modbus source: add `device = \"<name>\"` naming a \
@@ -229,7 +218,7 @@ impl Checker<'_> {
         &mut self,
         tag: &str,
         signal: Signal,
-        raw: RawRegister,
+        raw: &RawSource,
         devices: &BTreeMap<String, ModbusDevice>,
     ) -> Source {
         let name = signal.as_str();
@@ -249,12 +238,12 @@ impl Checker<'_> {
                 format!("no Modbus device named \"{device}\" ({known})"),
             );
         }
-        let (table, address, data_type) = self.register_place(tag, name, &raw);
+        let (table, address, data_type) = self.register_place(tag, name, raw);
         if raw.order.is_some() && data_type == DataType::Bool {
             self.problem(&at("order"), "a bit has no word or byte order");
         }
         let order = raw.order.unwrap_or_default();
-        let scaling = self.scaling(tag, name, &raw);
+        let scaling = self.scaling(tag, name, raw);
         let register = registers::Source::new(table, address, data_type, order, scaling)
             .unwrap_or_else(|e| {
                 let key = if matches!(e, registers::RegisterError::TypeNotInTable { .. }) {
@@ -284,7 +273,7 @@ impl Checker<'_> {
         &mut self,
         tag: &str,
         name: &str,
-        raw: &RawRegister,
+        raw: &RawSource,
     ) -> (Table, Address, DataType) {
         let table = raw.table.unwrap_or_else(|| {
             self.problem(
@@ -325,7 +314,7 @@ impl Checker<'_> {
 
     /// A register source's scaling: scale and offset, or a raw range onto an engineering range,
     /// or none.
-    fn scaling(&mut self, tag: &str, name: &str, raw: &RawRegister) -> Scaling {
+    fn scaling(&mut self, tag: &str, name: &str, raw: &RawSource) -> Scaling {
         let at = |key: &'static str| ["loops", tag, name, key];
         let linear = raw.scale.is_some() || raw.offset.is_some();
         let ranged = raw.raw_range.is_some() || raw.eng_range.is_some();
