@@ -96,6 +96,26 @@ pub(super) struct RawSource {
     pub eng_range: Option<[f64; 2]>,
 }
 
+impl RawSource {
+    /// The register keys that are present, for "does not apply" messages.
+    pub(super) fn register_keys(&self) -> Vec<&'static str> {
+        [
+            ("device", self.device.is_some()),
+            ("table", self.table.is_some()),
+            ("address", self.address.is_some()),
+            ("data_type", self.data_type.is_some()),
+            ("order", self.order.is_some()),
+            ("scale", self.scale.is_some()),
+            ("offset", self.offset.is_some()),
+            ("raw_range", self.raw_range.is_some()),
+            ("eng_range", self.eng_range.is_some()),
+        ]
+        .into_iter()
+        .filter_map(|(k, g)| g.then_some(k))
+        .collect()
+    }
+}
+
 #[derive(Debug, Clone, Copy, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub(super) enum RawFormat {
@@ -143,24 +163,4 @@ pub(super) struct RawDevice {
     pub timeout_s: Option<f64>,
     pub max_registers_per_request: Option<i64>,
     pub max_gap: Option<i64>,
-}
-
-impl RawSource {
-    /// The register keys that are present, for "does not apply" messages.
-    pub(super) fn register_keys(&self) -> Vec<&'static str> {
-        [
-            ("device", self.device.is_some()),
-            ("table", self.table.is_some()),
-            ("address", self.address.is_some()),
-            ("data_type", self.data_type.is_some()),
-            ("order", self.order.is_some()),
-            ("scale", self.scale.is_some()),
-            ("offset", self.offset.is_some()),
-            ("raw_range", self.raw_range.is_some()),
-            ("eng_range", self.eng_range.is_some()),
-        ]
-        .into_iter()
-        .filter_map(|(k, g)| g.then_some(k))
-        .collect()
-    }
 }

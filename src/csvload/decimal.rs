@@ -56,3 +56,53 @@ pub(super) fn decimal_prefix(bytes: &[u8]) -> (Option<f64>, usize) {
     // As in `finite_number`, -0 becomes +0.
     (Some(if negative && v != 0.0 { -v } else { v }), i)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn plain_decimals_are_read_without_the_general_parse_only_when_exact() {
+        let cases: [(&str, Option<f64>, usize); 12] = [
+            ("12", Some(12.0), 2),
+            ("-0.125", Some(-0.125), 6),
+            ("-0", Some(0.0), 2),
+            ("5.", Some(5.0), 2),
+            ("49.9746,", Some(49.9746), 7),
+            (".5", None, 0),
+            ("-", None, 1),
+            ("1.2.3", Some(1.2), 3),
+            ("9007199254740993", None, 16),
+            ("12345678901234567890", None, 20),
+            ("0.00000000000000000001", None, 22),
+            ("1e5", Some(1.0), 1),
+        ];
+        for (text, value, used) in cases {
+            assert_eq!(decimal_prefix(text.as_bytes()), (value, used), "{text:?}");
+        }
+        assert_eq!(plain_decimal(b"1e5"), None);
+        assert_eq!(plain_decimal(b" 1"), None);
+        assert_eq!(plain_decimal(b"9007199254740992"), Some(9007199254740992.0));
+    }
+
+    mod properties {
+        use super::*;
+        use proptest::prelude::*;
+
+        proptest! {
+            #[test]
+            fn plain_decimals_read_as_the_general_parse_reads_them(
+                text in "-?[0-9]{1,21}(\\.[0-9]{0,23})?",
+            ) {
+                let general = text.parse::<f64>().unwrap();
+                let general = if general == 0.0 { 0.0 } else { general };
+                match plain_decimal(text.as_bytes()) {
+                    Some(v) => prop_assert_eq!(v.to_bits(), general.to_bits()),
+                    // Only numbers with more digits than an f64 holds exactly (2^53 has 16) go
+                    // to the general parse.
+                    None => prop_assert!(text.bytes().filter(u8::is_ascii_digit).count() >= 16),
+                }
+            }
+        }
+    }
+}
