@@ -3,10 +3,13 @@
 //! and the broker settings the daemon relies on.
 
 use super::Config;
-use super::loops::{LoopConfig, PayloadFormat, Source};
-use super::modbus::{self, ModbusDevice, ModbusSource};
+use super::loops::LoopConfig;
+use super::modbus;
 use super::mqtt::{MqttSettings, PasswordSource};
+use super::source::{ModbusSource, Source};
 use crate::modbus::registers::{Scaling, Table};
+use crate::modbus::source::ModbusDevice;
+use crate::mqtt::PayloadFormat;
 use crate::sample::Signal;
 use std::fmt::{Result, Write as _};
 use std::path::Path;

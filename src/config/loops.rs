@@ -1,16 +1,13 @@
 //! `[loops.<tag>]`: one control loop — its units, OP range, spec and analysis settings (the
 //! core's [`Spec`] and [`LoopSetup`], checked by the core's own `problems()`), its sample period
-//! and stale limit, and where each signal comes from ([`Source`]: an MQTT topic with a
-//! [`PayloadFormat`], or Modbus registers; the mode with its automatic values).
+//! and stale limit, and its four signals' [`Source`]s (checked in `source`); and the rule for
+//! loop tags.
 
 use super::error::Checker;
-use super::modbus::{self, ModbusDevice, ModbusSource};
-use super::raw::{RawFormat, RawLoop, RawSource};
-use crate::analysis::{self, AnalysisOptions, AutoValues, LoopSetup, OpRange, Setting, Spec};
-use crate::mqtt::topic;
+use super::raw::{AnalysisConfig, RawLoop, RawSource};
+use super::source::{Context, ModeSource, Source};
+use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Setting, Spec};
 use crate::sample::Signal;
-use serde::Deserialize;
-use std::collections::BTreeMap;
 use std::time::Duration;
 
 /// One loop.
@@ -36,78 +33,6 @@ pub struct LoopConfig {
     pub pv: Option<Source>,
     pub op: Option<Source>,
     pub mode: Option<ModeSource>,
-}
-
-/// Optional analysis settings per loop; anything left out is derived from the data.
-#[derive(Debug, Clone, Copy, Default, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct AnalysisConfig {
-    pub sp_deadband: Option<f64>,
-    pub sp_hold_s: Option<f64>,
-    pub max_gap_s: Option<f64>,
-    pub upgrade_ratio_limit: Option<f64>,
-}
-
-/// Where one signal's samples come from.
-#[derive(Debug, Clone, PartialEq)]
-#[non_exhaustive]
-pub enum Source {
-    /// Messages on an MQTT topic filter.
-    Mqtt(MqttSource),
-    /// Registers (or bits) of a Modbus TCP device, read by polling.
-    Modbus(ModbusSource),
-}
-
-impl Source {
-    /// The MQTT source, if this is one.
-    pub fn as_mqtt(&self) -> Option<&MqttSource> {
-        match self {
-            Source::Mqtt(m) => Some(m),
-            Source::Modbus(_) => None,
-        }
-    }
-
-    /// The Modbus source, if this is one.
-    pub fn as_modbus(&self) -> Option<&ModbusSource> {
-        match self {
-            Source::Modbus(m) => Some(m),
-            Source::Mqtt(_) => None,
-        }
-    }
-}
-
-/// An MQTT topic filter (`+` and `#` allowed) and how its payloads are written.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct MqttSource {
-    pub topic: String,
-    pub format: PayloadFormat,
-}
-
-/// How a payload is written.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub enum PayloadFormat {
-    /// Plain text holding one number, whitespace around it allowed (`21.5`). For a mode signal,
-    /// plain text holding a number or a word (`AUTO`).
-    Number,
-    /// A JSON object holding the value and optionally its time, or an array of such objects.
-    Json(JsonFields),
-}
-
-/// The field names of a JSON payload.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct JsonFields {
-    /// The value's field (default `value`).
-    pub value_field: String,
-    /// The timestamp's field (default `time`): an RFC 3339 string or epoch milliseconds. A
-    /// message without it is timed by its receipt.
-    pub time_field: String,
-}
-
-/// The mode signal's source and which of its values mean the loop is in automatic.
-#[derive(Debug, Clone, PartialEq)]
-pub struct ModeSource {
-    pub source: Source,
-    pub auto_values: AutoValues,
 }
 
 impl LoopConfig {
@@ -201,15 +126,6 @@ fn setting_keys<'a>(tag: &'a str, p: &analysis::Problem) -> Vec<&'a str> {
         .chain(section)
         .chain([key])
         .collect()
-}
-
-/// What a source's checks need to know of the rest of the file.
-#[derive(Clone, Copy)]
-pub(super) struct Context<'a> {
-    /// Whether the file has an `[mqtt]` section.
-    pub have_mqtt: bool,
-    /// The configured Modbus devices.
-    pub devices: &'a BTreeMap<String, ModbusDevice>,
 }
 
 /// A loop's four sources as checked.
@@ -309,158 +225,6 @@ impl Checker<'_> {
             );
         }
     }
-
-    /// A signal's source, and the mode's automatic values when given.
-    fn source(
-        &mut self,
-        tag: &str,
-        signal: Signal,
-        raw: RawSource,
-        cx: Context<'_>,
-    ) -> (Source, Option<AutoValues>) {
-        let auto_values = self.auto_values(tag, signal, raw.auto_values.as_deref());
-        let register = modbus::RawRegister {
-            device: raw.device,
-            table: raw.table,
-            address: raw.address,
-            data_type: raw.data_type,
-            order: raw.order,
-            scale: raw.scale,
-            offset: raw.offset,
-            raw_range: raw.raw_range,
-            eng_range: raw.eng_range,
-        };
-        let name = signal.as_str();
-        let mqtt_keys = [
-            ("topic", raw.topic.is_some()),
-            ("format", raw.format.is_some()),
-            ("value_field", raw.value_field.is_some()),
-            ("time_field", raw.time_field.is_some()),
-        ];
-        if register.device.is_some() {
-            for (key, _) in mqtt_keys.into_iter().filter(|(_, given)| *given) {
-                self.problem(
-                    &["loops", tag, name, key],
-                    "a Modbus source (one with `device`) takes no MQTT keys",
-                );
-            }
-            let source = self.modbus_source(tag, signal, register, cx.devices);
-            return (source, auto_values);
-        }
-        for key in register.given() {
-            self.problem(
-                &["loops", tag, name, key],
-                "only applies to a Modbus source: add `device = \"<name>\"` naming a \
-                 [modbus.<name>] device, or remove it",
-            );
-        }
-        let topic = self.topic_filter(tag, name, raw.topic, cx.have_mqtt);
-        let format = self.payload_format(tag, name, raw.format, raw.value_field, raw.time_field);
-        (Source::Mqtt(MqttSource { topic, format }), auto_values)
-    }
-
-    /// The mode's automatic values; refused on any other signal.
-    fn auto_values(
-        &mut self,
-        tag: &str,
-        signal: Signal,
-        raw: Option<&[String]>,
-    ) -> Option<AutoValues> {
-        let keys = ["loops", tag, signal.as_str(), "auto_values"];
-        let v = raw?;
-        if signal != Signal::Mode {
-            self.problem(&keys, "auto_values only applies to the mode signal");
-            return None;
-        }
-        if v.is_empty() || v.iter().any(|x| x.trim().is_empty()) {
-            self.problem(
-                &keys,
-                "list at least one value, none of them blank (e.g. [\"AUTO\", \"CAS\"])",
-            );
-        }
-        Some(AutoValues::new(v))
-    }
-
-    /// An MQTT source's topic filter: present, valid, and with a broker to read it from.
-    fn topic_filter(
-        &mut self,
-        tag: &str,
-        name: &str,
-        topic: Option<String>,
-        have_mqtt: bool,
-    ) -> String {
-        let Some(topic) = topic else {
-            self.problem(
-                &["loops", tag, name],
-                "a source needs `topic` (an MQTT topic filter) or `device` (a Modbus device)",
-            );
-            return String::new();
-        };
-        let at = ["loops", tag, name, "topic"];
-        if !topic.is_empty() {
-            if let Some(m) = topic::filter_problem(&topic) {
-                self.problem(&at, m);
-            } else if !have_mqtt {
-                self.problem(
-                    &at,
-                    "an MQTT source needs an [mqtt] section naming the broker",
-                );
-            }
-        }
-        topic
-    }
-
-    /// An MQTT source's payload format, with the JSON field names.
-    fn payload_format(
-        &mut self,
-        tag: &str,
-        name: &str,
-        format: Option<RawFormat>,
-        value_field: Option<String>,
-        time_field: Option<String>,
-    ) -> PayloadFormat {
-        let at = |key: &'static str| ["loops", tag, name, key];
-        match format {
-            None => {
-                self.problem(
-                    &["loops", tag, name],
-                    "a source needs `format`: \"number\" (plain text) or \"json\"",
-                );
-                PayloadFormat::Number
-            }
-            Some(RawFormat::Number) => {
-                for (key, given) in [
-                    ("value_field", value_field.is_some()),
-                    ("time_field", time_field.is_some()),
-                ] {
-                    if given {
-                        self.problem(&at(key), "only applies to format = \"json\"");
-                    }
-                }
-                PayloadFormat::Number
-            }
-            Some(RawFormat::Json) => {
-                let value_field = value_field.unwrap_or_else(|| "value".into());
-                let time_field = time_field.unwrap_or_else(|| "time".into());
-                if value_field.is_empty() {
-                    self.problem(&at("value_field"), "cannot be empty");
-                }
-                if time_field.is_empty() {
-                    self.problem(&at("time_field"), "cannot be empty");
-                }
-                if value_field == time_field {
-                    self.problem(
-                        &at("time_field"),
-                        format!("must differ from value_field (both are \"{value_field}\")"),
-                    );
-                }
-                PayloadFormat::Json(JsonFields {
-                    value_field,
-                    time_field,
-                })
-            }
-        }
-    }
 }
 
 /// Why a loop tag (or a device name) is unusable. Tags name loops in the store, in alerts and
@@ -486,7 +250,7 @@ pub(super) fn tag_problem(tag: &str) -> Option<String> {
 
 #[cfg(test)]
 mod tests {
-    use super::*;
+    use crate::analysis::AutoValues;
     use crate::config::fixture::{GOOD, PLANT, problems, refusal_in};
 
     #[test]
@@ -542,57 +306,6 @@ mod tests {
         );
         let err = problems(&text);
         assert!(err.contains("stale_after_periods"), "{err}");
-    }
-
-    #[test]
-    fn a_source_needs_a_topic_and_a_format() {
-        let err = problems(&PLANT.replace(
-            "{ topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
-            "{ format = \"number\" }",
-        ));
-        assert!(
-            err.contains("loops.FIC-201.sp:") && err.contains("topic"),
-            "{err}"
-        );
-        let err = problems(&PLANT.replace(
-            "{ topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
-            "{ topic = \"plant/feed/FIC-201/sp\" }",
-        ));
-        assert!(
-            err.contains("loops.FIC-201.sp:") && err.contains("format"),
-            "{err}"
-        );
-        let err = problems(&PLANT.replace("format = \"json\"", "format = \"xml\""));
-        assert!(
-            err.starts_with("plant.toml:20:") && err.contains("xml"),
-            "{err}"
-        );
-    }
-
-    #[test]
-    fn keys_that_do_not_apply_to_a_source_are_refused() {
-        let err = problems(&PLANT.replace(
-            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
-            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\", value_field = \"v\" }",
-        ));
-        assert!(err.contains("loops.FIC-201.sp.value_field"), "{err}");
-        let err = problems(&PLANT.replace(
-            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\" }",
-            "sp = { topic = \"plant/feed/FIC-201/sp\", format = \"number\", \
-             auto_values = [\"AUTO\"] }",
-        ));
-        assert!(err.contains("loops.FIC-201.sp.auto_values"), "{err}");
-        let err = problems(&PLANT.replace("time_field = \"ts\"", "time_field = \"value\""));
-        assert!(err.contains("loops.TIC-101.pv.time_field"), "{err}");
-    }
-
-    #[test]
-    fn mqtt_sources_need_an_mqtt_section() {
-        let start = PLANT.find("[mqtt]").unwrap();
-        let end = PLANT.find("[loops.TIC-101]").unwrap();
-        let text = format!("{}{}", &PLANT[..start], &PLANT[end..]);
-        let err = problems(&text);
-        assert!(err.contains("[mqtt]"), "{err}");
     }
 
     #[test]

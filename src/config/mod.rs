@@ -52,11 +52,14 @@
 //!   [`Config::store_path`], [`Config::subscriptions`], and `[store]`;
 //! - `error`: [`ConfigError`], [`Problem`] with its file position, and the checker that
 //!   collects and locates problems;
-//! - `raw`: the private structs that mirror the TOML;
+//! - `raw`: the private structs that mirror the TOML (and [`AnalysisConfig`], read as is);
 //! - `mqtt`: `[mqtt]` ([`MqttSettings`], [`Secret`], [`PasswordSource`]), broker URL and client
 //!   id rules, and the topic checks across loops;
-//! - `loops`: `[loops.<tag>]` ([`LoopConfig`], [`Source`], [`ModeSource`], [`PayloadFormat`]);
-//! - [`modbus`]: `[modbus.<name>]` devices and register sources;
+//! - `source`: a signal's source as checked ([`Source`], [`MqttSource`], [`ModbusSource`],
+//!   [`ModeSource`]) and the checks of one source as written;
+//! - `loops`: `[loops.<tag>]` ([`LoopConfig`]) and the loop tag rule;
+//! - [`modbus`]: `[modbus.<name>]` devices (checked into the Modbus source's own
+//!   [`ModbusDevice`]), and the register sources' use of them across loops;
 //! - `report`: `[report]` ([`ReportSettings`]);
 //! - `describe`: [`Config::describe`], what `check-config` prints;
 //! - `fixture` (tests only): config text built from one set of pieces, for tests anywhere in
@@ -71,16 +74,19 @@ pub mod modbus;
 mod mqtt;
 mod raw;
 mod report;
+mod source;
 
 pub use error::{ConfigError, Problem};
-pub use loops::{
-    AnalysisConfig, JsonFields, LoopConfig, ModeSource, MqttSource, PayloadFormat, Source,
-};
-pub use modbus::{ModbusDevice, ModbusSource};
+pub use loops::LoopConfig;
 pub use mqtt::{MqttSettings, PasswordSource, Secret};
+pub use raw::AnalysisConfig;
 pub use report::ReportSettings;
+pub use source::{ModbusSource, ModeSource, MqttSource, Source};
 
 use crate::analysis::LoopSetup;
+use crate::modbus::source::ModbusDevice;
+use crate::mqtt::Route;
+use crate::sample::Signal;
 use error::Checker;
 use raw::{RawConfig, RawStore};
 use std::collections::{BTreeMap, BTreeSet};
@@ -179,6 +185,29 @@ impl Config {
             .collect();
         set.into_iter().map(str::to_owned).collect()
     }
+
+    /// Every MQTT source as a route from its topic filter to its loop signal, in loop and signal
+    /// order: what the daemon's topic map is built from.
+    pub fn mqtt_routes(&self) -> Vec<Route> {
+        let mut routes = Vec::new();
+        for (tag, l) in &self.loops {
+            let loop_tag: std::sync::Arc<str> = std::sync::Arc::from(tag.as_str());
+            for (signal, source) in l.sources() {
+                let Some(m) = source.as_mqtt() else { continue };
+                routes.push(Route {
+                    filter: m.topic.clone(),
+                    loop_tag: loop_tag.clone(),
+                    signal,
+                    format: m.format.clone(),
+                    auto_values: match (signal, &l.mode) {
+                        (Signal::Mode, Some(mode)) => Some(mode.auto_values.clone()),
+                        _ => None,
+                    },
+                });
+            }
+        }
+        routes
+    }
 }
 
 impl Checker<'_> {
@@ -186,7 +215,7 @@ impl Checker<'_> {
         let store = raw.store.map(|s| self.store(s)).unwrap_or_default();
         let mqtt = raw.mqtt.map(|m| self.mqtt(m));
         let modbus = self.modbus_devices(raw.modbus);
-        let cx = loops::Context {
+        let cx = source::Context {
             have_mqtt: mqtt.is_some(),
             devices: &modbus,
         };
@@ -242,6 +271,7 @@ pub(super) fn relative_to(dir: &Path, path: &Path) -> PathBuf {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::mqtt::{JsonFields, PayloadFormat};
     use fixture::{GOOD, PLANT, parse, problems};
     use std::time::Duration;
 

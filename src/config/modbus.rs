@@ -21,34 +21,15 @@
 //! 40108 in a manual's reference notation is `table = "holding_registers", address = 107`.
 
 use super::error::Checker;
-use super::loops::{LoopConfig, Source, tag_problem};
+use super::loops::{LoopConfig, tag_problem};
+use super::raw::RawDevice;
+use super::source::Source;
 use crate::modbus::plan::{self, Limits, Span};
-use crate::modbus::registers::{self, Address, DataType, Order, Scaling, Table};
+use crate::modbus::registers::{self, Table};
+use crate::modbus::source::ModbusDevice;
 use crate::sample::Signal;
-use serde::Deserialize;
 use std::collections::BTreeMap;
 use std::time::Duration;
-
-/// One Modbus TCP device the daemon polls.
-#[derive(Debug, Clone, PartialEq)]
-pub struct ModbusDevice {
-    /// `host:port` as written (a port is always present after validation).
-    pub address: String,
-    pub unit_id: u8,
-    pub poll_period: Duration,
-    /// Longest wait for one request's answer (and for the connection to open).
-    pub timeout: Duration,
-    /// Request size limits and the gap that may be bridged.
-    pub limits: Limits,
-}
-
-/// A signal read from registers (or bits) of a device.
-#[derive(Debug, Clone, PartialEq)]
-pub struct ModbusSource {
-    /// The device's name under `[modbus]`.
-    pub device: String,
-    pub register: registers::Source,
-}
 
 /// Modbus TCP's registered port (Modbus Messaging on TCP/IP Implementation Guide V1.0b, §4.1).
 pub const DEFAULT_PORT: u16 = 502;
@@ -61,51 +42,6 @@ const MIN_POLL_PERIOD_S: f64 = 0.001;
 const MAX_POLL_PERIOD_S: f64 = 86_400.0;
 /// Longest wait for one answer: a device slower than a minute is not answering.
 const MAX_TIMEOUT_S: f64 = 60.0;
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub(super) struct RawDevice {
-    address: String,
-    unit_id: Option<i64>,
-    poll_period_s: f64,
-    timeout_s: Option<f64>,
-    max_registers_per_request: Option<i64>,
-    max_gap: Option<i64>,
-}
-
-/// The register keys of a signal's source, as written (flattened into the source's table).
-#[derive(Debug, Default, Deserialize)]
-pub(super) struct RawRegister {
-    pub(super) device: Option<String>,
-    pub(super) table: Option<Table>,
-    pub(super) address: Option<i64>,
-    pub(super) data_type: Option<DataType>,
-    pub(super) order: Option<Order>,
-    pub(super) scale: Option<f64>,
-    pub(super) offset: Option<f64>,
-    pub(super) raw_range: Option<[f64; 2]>,
-    pub(super) eng_range: Option<[f64; 2]>,
-}
-
-impl RawRegister {
-    /// The register keys that are present, for "does not apply" messages.
-    pub(super) fn given(&self) -> Vec<&'static str> {
-        [
-            ("device", self.device.is_some()),
-            ("table", self.table.is_some()),
-            ("address", self.address.is_some()),
-            ("data_type", self.data_type.is_some()),
-            ("order", self.order.is_some()),
-            ("scale", self.scale.is_some()),
-            ("offset", self.offset.is_some()),
-            ("raw_range", self.raw_range.is_some()),
-            ("eng_range", self.eng_range.is_some()),
-        ]
-        .into_iter()
-        .filter_map(|(k, g)| g.then_some(k))
-        .collect()
-    }
-}
 
 impl Checker<'_> {
     pub(super) fn modbus_devices(
@@ -193,138 +129,6 @@ impl Checker<'_> {
             value.clamp(MIN_POLL_PERIOD_S, max)
         };
         Duration::from_secs_f64(clamped)
-    }
-
-    /// A register source; `devices` are the configured device names.
-    pub(super) fn modbus_source(
-        &mut self,
-        tag: &str,
-        signal: Signal,
-        raw: RawRegister,
-        devices: &BTreeMap<String, ModbusDevice>,
-    ) -> Source {
-        let name = signal.as_str();
-        let at = |key: &'static str| ["loops", tag, name, key];
-        let device = raw.device.clone().unwrap_or_default();
-        if !devices.contains_key(&device) {
-            let known = if devices.is_empty() {
-                "no [modbus.<name>] device is configured".to_owned()
-            } else {
-                format!(
-                    "devices: {}",
-                    devices.keys().cloned().collect::<Vec<_>>().join(", ")
-                )
-            };
-            self.problem(
-                &at("device"),
-                format!("no Modbus device named \"{device}\" ({known})"),
-            );
-        }
-        let (table, address, data_type) = self.register_place(tag, name, &raw);
-        if raw.order.is_some() && data_type == DataType::Bool {
-            self.problem(&at("order"), "a bit has no word or byte order");
-        }
-        let order = raw.order.unwrap_or_default();
-        let scaling = self.scaling(tag, name, &raw);
-        let register = registers::Source::new(table, address, data_type, order, scaling)
-            .unwrap_or_else(|e| {
-                let key = if matches!(e, registers::RegisterError::TypeNotInTable { .. }) {
-                    "data_type"
-                } else {
-                    "address"
-                };
-                self.problem(&at(key), e.to_string());
-                registers::Source {
-                    table,
-                    address: Address::new(0),
-                    data_type: if table.is_bits() {
-                        DataType::Bool
-                    } else {
-                        DataType::U16
-                    },
-                    order,
-                    scaling,
-                }
-            });
-        Source::Modbus(ModbusSource { device, register })
-    }
-
-    /// Where a register source reads, and what: its table, address and data type (a bit when
-    /// the table holds bits and no type is given).
-    fn register_place(
-        &mut self,
-        tag: &str,
-        name: &str,
-        raw: &RawRegister,
-    ) -> (Table, Address, DataType) {
-        let table = raw.table.unwrap_or_else(|| {
-            self.problem(
-                &["loops", tag, name],
-                "a Modbus source needs `table`: \"holding_registers\", \"input_registers\", \
-                 \"coils\" or \"discrete_inputs\"",
-            );
-            Table::HoldingRegisters
-        });
-        let address = match raw.address.map(Address::parse) {
-            Some(Ok(a)) => a,
-            Some(Err(e)) => {
-                self.problem(&["loops", tag, name, "address"], e.to_string());
-                Address::new(0)
-            }
-            None => {
-                self.problem(
-                    &["loops", tag, name],
-                    "a Modbus source needs `address`: the 0-based protocol address (holding \
-                     register 40001 in reference notation is address 0)",
-                );
-                Address::new(0)
-            }
-        };
-        let data_type = match raw.data_type {
-            Some(t) => t,
-            None if table.is_bits() => DataType::Bool,
-            None => {
-                self.problem(
-                    &["loops", tag, name],
-                    "a register source needs `data_type`: u16, i16, u32, i32, f32 or f64",
-                );
-                DataType::F32
-            }
-        };
-        (table, address, data_type)
-    }
-
-    /// A register source's scaling: scale and offset, or a raw range onto an engineering range,
-    /// or none.
-    fn scaling(&mut self, tag: &str, name: &str, raw: &RawRegister) -> Scaling {
-        let at = |key: &'static str| ["loops", tag, name, key];
-        let linear = raw.scale.is_some() || raw.offset.is_some();
-        let ranged = raw.raw_range.is_some() || raw.eng_range.is_some();
-        let scaling = match (linear, raw.raw_range, raw.eng_range) {
-            (true, _, _) if ranged => {
-                self.problem(
-                    &at("raw_range"),
-                    "give either scale/offset or raw_range/eng_range, not both",
-                );
-                Ok(Scaling::IDENTITY)
-            }
-            (true, _, _) => Scaling::linear(raw.scale.unwrap_or(1.0), raw.offset.unwrap_or(0.0)),
-            (false, Some([r0, r1]), Some([e0, e1])) => Scaling::range(r0, r1, e0, e1),
-            (false, Some(_), None) => {
-                self.problem(&at("raw_range"), "raw_range needs eng_range too");
-                Ok(Scaling::IDENTITY)
-            }
-            (false, None, Some(_)) => {
-                self.problem(&at("eng_range"), "eng_range needs raw_range too");
-                Ok(Scaling::IDENTITY)
-            }
-            (false, None, None) => Ok(Scaling::IDENTITY),
-        };
-        scaling.unwrap_or_else(|e| {
-            let key = if linear { "scale" } else { "raw_range" };
-            self.problem(&at(key), e.to_string());
-            Scaling::IDENTITY
-        })
     }
 
     /// Checks across loops: sources that overlap on one device, sources a device's request limit
@@ -470,6 +274,7 @@ mod tests {
     use super::*;
     use crate::config::Config;
     use crate::config::fixture::{SKID, refusal_in};
+    use crate::modbus::registers::{Address, DataType, Order};
     use std::path::Path;
 
     fn problems(text: &str) -> String {
@@ -547,98 +352,6 @@ mod tests {
             ),
             "{err}"
         );
-    }
-
-    #[test]
-    fn wrong_register_definitions_are_refused_with_their_keys() {
-        let cases = [
-            (
-                "device = \"dosing\", table = \"input_registers\", address = 0",
-                "device = \"dosin\", table = \"input_registers\", address = 0",
-                "FIC-402.pv.device: no Modbus device named \"dosin\" (devices: dosing, skid-b)",
-            ),
-            (
-                "table = \"discrete_inputs\", address = 3",
-                "table = \"discrete_inputs\", address = 3, data_type = \"f32\"",
-                "LIC-301.mode.data_type: data type f32 cannot be read from discrete inputs",
-            ),
-            (
-                "address = 100, data_type",
-                "address = 400101, data_type",
-                "LIC-301.sp.address: address 400101 is out of range: expected a 0-based \
-                 protocol address",
-            ),
-            (
-                "address = 110, data_type = \"u16\"",
-                "address = 65535, data_type = \"u32\"",
-                "LIC-301.op.address: 2 registers starting at address 65535 run past",
-            ),
-            (
-                "scale = 0.1 }",
-                "scale = 0.1, raw_range = [0, 1], eng_range = [0, 2] }",
-                "FIC-402.pv.raw_range: give either scale/offset or raw_range/eng_range",
-            ),
-            (
-                "scale = 0.1 }",
-                "scale = 0 }",
-                "FIC-402.pv.scale: scaling: scale 0",
-            ),
-            (
-                "eng_range = [0, 100] }",
-                "eng_range = [0, 100], topic = \"x/y\" }",
-                "LIC-301.op.topic: a Modbus source (one with `device`) takes no MQTT keys",
-            ),
-            (
-                "format = \"number\" }",
-                "format = \"number\", address = 4 }",
-                "FIC-402.sp.address: only applies to a Modbus source",
-            ),
-            (
-                "unit_id = 7",
-                "unit_id = 300",
-                "modbus.dosing.unit_id: must be a whole number from 0 to 255",
-            ),
-            (
-                "poll_period_s = 2",
-                "poll_period_s = 0",
-                "modbus.dosing.poll_period_s: must be a number of seconds",
-            ),
-            (
-                "address = \"10.0.4.22\"",
-                "address = \"10.0.4.22:0\"",
-                "modbus.dosing.address: the port must be 1-65535",
-            ),
-            (
-                "max_gap = 4",
-                "max_gap = 4\nmax_registers_per_request = 200",
-                "modbus.skid-b.max_registers_per_request: max registers per request must be 1-125",
-            ),
-            (
-                "max_gap = 4",
-                "max_registers_per_request = 1",
-                "LIC-301.sp.data_type: f32 takes 2 registers but device skid-b allows only 1",
-            ),
-            (
-                "[modbus.dosing]",
-                "[modbus.spare]\naddress = \"10.0.4.23\"\npoll_period_s = 1\n[modbus.dosing]",
-                "modbus.spare: no loop signal reads from this device",
-            ),
-        ];
-        for (from, to, expected) in cases {
-            assert!(SKID.contains(from), "{from}");
-            let err = problems(&SKID.replacen(from, to, 1));
-            assert!(err.contains(expected), "{to}:\n{err}");
-            assert!(err.contains("skid.toml:"), "{err}");
-        }
-    }
-
-    #[test]
-    fn an_unknown_table_or_order_is_a_located_error() {
-        let err = problems(&SKID.replace("\"discrete_inputs\"", "\"discrete\""));
-        assert!(err.starts_with("skid.toml:26:"), "{err}");
-        assert!(err.contains("discrete_inputs"), "{err}");
-        let err = problems(&SKID.replace("\"CDAB\"", "\"DCAB\""));
-        assert!(err.starts_with("skid.toml:24:"), "{err}");
     }
 
     #[test]

@@ -121,6 +121,14 @@ impl MqttSettings {
     pub fn max_future_ms(&self) -> i64 {
         i64::from(self.max_future_s) * 1000
     }
+
+    /// The limits every message from this broker must respect.
+    pub fn limits(&self) -> crate::mqtt::Limits {
+        crate::mqtt::Limits {
+            max_payload_bytes: self.max_payload_bytes,
+            max_future_ms: self.max_future_ms(),
+        }
+    }
 }
 
 /// Why no password could be read (never the password itself).

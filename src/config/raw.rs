@@ -2,8 +2,6 @@
 //! and unknown-key errors at their line before any validation runs. Everything here is unchecked;
 //! the [`super::Checker`] turns it into the public settings.
 
-use super::loops::AnalysisConfig;
-use super::modbus::RawDevice;
 use crate::analysis::Spec;
 use crate::modbus::registers::{DataType, Order, Table};
 use serde::Deserialize;
@@ -85,7 +83,8 @@ pub(super) struct RawSource {
     pub value_field: Option<String>,
     pub time_field: Option<String>,
     pub auto_values: Option<Vec<String>>,
-    // Modbus keys (see `modbus::RawRegister`); serde cannot flatten under deny_unknown_fields.
+    // Modbus keys (see [`RawSource::register_keys`]); serde cannot flatten under
+    // deny_unknown_fields.
     pub device: Option<String>,
     pub table: Option<Table>,
     pub address: Option<i64>,
@@ -95,6 +94,26 @@ pub(super) struct RawSource {
     pub offset: Option<f64>,
     pub raw_range: Option<[f64; 2]>,
     pub eng_range: Option<[f64; 2]>,
+}
+
+impl RawSource {
+    /// The register keys that are present, for "does not apply" messages.
+    pub(super) fn register_keys(&self) -> Vec<&'static str> {
+        [
+            ("device", self.device.is_some()),
+            ("table", self.table.is_some()),
+            ("address", self.address.is_some()),
+            ("data_type", self.data_type.is_some()),
+            ("order", self.order.is_some()),
+            ("scale", self.scale.is_some()),
+            ("offset", self.offset.is_some()),
+            ("raw_range", self.raw_range.is_some()),
+            ("eng_range", self.eng_range.is_some()),
+        ]
+        .into_iter()
+        .filter_map(|(k, g)| g.then_some(k))
+        .collect()
+    }
 }
 
 #[derive(Debug, Clone, Copy, Deserialize)]
@@ -122,4 +141,26 @@ fn default_report_zone() -> String {
 
 fn default_report_formats() -> Vec<String> {
     vec!["html".into(), "md".into(), "json".into()]
+}
+
+/// Optional analysis settings per loop; anything left out is derived from the data.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AnalysisConfig {
+    pub sp_deadband: Option<f64>,
+    pub sp_hold_s: Option<f64>,
+    pub max_gap_s: Option<f64>,
+    pub upgrade_ratio_limit: Option<f64>,
+}
+
+/// `[modbus.<name>]` as written.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub(super) struct RawDevice {
+    pub address: String,
+    pub unit_id: Option<i64>,
+    pub poll_period_s: f64,
+    pub timeout_s: Option<f64>,
+    pub max_registers_per_request: Option<i64>,
+    pub max_gap: Option<i64>,
 }

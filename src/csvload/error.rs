@@ -1,15 +1,34 @@
-//! Why a load stopped, and the wording helpers its messages and the notes share.
+//! Why a load stopped ([`CsvError`]), and the two time formats a file may use ([`TimeFormat`]),
+//! which the mixed-formats error names.
 
+use std::fmt;
 use std::io;
 
+use serde::Serialize;
 use thiserror::Error;
 
-use super::cells::TimeFormat;
 use super::report::LoadReport;
+use super::text::plural;
 use crate::analysis::SeriesError;
 
-/// Longest excerpt of a cell quoted back in an error or note; cells can be arbitrarily long.
-pub(super) const EXCERPT_CHARS: usize = 40;
+/// The two time formats a file may use.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TimeFormat {
+    /// A plain number of seconds on any origin.
+    Seconds,
+    /// An RFC 3339 timestamp with `Z` or a numeric offset.
+    Rfc3339,
+}
+
+impl fmt::Display for TimeFormat {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            TimeFormat::Seconds => "a number of seconds",
+            TimeFormat::Rfc3339 => "an RFC 3339 timestamp",
+        })
+    }
+}
 
 /// Why a file could not be loaded. Rows are line numbers in the file (the header is normally
 /// row 1); columns are named as in the header.
@@ -136,25 +155,6 @@ fn reasons(report: &LoadReport) -> String {
         String::new()
     } else {
         format!(": {}", notes.join("; "))
-    }
-}
-
-/// A cell's text shortened for quoting back to the user.
-pub(super) fn excerpt(text: &str) -> String {
-    if text.chars().count() <= EXCERPT_CHARS {
-        text.to_owned()
-    } else {
-        let mut s: String = text.chars().take(EXCERPT_CHARS).collect();
-        s.push('…');
-        s
-    }
-}
-
-pub(super) fn plural(n: usize, noun: &str) -> String {
-    if n == 1 {
-        format!("1 {noun}")
-    } else {
-        format!("{n} {noun}s")
     }
 }
 

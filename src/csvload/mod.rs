@@ -38,18 +38,19 @@
 //! - Fewer than [`MIN_ROWS`] usable rows is an error that carries the full report.
 
 mod cells;
+mod decimal;
 mod error;
 mod header;
 mod records;
 mod report;
 mod rows;
+mod text;
 
 use std::io::Read;
 
 use crate::analysis::{AutoValues, Series};
 
-pub use cells::TimeFormat;
-pub use error::CsvError;
+pub use error::{CsvError, TimeFormat};
 pub use report::{
     CellDrops, ColumnNames, DroppedRows, IntervalStats, LoadReport, ModeSummary, Tally,
 };

@@ -3,7 +3,7 @@
 
 use std::io::Read;
 
-use super::cells::decimal_prefix;
+use super::decimal::decimal_prefix;
 use super::error::CsvError;
 
 pub(super) const UTF8_BOM: &[u8] = b"\xEF\xBB\xBF";
@@ -122,7 +122,7 @@ pub(super) struct PlainRecords<'a> {
 #[derive(Debug, Clone, Copy)]
 pub(super) struct PlainCell<'a> {
     pub(super) text: &'a [u8],
-    /// The cell's value if it is a plain decimal, as [`plain_decimal`](super::cells::plain_decimal) reads it.
+    /// The cell's value if it is a plain decimal, as [`plain_decimal`](super::decimal::plain_decimal) reads it.
     pub(super) number: Option<f64>,
 }
 

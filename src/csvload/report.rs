@@ -5,8 +5,7 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use super::error::{excerpt, plural};
-use super::header::Layout;
+use super::text::{excerpt, plural};
 
 /// How many distinct texts the report lists as read-as-manual; the rest are lumped together so a
 /// column full of free text cannot bloat the report.
@@ -200,10 +199,15 @@ fn serialize_origin<S: serde::Serializer>(
 
 impl LoadReport {
     /// The report before any data row is read.
-    pub(super) fn empty(layout: &Layout, delimiter: char, bom_stripped: bool) -> LoadReport {
+    pub(super) fn empty(
+        header_row: u64,
+        columns: ColumnNames,
+        delimiter: char,
+        bom_stripped: bool,
+    ) -> LoadReport {
         LoadReport {
-            header_row: layout.row,
-            columns: layout.column_names(),
+            header_row,
+            columns,
             delimiter,
             bom_stripped,
             data_rows: 0,

@@ -4,10 +4,10 @@
 use std::cmp::Ordering;
 
 use super::cells::{
-    Cells, ModeCell, TimeFormat, TimeValue, ValueProblem, cmp_time, is_blank, read_mode, read_time,
-    read_value, seconds_since,
+    Cells, ModeCell, TimeValue, ValueProblem, cmp_time, is_blank, read_mode, read_time, read_value,
+    seconds_since,
 };
-use super::error::CsvError;
+use super::error::{CsvError, TimeFormat};
 use super::header::Layout;
 use super::report::{IntervalStats, LoadReport, ModeSummary, OTHER_MANUAL_TEXTS, Tally};
 use super::{CsvOptions, Loaded, MIN_ROWS};
@@ -43,7 +43,12 @@ impl Loader {
     ) -> Result<Loader, CsvError> {
         let layout = Layout::from_header(header, row, &opts.columns)?;
         let auto_values = opts.auto_values.clone();
-        let report = LoadReport::empty(&layout, char::from(start.delimiter), start.bom_stripped);
+        let report = LoadReport::empty(
+            layout.row,
+            layout.column_names(),
+            char::from(start.delimiter),
+            start.bom_stripped,
+        );
         let kept = Kept::with_capacity(start.rows_hint, layout.mode.is_some());
         Ok(Loader {
             layout,

@@ -299,8 +299,8 @@ fn resolve_mqtt(
         password,
         keep_alive: m.keep_alive(),
         subscriptions: config.subscriptions(),
-        limits: crate::mqtt::Limits::from_settings(m),
-        topics: Arc::new(crate::mqtt::TopicMap::new(config)),
+        limits: m.limits(),
+        topics: Arc::new(crate::mqtt::TopicMap::new(config.mqtt_routes())),
     })
 }
 

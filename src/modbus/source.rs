@@ -16,8 +16,7 @@
 //! - A poll that runs late skips the ticks it missed rather than bursting to catch up.
 
 use crate::analysis::AutoValues;
-use crate::config::ModbusDevice;
-use crate::modbus::plan::{Plan, PlanError};
+use crate::modbus::plan::{Limits, Plan, PlanError};
 use crate::modbus::poll::{PollOutcome, poll_once};
 use crate::modbus::registers;
 use crate::sample::{Sample, Signal};
@@ -31,6 +30,20 @@ const BACKOFF_FIRST: Duration = Duration::from_millis(250);
 const BACKOFF_MAX: Duration = Duration::from_secs(30);
 const STABLE_AFTER: Duration = Duration::from_secs(10);
 const LOG_EVERY: Duration = Duration::from_secs(30);
+
+/// One Modbus TCP device to poll: where it is and how it is read (the config's
+/// `[modbus.<name>]`, checked).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModbusDevice {
+    /// `host:port` as written (a port is always present after validation).
+    pub address: String,
+    pub unit_id: u8,
+    pub poll_period: Duration,
+    /// Longest wait for one request's answer (and for the connection to open).
+    pub timeout: Duration,
+    /// Request size limits and the gap that may be bridged.
+    pub limits: Limits,
+}
 
 /// One signal the device serves, in the plan's source order.
 #[derive(Debug, Clone)]

@@ -4,8 +4,8 @@
 //! committed — so a crash loses nothing the broker has not kept. It also publishes the daemon's
 //! own alert and status messages; it never publishes anywhere else.
 
-use super::decode::{self, Limits, TopicMap};
-use crate::config::PayloadFormat;
+use super::decode::{self, Limits};
+use super::routes::{PayloadFormat, TopicMap};
 use crate::source::{Ingest, RateLimitedLog};
 use rumqttc::{AsyncClient, ConnectReturnCode, Event, MqttOptions, Packet, QoS, Transport};
 use std::collections::VecDeque;
@@ -40,9 +40,11 @@ pub enum Outbound {
     Publish { topic: String, payload: Vec<u8> },
 }
 
-/// Reads the current password; an error is logged by the caller's retry path.
-pub type PasswordReader =
-    Arc<dyn Fn() -> Result<Option<String>, crate::config::ConfigError> + Send + Sync>;
+/// Why the password could not be read again (the caller's own error, kept whole).
+pub type PasswordError = Box<dyn std::error::Error + Send + Sync>;
+
+/// Reads the current password; on an error the connection is retried with the password it had.
+pub type PasswordReader = Arc<dyn Fn() -> Result<Option<String>, PasswordError> + Send + Sync>;
 
 /// Everything needed to connect and subscribe, resolved from the configuration.
 #[derive(Clone)]

@@ -5,6 +5,7 @@
 #[path = "../common/mod.rs"]
 mod common;
 
+mod architecture;
 mod cli;
 mod cli_flags;
 mod corpus;

@@ -18,7 +18,7 @@ use headroom::analysis::segment::WindowEnd;
 use headroom::cli::{Cli, Command};
 use headroom::config::Config;
 use headroom::csvload;
-use headroom::mqtt::{Limits, TopicMap, decode};
+use headroom::mqtt::{TopicMap, decode};
 
 const TAG: &str = "TIC-101";
 /// 2025-11-24T16:00:00Z, in epoch seconds: the first sample's time.
@@ -105,8 +105,12 @@ fn ticks() -> Vec<Tick> {
 /// The live path: each value published as a JSON payload on its topic, decoded through the
 /// config's topic map, aligned into rows and tracked; returns the rows and the final episodes.
 fn live(config: &Config, ticks: &[Tick]) -> (Vec<Row>, Vec<analysis::EpisodeResult>) {
-    let map = TopicMap::new(config);
-    let limits = Limits::from_settings(config.mqtt.as_ref().expect("the config has [mqtt]"));
+    let map = TopicMap::new(config.mqtt_routes());
+    let limits = config
+        .mqtt
+        .as_ref()
+        .expect("the config has [mqtt]")
+        .limits();
     let setup = config.loops[TAG]
         .setup(TAG)
         .expect("the loop's setup is valid");

@@ -29,13 +29,11 @@
 //! Times become whole epoch milliseconds, rounded to the nearest (the store's key has
 //! millisecond resolution).
 
-use super::topic;
+use super::routes::{JsonFields, PayloadFormat, Route, TopicMap};
 use crate::analysis::AutoValues;
-use crate::config::{Config, JsonFields, MqttSettings, PayloadFormat};
 use crate::sample::{Sample, Signal};
 use crate::units::{ms_to_s, rfc3339};
 use serde_json::Value;
-use std::collections::HashMap;
 use std::sync::Arc;
 
 /// 2000-01-01T00:00:00Z in epoch milliseconds: earlier sample times are refused.
@@ -44,107 +42,12 @@ pub const EARLIEST_MS: i64 = 946_684_800_000;
 /// How many payload bytes a rejection quotes.
 const EXCERPT_BYTES: usize = 64;
 
-/// Which loop signal each topic feeds.
-///
-/// Exact topics are one hash lookup; wildcard filters are then tried in config order (tag, then
-/// sp, pv, op, mode). The config refuses filters that overlap, so at most one can match; for a
-/// hand-built config that breaks that rule, the first match wins.
-#[derive(Debug, Clone)]
-pub struct TopicMap {
-    routes: Vec<Route>,
-    exact: HashMap<Box<str>, usize>,
-    wildcard: Vec<(Box<str>, usize)>,
-}
-
-#[derive(Debug, Clone)]
-struct Route {
-    loop_tag: Arc<str>,
-    signal: Signal,
-    format: PayloadFormat,
-    /// For the mode signal: which values mean automatic.
-    auto_values: Option<AutoValues>,
-}
-
-impl TopicMap {
-    /// The map of every MQTT source in the config.
-    pub fn new(config: &Config) -> TopicMap {
-        let mut map = TopicMap {
-            routes: Vec::new(),
-            exact: HashMap::new(),
-            wildcard: Vec::new(),
-        };
-        for (tag, l) in &config.loops {
-            let loop_tag: Arc<str> = Arc::from(tag.as_str());
-            for (signal, source) in l.sources() {
-                let Some(m) = source.as_mqtt() else { continue };
-                let index = map.routes.len();
-                map.routes.push(Route {
-                    loop_tag: loop_tag.clone(),
-                    signal,
-                    format: m.format.clone(),
-                    auto_values: match (signal, &l.mode) {
-                        (Signal::Mode, Some(mode)) => Some(mode.auto_values.clone()),
-                        _ => None,
-                    },
-                });
-                if m.topic.contains(['+', '#']) {
-                    map.wildcard.push((m.topic.as_str().into(), index));
-                } else {
-                    map.exact.entry(m.topic.as_str().into()).or_insert(index);
-                }
-            }
-        }
-        map
-    }
-
-    /// The loop tag, signal and payload format a topic feeds, or `None` when no source's filter
-    /// matches it.
-    pub fn lookup(&self, topic: &str) -> Option<(Arc<str>, Signal, &PayloadFormat)> {
-        self.route(topic)
-            .map(|r| (r.loop_tag.clone(), r.signal, &r.format))
-    }
-
-    fn route(&self, topic: &str) -> Option<&Route> {
-        if !topic::is_valid_topic_name(topic) {
-            return None;
-        }
-        let index = match self.exact.get(topic) {
-            Some(&i) => i,
-            None => {
-                self.wildcard
-                    .iter()
-                    .find(|(filter, _)| topic::matches(filter, topic))?
-                    .1
-            }
-        };
-        self.routes.get(index)
-    }
-
-    /// How many sources the map holds.
-    pub fn len(&self) -> usize {
-        self.routes.len()
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.routes.is_empty()
-    }
-}
-
 /// The limits a message must respect.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct Limits {
     pub max_payload_bytes: usize,
     /// How far after its receipt a sample's time may be.
     pub max_future_ms: i64,
-}
-
-impl Limits {
-    pub fn from_settings(mqtt: &MqttSettings) -> Limits {
-        Limits {
-            max_payload_bytes: mqtt.max_payload_bytes,
-            max_future_ms: mqtt.max_future_ms(),
-        }
-    }
 }
 
 /// Where a rejected message came from: topic, the loop signal it was for, and its payload's

@@ -1,5 +1,6 @@
 use super::*;
-use crate::config::{MqttSource, Source};
+use crate::config::{Config, MqttSource, Source};
+use crate::mqtt::routes::PayloadFormat;
 use proptest::prelude::*;
 use std::path::Path;
 
@@ -52,7 +53,7 @@ fn config() -> Config {
 }
 
 fn map() -> TopicMap {
-    TopicMap::new(&config())
+    TopicMap::new(config().mqtt_routes())
 }
 
 fn ok(topic: &str, payload: &str) -> Vec<(i64, f64)> {
@@ -105,7 +106,7 @@ fn wildcard_filters_map_the_topics_they_match() {
         topic: "#".into(),
         format: PayloadFormat::Number,
     }));
-    let m = TopicMap::new(&cfg);
+    let m = TopicMap::new(cfg.mqtt_routes());
     let at = |t: &str| m.lookup(t).map(|(tag, s, _)| (tag.to_string(), s));
     let fic = |s| Some(("FIC-201".to_string(), s));
     // a/+/c
