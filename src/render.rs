@@ -1,8 +1,9 @@
 //! Output formats for people (a plain-text table) and for programs (JSON). Only this module
 //! and the reports know how results look; the analysis core returns values.
 
-use crate::analysis::assess::{Action, LoopReport, Verdict};
+use crate::analysis::assess::{LoopReport, Verdict};
 use crate::csvload::LoadReport;
+use crate::units::fraction_to_pct;
 use std::io::Write;
 
 /// JSON: the loop report with the field names the design fixes, plus how the file was read.
@@ -28,17 +29,6 @@ fn absolute(origin: jiff::Timestamp, offset_s: f64) -> String {
     origin
         .checked_add(span)
         .map_or_else(|_| format!("{offset_s} s"), |t| t.to_string())
-}
-
-/// Short, plain word for a verdict in the table.
-pub fn verdict_word(v: Verdict) -> &'static str {
-    match v {
-        Verdict::Met => "met",
-        Verdict::TuningLimited => "TUNING",
-        Verdict::ActuatorLimited => "ACTUATOR",
-        Verdict::Unreachable => "UNREACHABLE",
-        Verdict::Inconclusive => "(inconclusive)",
-    }
 }
 
 fn opt_s(v: Option<f64>) -> String {
@@ -109,9 +99,9 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
             format!("{} → {}", trim(e.sp_from), trim(e.sp_to)),
             opt_s(e.settling_time_s),
             format!("{:.1} %", e.overshoot_pct),
-            format!("{:.0} %", 100.0 * e.saturation_duty),
+            format!("{:.0} %", fraction_to_pct(e.saturation_duty)),
             opt_s(e.min_settling_time_s),
-            verdict_word(e.verdict).to_string(),
+            e.verdict.label().to_string(),
         ]);
     }
     if rows.is_empty() {
@@ -172,28 +162,17 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
             m.gain,
             m.time_constant_s,
             m.dead_time_s,
-            100.0 * m.fit_r2,
+            fraction_to_pct(m.fit_r2),
             m.episodes_used
         )?,
         (None, Some(why)) => writeln!(out, "Process model: none — {why}")?,
         (None, None) => writeln!(out, "Process model: none")?,
     }
     let c = &report.counts;
-    writeln!(
-        out,
-        "Verdicts: {} met, {} tuning-limited, {} actuator-limited, {} unreachable, {} inconclusive",
-        c.met, c.tuning_limited, c.actuator_limited, c.unreachable, c.inconclusive
-    )?;
+    writeln!(out, "Verdicts: {}", c.tally())?;
     let r = &report.recommendation;
-    let word = match r.action {
-        Action::None => "no change",
-        Action::Retune => "retune",
-        Action::Renegotiate => "renegotiate the spec",
-        Action::Upgrade => "upgrade the actuator",
-        Action::Undecided => "undecided",
-    };
     writeln!(out)?;
-    writeln!(out, "Recommendation: {word}")?;
+    writeln!(out, "Recommendation: {}", r.action.label())?;
     writeln!(out, "  {}", r.summary)?;
     writeln!(out, "  {}", r.caution)?;
     Ok(())

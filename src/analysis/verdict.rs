@@ -147,6 +147,26 @@ impl VerdictCounts {
         *c.slot(v)
     }
 
+    /// Every verdict with its count, for people: `0 met, 10 tuning-limited, 1 actuator-limited,
+    /// 1 unreachable, 0 inconclusive`.
+    pub fn tally(&self) -> String {
+        let parts: Vec<String> = Verdict::ALL
+            .iter()
+            .map(|v| format!("{} {}", self.get(*v), v.label()))
+            .collect();
+        parts.join(", ")
+    }
+
+    /// The given verdicts that occurred, with their counts, e.g. `["7 actuator-limited",
+    /// "1 unreachable"]`.
+    pub fn occurring(&self, verdicts: &[Verdict]) -> Vec<String> {
+        verdicts
+            .iter()
+            .filter(|v| self.get(**v) > 0)
+            .map(|v| format!("{} {}", self.get(*v), v.label()))
+            .collect()
+    }
+
     fn slot(&mut self, v: Verdict) -> &mut usize {
         match v {
             Verdict::Met => &mut self.met,
@@ -682,6 +702,18 @@ mod tests {
         assert_eq!(c.get(Verdict::TuningLimited), 3);
         assert_eq!(c.get(Verdict::Unreachable), 1);
         assert_eq!(c.get(Verdict::Met), 0);
+        assert_eq!(
+            c.tally(),
+            "0 met, 3 tuning-limited, 0 actuator-limited, 1 unreachable, 0 inconclusive"
+        );
+        assert_eq!(
+            c.occurring(&[
+                Verdict::Unreachable,
+                Verdict::ActuatorLimited,
+                Verdict::TuningLimited
+            ]),
+            ["1 unreachable", "3 tuning-limited"]
+        );
     }
 
     #[test]

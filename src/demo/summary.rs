@@ -1,10 +1,11 @@
 //! The demo's closing summary, per loop, from the store the daemon wrote: the setpoint changes it
 //! scored, its latest process model, and the recommendation the analysis core derives from them
-//! ([`crate::analysis::assess::recommend`], the same function `analyze` uses). Nothing here is
+//! ([`crate::analysis::advice::recommend`], the same function `analyze` uses). Nothing here is
 //! computed from the simulator's own knowledge of the plant.
 
 use super::plant::{Link, LoopDef};
-use crate::analysis::assess::{Action, Recommendation, VerdictCounts, recommend};
+use crate::analysis::advice::{Recommendation, recommend};
+use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
 use crate::store::Store;
@@ -128,16 +129,6 @@ pub struct FilePaths {
     pub reports: Vec<PathBuf>,
 }
 
-fn action_word(a: Action) -> &'static str {
-    match a {
-        Action::None => "none needed",
-        Action::Retune => "retune",
-        Action::Renegotiate => "renegotiate spec",
-        Action::Upgrade => "upgrade actuator",
-        Action::Undecided => "undecided",
-    }
-}
-
 fn link_word(l: Link) -> &'static str {
     match l {
         Link::Mqtt => "MQTT",
@@ -162,18 +153,14 @@ fn wall(d: Duration) -> String {
     }
 }
 
-/// The misses by reason, e.g. "7 actuator, 1 unreachable".
+/// The misses by reason, and the inconclusive changes, e.g. "7 actuator-limited, 1 unreachable".
 fn misses(c: &VerdictCounts) -> String {
-    let parts: Vec<String> = [
-        (c.tuning_limited, "tuning"),
-        (c.actuator_limited, "actuator"),
-        (c.unreachable, "unreachable"),
-        (c.inconclusive, "inconclusive"),
-    ]
-    .iter()
-    .filter(|(n, _)| *n > 0)
-    .map(|(n, w)| format!("{n} {w}"))
-    .collect();
+    let parts = c.occurring(&[
+        Verdict::TuningLimited,
+        Verdict::ActuatorLimited,
+        Verdict::Unreachable,
+        Verdict::Inconclusive,
+    ]);
     if parts.is_empty() {
         "—".into()
     } else {
@@ -223,15 +210,19 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
         }
     )?;
     writeln!(out)?;
+    let misses_w = loops
+        .iter()
+        .map(|l| misses(&l.counts).chars().count())
+        .fold(36, usize::max);
     writeln!(
         out,
-        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} advice",
+        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} advice",
         "loop", "via", "changes", "met", "settling", "spec", "misses"
     )?;
     for l in loops {
         writeln!(
             out,
-            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} {}",
+            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} {}",
             l.tag,
             link_word(l.link),
             l.episodes.len(),
@@ -240,7 +231,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             seconds(l.typical_settling_s()),
             format!("{:.0} s", l.settle_within_s),
             misses(&l.counts),
-            action_word(l.recommendation.action),
+            l.recommendation.action.label(),
         )?;
     }
     writeln!(
@@ -348,7 +339,10 @@ mod tests {
             unreachable: 1,
             inconclusive: 0,
         };
-        assert_eq!(misses(&c), "1 tuning, 7 actuator, 1 unreachable");
+        assert_eq!(
+            misses(&c),
+            "1 tuning-limited, 7 actuator-limited, 1 unreachable"
+        );
         assert_eq!(misses(&VerdictCounts::default()), "—");
     }
 }

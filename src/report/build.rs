@@ -172,17 +172,6 @@ impl Status {
     }
 }
 
-/// The words for a verdict in the summary.
-pub fn verdict_words(v: Verdict) -> &'static str {
-    match v {
-        Verdict::Met => "met",
-        Verdict::TuningLimited => "tuning-limited",
-        Verdict::ActuatorLimited => "actuator-limited",
-        Verdict::Unreachable => "unreachable",
-        Verdict::Inconclusive => "inconclusive",
-    }
-}
-
 #[derive(Debug, Clone, Serialize)]
 pub struct LoopSection {
     pub tag: String,
@@ -296,6 +285,7 @@ pub struct TellingEpisode {
     /// Why this one was picked.
     pub why: String,
     pub verdict: Verdict,
+    /// The verdict as people read it ([`Verdict::label`]).
     pub verdict_words: &'static str,
     pub reason: String,
     pub sp_from: f64,
@@ -682,7 +672,7 @@ fn build_loop(
             start: local(e.row.start_ms, tz),
             why,
             verdict: e.result.verdict,
-            verdict_words: verdict_words(e.result.verdict),
+            verdict_words: e.result.verdict.label(),
             reason: e.result.reason.clone(),
             sp_from: e.result.sp_from,
             sp_to: e.result.sp_to,
@@ -933,16 +923,11 @@ fn rank_reason(l: &LoopSection) -> String {
                 s.judged,
                 100.0 * misses as f64 / s.judged as f64
             );
-            let c = &s.counts;
-            let parts: Vec<String> = [
-                (c.tuning_limited, "by tuning"),
-                (c.actuator_limited, "by the actuator"),
-                (c.unreachable, "unreachable"),
-            ]
-            .iter()
-            .filter(|(n, _)| *n > 0)
-            .map(|(n, w)| format!("{n} {w}"))
-            .collect();
+            let parts = s.counts.occurring(&[
+                Verdict::TuningLimited,
+                Verdict::ActuatorLimited,
+                Verdict::Unreachable,
+            ]);
             if !parts.is_empty() {
                 why.push_str(&format!(": {}", parts.join(", ")));
             }

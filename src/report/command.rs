@@ -70,11 +70,7 @@ pub async fn run(args: &ReportArgs, out: &mut dyn Write) -> anyhow::Result<()> {
         .with_context(|| format!("cannot summarise {}", period.label))?;
     match &args.out {
         None => {
-            let text =
-                render(&report, formats[0]).map_err(|detail| super::ReportError::Render {
-                    format: formats[0].as_str(),
-                    detail,
-                })?;
+            let text = render(&report, formats[0])?;
             out.write_all(text.as_bytes())?;
         }
         Some(dir) => {

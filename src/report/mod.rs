@@ -14,14 +14,16 @@
 
 pub mod build;
 pub mod command;
+pub mod format;
 pub mod period;
 pub mod plot;
 pub mod render;
 pub mod schedule;
 
 pub use build::{Inputs, LoopInput, WeeklyReport, build};
+pub use format::{Format, UnknownFormat};
 pub use period::{Period, PeriodError};
-pub use render::{Format, render};
+pub use render::{RenderError, render};
 
 use crate::config::Config;
 use crate::sample::Signal;
@@ -39,11 +41,8 @@ pub enum ReportError {
     #[error(transparent)]
     Period(#[from] PeriodError),
     /// A template failed to render: a bug in this version, not in the data.
-    #[error("cannot render the {format} summary: {detail}")]
-    Render {
-        format: &'static str,
-        detail: String,
-    },
+    #[error(transparent)]
+    Render(#[from] RenderError),
     #[error("cannot write the summary to {}: {source}", path.display())]
     Write {
         path: PathBuf,
@@ -245,10 +244,7 @@ pub fn write_files(
 ) -> Result<Vec<(PathBuf, String)>, ReportError> {
     let mut out = Vec::new();
     for &f in formats {
-        let text = render(report, f).map_err(|detail| ReportError::Render {
-            format: f.as_str(),
-            detail,
-        })?;
+        let text = render(report, f)?;
         let path = folder.join(file_name(period, f));
         // Written beside and renamed, so a reader never sees half a file.
         let tmp = path.with_extension(format!("{}.part", f.as_str()));

@@ -9,6 +9,7 @@
 use super::build::{TellingEpisode, TrendWeek};
 use crate::analysis::feasibility::{self, Reach};
 use crate::analysis::{OpRange, Spec};
+use crate::units::{fraction_to_pct, pct_to_fraction};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
@@ -44,17 +45,40 @@ pub fn episode_svg(
     margin_pct: f64,
     s: &EpisodeSamples,
     pv_unit: &str,
-) -> Result<String, String> {
+) -> Result<String, PlotError> {
+    svg((760, 430), "change", |root| {
+        draw_episode(root, e, spec, op, margin_pct, s, pv_unit)
+    })
+}
+
+/// A picture that could not be drawn: a bug in this version, not in the data. Its message is
+/// the drawing library's; the caller says which picture.
+#[derive(Debug, thiserror::Error)]
+#[error("{source}")]
+pub struct PlotError {
+    /// Which picture: `change` or `trend`.
+    pub picture: &'static str,
+    source: DrawError,
+}
+
+type DrawError = Box<dyn std::error::Error + Send + Sync>;
+type DrawResult = Result<(), DrawError>;
+
+/// Draws one picture of `size` pixels into an SVG string.
+fn svg(
+    size: (u32, u32),
+    picture: &'static str,
+    draw: impl FnOnce(&DrawingArea<SVGBackend, Shift>) -> DrawResult,
+) -> Result<String, PlotError> {
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (760, 430)).into_drawing_area();
-        draw_episode(&root, e, spec, op, margin_pct, s, pv_unit).map_err(|x| x.to_string())?;
-        root.present().map_err(|x| x.to_string())?;
+        let root = SVGBackend::with_string(&mut svg, size).into_drawing_area();
+        draw(&root)
+            .and_then(|()| Ok(root.present()?))
+            .map_err(|source| PlotError { picture, source })?;
     }
     Ok(svg)
 }
-
-type DrawResult = Result<(), Box<dyn std::error::Error>>;
 
 fn draw_episode(
     root: &DrawingArea<SVGBackend, Shift>,
@@ -69,13 +93,13 @@ fn draw_episode(
     let t0 = e.start_ms;
     let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
     let delta = e.sp_to - e.sp_from;
-    let band = spec.map(|sp| sp.settle_band_pct / 100.0 * delta.abs());
+    let band = spec.map(|sp| sp.band_fraction() * delta.abs());
     let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
     let x_start = -0.1 * x_end.max(1.0 / 60.0);
 
     // The fastest possible response: OP driven to its limit at the change (the t* of the design).
     let fastest = e.model.and_then(|m| {
-        let b = spec?.settle_band_pct / 100.0;
+        let b = spec?.band_fraction();
         match feasibility::min_settling_time(&m, delta, e.op_headroom, b) {
             Reach::Reachable { t_star_s } => Some((m, t_star_s, b)),
             Reach::Unreachable { .. } => None,
@@ -232,7 +256,7 @@ fn draw_episode(
         .y_labels(4)
         .draw()?;
     if let Some(r) = op {
-        let margin = margin_pct / 100.0 * r.span();
+        let margin = pct_to_fraction(margin_pct) * r.span();
         let stretches = saturated_stretches(&op_pts, r, margin);
         if !stretches.is_empty() {
             chart
@@ -349,14 +373,8 @@ fn step_points(sp: &[(f64, f64)], x_end: f64) -> Vec<(f64, f64)> {
 
 /// The eight-week trend: share of judged changes that met the spec, and the median settling
 /// time beside the spec time.
-pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, String> {
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (760, 230)).into_drawing_area();
-        draw_trend(&root, weeks, spec).map_err(|x| x.to_string())?;
-        root.present().map_err(|x| x.to_string())?;
-    }
-    Ok(svg)
+pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, PlotError> {
+    svg((760, 230), "trend", |root| draw_trend(root, weeks, spec))
 }
 
 /// A period's label short enough for a trend axis: `W48` for an ISO week, the end's month and
@@ -398,7 +416,7 @@ fn draw_trend(
     let shares: Vec<Option<(f64, f64)>> = weeks
         .iter()
         .enumerate()
-        .map(|(i, w)| w.met_share.map(|s| (i as f64, 100.0 * s)))
+        .map(|(i, w)| w.met_share.map(|s| (i as f64, fraction_to_pct(s))))
         .collect();
     draw_segments(&mut chart, &shares, BAND_COLOUR)?;
 
@@ -451,7 +469,7 @@ fn trend_chart<'a, 'b>(
     (x, y): (std::ops::Range<f64>, std::ops::Range<f64>),
     label_of: &dyn Fn(&f64) -> String,
     weeks: usize,
-) -> Result<TrendChart<'a, 'b>, Box<dyn std::error::Error>> {
+) -> Result<TrendChart<'a, 'b>, DrawError> {
     let mut chart = ChartBuilder::on(area)
         .caption(caption, (FONT, 15).into_font().color(&INK))
         .margin(8)
