@@ -17,8 +17,12 @@ pub mod command;
 pub mod format;
 pub mod period;
 pub mod plot;
+pub mod quality;
+pub mod ranking;
 pub mod render;
 pub mod schedule;
+pub mod section;
+pub mod trend;
 
 pub use build::{Inputs, LoopInput, WeeklyReport, build};
 pub use format::{Format, UnknownFormat};
@@ -83,7 +87,7 @@ pub async fn gather(
         // The silence the daemon records as a gap for this loop (the writer's own rule).
         let gap_ms = setup.as_ref().and_then(|s| {
             let period = s.options.expected_period_s?;
-            Some((s.options.max_gap_for(period) * 1000.0) as i64)
+            Some(crate::units::s_to_ms(s.options.max_gap_for(period)))
         });
         let mut coverage = Vec::new();
         for (_, signal) in series.iter().filter(|(t, _)| *t == tag) {
@@ -100,7 +104,7 @@ pub async fn gather(
                 .iter()
                 .find(|c| c.signal == Signal::Pv && c.samples > 1)
                 .and_then(|c| {
-                    Some((c.last_ms? - c.first_ms?) as f64 / 1000.0 / (c.samples - 1) as f64)
+                    Some(crate::units::ms_to_s(c.last_ms? - c.first_ms?) / (c.samples - 1) as f64)
                 })
         });
         loops.push(LoopInput {

@@ -6,7 +6,8 @@
 //! series is also told apart by line style and named in a legend, so a grey-scale print or a
 //! colour-blind reader loses nothing.
 
-use super::build::{TellingEpisode, TrendWeek};
+use super::section::TellingEpisode;
+use super::trend::TrendWeek;
 use crate::analysis::feasibility::{self, Reach};
 use crate::analysis::{OpRange, Spec};
 use crate::units::{fraction_to_pct, pct_to_fraction};
