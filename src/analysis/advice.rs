@@ -142,8 +142,8 @@ pub fn recommend(
                 c.met, conclusive
             ),
         ),
-        (Lean::Tuning, Some(m)) => retune(episodes, &m.fopdt(), setup, sample_s, tally),
-        (Lean::Actuator, Some(m)) => actuator(episodes, &m.fopdt(), setup, sample_s, tally),
+        (Lean::Tuning, Some(m)) => retune(episodes, &Basis::new(m, setup, sample_s, tally)),
+        (Lean::Actuator, Some(m)) => actuator(episodes, &Basis::new(m, setup, sample_s, tally)),
         (Lean::NoModel | Lean::Tuning | Lean::Actuator, _) => Recommendation::new(
             Action::Undecided,
             "Missed the spec, but no usable process model to tell tuning from actuator.".into(),
@@ -164,6 +164,30 @@ impl Tally {
     }
 }
 
+/// What a retune or an actuator recommendation is worked out from.
+struct Basis<'a> {
+    f: Fopdt,
+    setup: &'a LoopSetup,
+    sample_s: f64,
+    tally: Tally,
+    /// The spec's band as a fraction of the change.
+    band: f64,
+    spec_s: f64,
+}
+
+impl<'a> Basis<'a> {
+    fn new(m: &Model, setup: &'a LoopSetup, sample_s: f64, tally: Tally) -> Basis<'a> {
+        Basis {
+            f: m.fopdt(),
+            setup,
+            sample_s,
+            tally,
+            band: setup.spec.band_fraction(),
+            spec_s: setup.spec.settle_within_s,
+        }
+    }
+}
+
 /// The typical change (signed median) of the episodes `pick` selects, and the median operating
 /// point of those among them in the typical direction.
 fn typical(episodes: &[EpisodeResult], pick: impl Fn(Verdict) -> bool) -> (f64, f64) {
@@ -178,20 +202,13 @@ fn typical(episodes: &[EpisodeResult], pick: impl Fn(Verdict) -> bool) -> (f64, 
     (step, u0)
 }
 
-fn retune(
-    episodes: &[EpisodeResult],
-    f: &Fopdt,
-    setup: &LoopSetup,
-    sample_s: f64,
-    tally: Tally,
-) -> Recommendation {
-    let band = setup.spec.band_fraction();
-    let spec_s = setup.spec.settle_within_s;
+fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
+    let (f, setup) = (&b.f, b.setup);
     let (step, u0) = typical(episodes, |v| v == Verdict::TuningLimited);
-    let pi = tuning::suggest(f, step, u0, setup.op, band, sample_s, spec_s);
-    let mut r = Recommendation::new(Action::Retune, retune_words(&pi, step, spec_s, tally));
+    let pi = tuning::suggest(f, step, u0, setup.op, b.band, b.sample_s, b.spec_s);
+    let mut r = Recommendation::new(Action::Retune, retune_words(&pi, step, b.spec_s, b.tally));
     r.retune = Some(pi);
-    if tally.actuator_misses() > 0 {
+    if b.tally.actuator_misses() > 0 {
         // The minority of misses that retuning cannot fix, with the step size that would.
         let big: Vec<&EpisodeResult> = episodes
             .iter()
@@ -201,10 +218,10 @@ fn retune(
         let step = signed_median(big.iter().map(|e| e.sp_to - e.sp_from));
         let dir = feasibility::op_direction(f.gain, step);
         let h = feasibility::headroom(u0, dir, setup.op.min, setup.op.max);
-        let largest = feasibility::largest_compliant_step(f, h, band, spec_s);
+        let largest = feasibility::largest_compliant_step(f, h, b.band, b.spec_s);
         r.summary.push_str(&format!(
             " Separately, {} change(s) asked more than the actuator can give{}.",
-            tally.actuator_misses(),
+            b.tally.actuator_misses(),
             largest.map_or(String::new(), |d| format!(
                 "; from OP {u0:.1}, changes up to {d:.3} can meet the spec"
             ))
@@ -240,38 +257,30 @@ fn retune_words(pi: &PiSuggestion, step: f64, spec_s: f64, tally: Tally) -> Stri
 
 /// The numbers for the typical actuator-side change: t*, what a tight PI achieves, the largest
 /// change today's actuator meets the spec for, and the OP limit that would meet it.
-fn actuator_evidence(
-    f: &Fopdt,
-    typical_step: f64,
-    typical_u0: f64,
-    setup: &LoopSetup,
-    sample_s: f64,
-) -> ActuatorEvidence {
-    let band = setup.spec.band_fraction();
-    let spec_s = setup.spec.settle_within_s;
+fn actuator_evidence(typical_step: f64, typical_u0: f64, b: &Basis) -> ActuatorEvidence {
+    let (f, op) = (&b.f, b.setup.op);
     let dir = feasibility::op_direction(f.gain, typical_step);
-    let h = feasibility::headroom(typical_u0, dir, setup.op.min, setup.op.max);
-    let fastest = match feasibility::min_settling_time(f, typical_step, h, band) {
+    let h = feasibility::headroom(typical_u0, dir, op.min, op.max);
+    let fastest = match feasibility::min_settling_time(f, typical_step, h, b.band) {
         Reach::Reachable { t_star_s } => Some(t_star_s),
         Reach::Unreachable { .. } => None,
     };
     let tight =
-        tuning::tau_c_for_headroom(f, typical_step, f64::INFINITY, sample_s).max(f.dead_time_s);
+        tuning::tau_c_for_headroom(f, typical_step, f64::INFINITY, b.sample_s).max(f.dead_time_s);
     let (kc, ti) = tuning::simc_pi(f, tight);
     let practical = fastest.and_then(|_| {
-        let u0 = typical_u0;
-        tuning::predict(f, kc, ti, typical_step, u0, setup.op, band, sample_s).0
+        tuning::predict(f, kc, ti, typical_step, typical_u0, op, b.band, b.sample_s).0
     });
-    let required_h = feasibility::required_headroom(f, typical_step, band, spec_s);
+    let required_h = feasibility::required_headroom(f, typical_step, b.band, b.spec_s);
     let required_limit = required_h.map(|rh| typical_u0 + dir * rh);
     ActuatorEvidence {
         typical_step,
         typical_op_start: typical_u0,
         fastest_settling_time_s: fastest,
         practical_settling_time_s: practical,
-        largest_compliant_step: feasibility::largest_compliant_step(f, h, band, spec_s),
+        largest_compliant_step: feasibility::largest_compliant_step(f, h, b.band, b.spec_s),
         required_op_limit: required_limit,
-        capacity_ratio: required_limit.map(|l| feasibility::capacity_ratio(l, dir, setup.op)),
+        capacity_ratio: required_limit.map(|l| feasibility::capacity_ratio(l, dir, op)),
     }
 }
 
@@ -285,26 +294,17 @@ pub fn actuator_action(e: &ActuatorEvidence, ratio_limit: f64) -> Action {
     }
 }
 
-fn actuator(
-    episodes: &[EpisodeResult],
-    f: &Fopdt,
-    setup: &LoopSetup,
-    sample_s: f64,
-    tally: Tally,
-) -> Recommendation {
+fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     let (step, u0) = typical(episodes, Verdict::is_actuator_miss);
-    let evidence = actuator_evidence(f, step, u0, setup, sample_s);
-    let action = actuator_action(&evidence, setup.options.upgrade_ratio_limit);
-    let mut r = Recommendation::new(
-        action,
-        actuator_words(action, &evidence, setup.spec.settle_within_s, tally),
-    );
+    let evidence = actuator_evidence(step, u0, b);
+    let action = actuator_action(&evidence, b.setup.options.upgrade_ratio_limit);
+    let mut r = Recommendation::new(action, actuator_words(action, &evidence, b.spec_s, b.tally));
     r.actuator = Some(evidence);
-    if tally.c.tuning_limited > 0 {
+    if b.tally.c.tuning_limited > 0 {
         r.summary.push_str(&format!(
             " Separately, {} change(s) missed although the actuator had room: retuning would help \
              those.",
-            tally.c.tuning_limited
+            b.tally.c.tuning_limited
         ));
     }
     r
