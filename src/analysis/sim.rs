@@ -67,6 +67,18 @@ pub struct PiController {
     pub op_max: f64,
 }
 
+impl PiController {
+    /// A PI controller whose OP is a percentage, 0–100 % (a valve's opening, a heater's power).
+    pub const fn on_percent(gain: f64, integral_time_s: f64) -> PiController {
+        PiController {
+            gain,
+            integral_time_s,
+            op_min: 0.0,
+            op_max: 100.0,
+        }
+    }
+}
+
 /// Everything needed to run one simulated loop.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct LoopSimConfig {

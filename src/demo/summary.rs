@@ -9,6 +9,7 @@ use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
 use crate::store::Store;
+use crate::units::fraction_to_pct;
 use anyhow::Context;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -195,21 +196,8 @@ fn wrapped(
     writeln!(out, "{line}")
 }
 
-/// The summary for people.
-pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> std::io::Result<()> {
-    writeln!(
-        out,
-        "\nHeron Reach pilot plant: {:.1} days of plant time in {} ({:.0}× real time){}",
-        facts.simulated_s / 86_400.0,
-        wall(facts.wall),
-        facts.speed,
-        if facts.interrupted {
-            ", interrupted"
-        } else {
-            ""
-        }
-    )?;
-    writeln!(out)?;
+/// One row per loop: changes, share met, typical settling against the spec, misses, advice.
+fn table(loops: &[LoopSummary], out: &mut dyn Write) -> std::io::Result<()> {
     let misses_w = loops
         .iter()
         .map(|l| misses(&l.counts).chars().count())
@@ -227,13 +215,59 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             link_word(l.link),
             l.episodes.len(),
             l.met_share()
-                .map_or("—".into(), |m| format!("{:.0} %", 100.0 * m)),
+                .map_or("—".into(), |m| format!("{:.0} %", fraction_to_pct(m))),
             seconds(l.typical_settling_s()),
             format!("{:.0} s", l.settle_within_s),
             misses(&l.counts),
             l.recommendation.action.label(),
         )?;
     }
+    Ok(())
+}
+
+/// Where the run's files are, and the commands to look further.
+fn files_and_next_steps(files: &FilePaths, out: &mut dyn Write) -> std::io::Result<()> {
+    let db = files.store.display();
+    writeln!(out, "\nFiles")?;
+    writeln!(out, "  store   {db}")?;
+    writeln!(out, "  config  {}", files.config.display())?;
+    writeln!(out, "  log     {}", files.log.display())?;
+    for r in &files.reports {
+        writeln!(out, "  report  {}", r.display())?;
+    }
+    writeln!(out, "\nContinue with")?;
+    writeln!(out, "  headroom episodes --db {db} --loop TIC-120")?;
+    writeln!(out, "  headroom alerts --db {db}")?;
+    writeln!(out, "  headroom loops --db {db}")?;
+    writeln!(
+        out,
+        "  headroom report --db {db} --config {} --format html --out .",
+        files.config.display()
+    )?;
+    writeln!(
+        out,
+        "  headroom export --db {db} --loop TIC-130 > tic-130.csv\n  headroom analyze tic-130.csv --config {} --loop TIC-130",
+        files.config.display()
+    )?;
+    Ok(())
+}
+
+/// The summary for people.
+pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> std::io::Result<()> {
+    writeln!(
+        out,
+        "\nHeron Reach pilot plant: {:.1} days of plant time in {} ({:.0}× real time){}",
+        facts.simulated_s / 86_400.0,
+        wall(facts.wall),
+        facts.speed,
+        if facts.interrupted {
+            ", interrupted"
+        } else {
+            ""
+        }
+    )?;
+    writeln!(out)?;
+    table(loops, out)?;
     writeln!(
         out,
         "(changes: setpoint changes scored; met: share of the conclusive ones that met the spec; \
@@ -280,29 +314,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             thousands(unreadable as u64)
         )?;
     }
-    let db = facts.files.store.display();
-    writeln!(out, "\nFiles")?;
-    writeln!(out, "  store   {db}")?;
-    writeln!(out, "  config  {}", facts.files.config.display())?;
-    writeln!(out, "  log     {}", facts.files.log.display())?;
-    for r in &facts.files.reports {
-        writeln!(out, "  report  {}", r.display())?;
-    }
-    writeln!(out, "\nContinue with")?;
-    writeln!(out, "  headroom episodes --db {db} --loop TIC-120")?;
-    writeln!(out, "  headroom alerts --db {db}")?;
-    writeln!(out, "  headroom loops --db {db}")?;
-    writeln!(
-        out,
-        "  headroom report --db {db} --config {} --format html --out .",
-        facts.files.config.display()
-    )?;
-    writeln!(
-        out,
-        "  headroom export --db {db} --loop TIC-130 > tic-130.csv\n  headroom analyze tic-130.csv --config {} --loop TIC-130",
-        facts.files.config.display()
-    )?;
-    Ok(())
+    files_and_next_steps(&facts.files, out)
 }
 
 /// 1234567 → "1,234,567".

@@ -84,49 +84,8 @@ pub async fn gather(
     for tag in tags {
         let cfg = config.and_then(|c| c.loops.get(&tag));
         let setup = cfg.and_then(|l| l.setup(&tag).ok());
-        // The silence the daemon records as a gap for this loop (the writer's own rule).
-        let gap_ms = setup.as_ref().and_then(|s| {
-            let period = s.options.expected_period_s?;
-            Some(crate::units::s_to_ms(s.options.max_gap_for(period)))
-        });
-        let mut coverage = Vec::new();
-        for (_, signal) in series.iter().filter(|(t, _)| *t == tag) {
-            coverage.push(
-                store
-                    .coverage(&tag, *signal, period.from_ms(), period.to_ms(), gap_ms)
-                    .await?,
-            );
-        }
-        // The sample period for the tuning prediction: the configured one, else the PV's mean
-        // interval over the period.
-        let sample_s = cfg.and_then(|l| l.expected_period_s).or_else(|| {
-            coverage
-                .iter()
-                .find(|c| c.signal == Signal::Pv && c.samples > 1)
-                .and_then(|c| {
-                    Some(crate::units::ms_to_s(c.last_ms? - c.first_ms?) / (c.samples - 1) as f64)
-                })
-        });
-        loops.push(LoopInput {
-            description: cfg.map(|l| l.description.clone()).unwrap_or_default(),
-            pv_unit: cfg.map(|l| l.pv_unit.clone()).unwrap_or_default(),
-            op_unit: cfg.map_or("%".into(), |l| l.op_unit.clone()),
-            setup,
-            sample_s,
-            episodes: episodes
-                .iter()
-                .filter(|e| e.loop_tag == tag)
-                .cloned()
-                .collect(),
-            models: models
-                .iter()
-                .filter(|m| m.loop_tag == tag)
-                .cloned()
-                .collect(),
-            coverage,
-            configured: cfg.is_some(),
-            tag,
-        });
+        let coverage = coverage(store, setup.as_ref(), &tag, &series, period).await?;
+        loops.push(loop_input(tag, cfg, setup, coverage, &episodes, &models));
     }
     let inputs = Inputs {
         periods,
@@ -140,6 +99,71 @@ pub async fn gather(
     let mut report = build(&inputs);
     draw(store, &mut report, &inputs).await?;
     Ok(report)
+}
+
+/// Data coverage of each stored signal of the loop over the period, with the silence the
+/// daemon records as a gap for this loop (the writer's own rule).
+async fn coverage(
+    store: &Store,
+    setup: Option<&crate::analysis::LoopSetup>,
+    tag: &str,
+    series: &[(String, Signal)],
+    period: &Period,
+) -> Result<Vec<crate::store::SeriesCoverage>, ReportError> {
+    let gap_ms = setup.and_then(|s| {
+        let period = s.options.expected_period_s?;
+        Some(crate::units::s_to_ms(s.options.max_gap_for(period)))
+    });
+    let mut coverage = Vec::new();
+    for (_, signal) in series.iter().filter(|(t, _)| t == tag) {
+        coverage.push(
+            store
+                .coverage(tag, *signal, period.from_ms(), period.to_ms(), gap_ms)
+                .await?,
+        );
+    }
+    Ok(coverage)
+}
+
+/// What the builder needs to know about one loop, from its configuration and the store's rows.
+fn loop_input(
+    tag: String,
+    cfg: Option<&crate::config::LoopConfig>,
+    setup: Option<crate::analysis::LoopSetup>,
+    coverage: Vec<crate::store::SeriesCoverage>,
+    episodes: &[crate::store::EpisodeRow],
+    models: &[crate::store::ModelRow],
+) -> LoopInput {
+    // The sample period for the tuning prediction: the configured one, else the PV's mean
+    // interval over the period.
+    let sample_s = cfg.and_then(|l| l.expected_period_s).or_else(|| {
+        coverage
+            .iter()
+            .find(|c| c.signal == Signal::Pv && c.samples > 1)
+            .and_then(|c| {
+                Some(crate::units::ms_to_s(c.last_ms? - c.first_ms?) / (c.samples - 1) as f64)
+            })
+    });
+    LoopInput {
+        description: cfg.map(|l| l.description.clone()).unwrap_or_default(),
+        pv_unit: cfg.map(|l| l.pv_unit.clone()).unwrap_or_default(),
+        op_unit: cfg.map_or("%".into(), |l| l.op_unit.clone()),
+        setup,
+        sample_s,
+        episodes: episodes
+            .iter()
+            .filter(|e| e.loop_tag == tag)
+            .cloned()
+            .collect(),
+        models: models
+            .iter()
+            .filter(|m| m.loop_tag == tag)
+            .cloned()
+            .collect(),
+        coverage,
+        configured: cfg.is_some(),
+        tag,
+    }
 }
 
 /// Adds the plots: each loop's telling change (from its stored samples) and its trend.

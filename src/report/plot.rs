@@ -149,18 +149,9 @@ fn fastest_response(
     Some((t_star, curve))
 }
 
-/// The upper panel: SP, PV inside the spec band, the spec time and the fastest response.
-fn draw_pv_panel(
-    area: &DrawingArea<SVGBackend, Shift>,
-    e: &TellingEpisode,
-    spec: Option<&Spec>,
-    p: Panel,
-    pv_unit: &str,
-    xs: std::ops::Range<f64>,
-) -> DrawResult {
-    let band = spec.map(|sp| sp.band_fraction() * (e.sp_to - e.sp_from).abs());
-    let no_curve = Vec::new();
-    let curve = p.fastest.as_ref().map_or(&no_curve, |(_, c)| c);
+/// The PV axis: both setpoints, the PV, the fastest response and the band, with some room.
+fn pv_axis(e: &TellingEpisode, band: Option<f64>, p: &Panel) -> (f64, f64) {
+    let curve = p.fastest.as_ref().map_or(&[][..], |(_, c)| c.as_slice());
     let (mut lo, mut hi) = (e.sp_from.min(e.sp_to), e.sp_from.max(e.sp_to));
     for (_, y) in p.pv.iter().chain(curve) {
         lo = lo.min(*y);
@@ -171,7 +162,20 @@ fn draw_pv_panel(
         hi = hi.max(e.sp_to + w);
     }
     let pad = 0.08 * (hi - lo).max(1e-6);
-    let (lo, hi) = (lo - pad, hi + pad);
+    (lo - pad, hi + pad)
+}
+
+/// The upper panel: SP, PV inside the spec band, the spec time and the fastest response.
+fn draw_pv_panel(
+    area: &DrawingArea<SVGBackend, Shift>,
+    e: &TellingEpisode,
+    spec: Option<&Spec>,
+    p: Panel,
+    pv_unit: &str,
+    xs: std::ops::Range<f64>,
+) -> DrawResult {
+    let band = spec.map(|sp| sp.band_fraction() * (e.sp_to - e.sp_from).abs());
+    let (lo, hi) = pv_axis(e, band, &p);
     let pv_label = if pv_unit.is_empty() {
         "SP, PV".to_string()
     } else {
