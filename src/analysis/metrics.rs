@@ -237,24 +237,7 @@ mod tests {
         let op = vec![
             100.0, 100.0, 99.8, 60.0, 55.0, 100.0, 50.0, 50.0, 50.0, 50.0,
         ];
-        let m = step_metrics(
-            Response {
-                time_s: &t,
-                sp: &sp,
-                pv: &pv,
-                op: &op,
-            },
-            0.0,
-            1.0,
-            0.02,
-            OpRange {
-                min: 0.0,
-                max: 100.0,
-            },
-            0.005,
-            1.0,
-        )
-        .unwrap();
+        let m = score_all(&t, &sp, &pv, &op, 0.0, 1.0);
         // Last outside is sample 3 (0.9); samples 0..=3 of which 3 are within 0.5 of 100.
         assert_eq!(m.settling_time_s, Some(3.0));
         assert!((m.saturation_duty - 0.75).abs() < 1e-12);

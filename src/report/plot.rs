@@ -48,7 +48,20 @@ pub fn episode_svg(
     pv_unit: &str,
 ) -> Result<String, PlotError> {
     svg((760, 430), "change", |root| {
-        draw_episode(root, e, spec, op, margin_pct, s, pv_unit)
+        root.fill(&WHITE)?;
+        let t0 = e.start_ms;
+        let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
+        let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
+        let x_start = -0.1 * x_end.max(1.0 / 60.0);
+        let pv = Panel {
+            pv: thin(&s.pv, minutes),
+            sp: step_points(&thin(&s.sp, minutes), x_end),
+            fastest: fastest_response(e, spec, x_end),
+        };
+        let op_pts = thin(&s.op, minutes);
+        let (upper, lower) = root.split_vertically(270);
+        draw_pv_panel(&upper, e, spec, pv, pv_unit, x_start..x_end)?;
+        draw_op_panel(&lower, op, margin_pct, op_pts, x_start..x_end)
     })
 }
 
@@ -79,31 +92,6 @@ fn svg(
             .map_err(|source| PlotError { picture, source })?;
     }
     Ok(svg)
-}
-
-fn draw_episode(
-    root: &DrawingArea<SVGBackend, Shift>,
-    e: &TellingEpisode,
-    spec: Option<&Spec>,
-    op: Option<&OpRange>,
-    margin_pct: f64,
-    s: &EpisodeSamples,
-    pv_unit: &str,
-) -> DrawResult {
-    root.fill(&WHITE)?;
-    let t0 = e.start_ms;
-    let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
-    let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
-    let x_start = -0.1 * x_end.max(1.0 / 60.0);
-    let pv = Panel {
-        pv: thin(&s.pv, minutes),
-        sp: step_points(&thin(&s.sp, minutes), x_end),
-        fastest: fastest_response(e, spec, x_end),
-    };
-    let op_pts = thin(&s.op, minutes);
-    let (upper, lower) = root.split_vertically(270);
-    draw_pv_panel(&upper, e, spec, pv, pv_unit, x_start..x_end)?;
-    draw_op_panel(&lower, op, margin_pct, op_pts, x_start..x_end)
 }
 
 /// The lines of the upper panel: PV, SP as steps, and the fastest possible response with its
