@@ -1,8 +1,9 @@
 //! Output formats for people (a plain-text table) and for programs (JSON). Only this module
 //! and the reports know how results look; the analysis core returns values.
 
-use crate::analysis::assess::{Action, LoopReport, Verdict};
+use crate::analysis::assess::{LoopReport, Verdict};
 use crate::csvload::LoadReport;
+use crate::units::fraction_to_pct;
 use std::io::Write;
 
 /// JSON: the loop report with the field names the design fixes, plus how the file was read.
@@ -30,17 +31,6 @@ fn absolute(origin: jiff::Timestamp, offset_s: f64) -> String {
         .map_or_else(|_| format!("{offset_s} s"), |t| t.to_string())
 }
 
-/// Short, plain word for a verdict in the table.
-pub fn verdict_word(v: Verdict) -> &'static str {
-    match v {
-        Verdict::Met => "met",
-        Verdict::TuningLimited => "TUNING",
-        Verdict::ActuatorLimited => "ACTUATOR",
-        Verdict::Unreachable => "UNREACHABLE",
-        Verdict::Inconclusive => "(inconclusive)",
-    }
-}
-
 fn opt_s(v: Option<f64>) -> String {
     v.map_or("—".into(), |x| format!("{x:.0} s"))
 }
@@ -48,6 +38,39 @@ fn opt_s(v: Option<f64>) -> String {
 /// Text: a header with the spec and the data, one row per episode, then model, tally,
 /// recommendation and the caution.
 pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
+    header(report, load, out)?;
+    writeln!(out)?;
+    if report.episodes.is_empty() {
+        writeln!(out, "No setpoint changes found in the data.")?;
+    } else {
+        episode_table(report, load, out)?;
+    }
+    writeln!(out)?;
+    match (&report.model, &report.model_refusal) {
+        (Some(m), _) => writeln!(
+            out,
+            "Process model (first order + dead time): gain {:.4} PV/OP, time constant {:.1} s, \
+             dead time {:.1} s; explains {:.2} % of PV variation ({} changes)",
+            m.gain,
+            m.time_constant_s,
+            m.dead_time_s,
+            fraction_to_pct(m.fit_r2),
+            m.episodes_used
+        )?,
+        (None, Some(why)) => writeln!(out, "Process model: none — {why}")?,
+        (None, None) => writeln!(out, "Process model: none")?,
+    }
+    writeln!(out, "Verdicts: {}", report.counts.tally())?;
+    let r = &report.recommendation;
+    writeln!(out)?;
+    writeln!(out, "Recommendation: {}", r.action.label())?;
+    writeln!(out, "  {}", r.summary)?;
+    writeln!(out, "  {}", r.caution)?;
+    Ok(())
+}
+
+/// The spec, the data and how the file was read, and the changes that were not scored.
+fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
     let spec = &report.spec;
     let overshoot = spec
         .max_overshoot_pct
@@ -85,8 +108,16 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
             writeln!(out, "  not scored: {n} setpoint change(s) {why}")?;
         }
     }
-    writeln!(out)?;
+    Ok(())
+}
 
+/// One row per episode, numbers right-aligned and words left-aligned, then the legend and the
+/// reasons of the inconclusive ones.
+fn episode_table(
+    report: &LoopReport,
+    load: &LoadReport,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
     let header = [
         "#",
         "start",
@@ -97,106 +128,74 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
         "fastest",
         "verdict",
     ];
-    let mut rows: Vec<[String; 8]> = Vec::new();
-    for (i, e) in report.episodes.iter().enumerate() {
-        let start = match load.time_origin {
-            Some(o) => absolute(o, e.start_s),
-            None => format!("{} s", trim(e.start_s)),
-        };
-        rows.push([
-            (i + 1).to_string(),
-            start,
-            format!("{} → {}", trim(e.sp_from), trim(e.sp_to)),
-            opt_s(e.settling_time_s),
-            format!("{:.1} %", e.overshoot_pct),
-            format!("{:.0} %", 100.0 * e.saturation_duty),
-            opt_s(e.min_settling_time_s),
-            verdict_word(e.verdict).to_string(),
-        ]);
+    let rows: Vec<[String; 8]> = report
+        .episodes
+        .iter()
+        .enumerate()
+        .map(|(i, e)| {
+            let start = match load.time_origin {
+                Some(o) => absolute(o, e.start_s),
+                None => format!("{} s", trim(e.start_s)),
+            };
+            [
+                (i + 1).to_string(),
+                start,
+                format!("{} → {}", trim(e.sp_from), trim(e.sp_to)),
+                opt_s(e.settling_time_s),
+                format!("{:.1} %", e.overshoot_pct),
+                format!("{:.0} %", fraction_to_pct(e.saturation_duty)),
+                opt_s(e.min_settling_time_s),
+                e.verdict.label().to_string(),
+            ]
+        })
+        .collect();
+    let mut widths = header.map(|h| h.chars().count());
+    for r in &rows {
+        for (w, c) in widths.iter_mut().zip(r) {
+            *w = (*w).max(c.chars().count());
+        }
     }
-    if rows.is_empty() {
-        writeln!(out, "No setpoint changes found in the data.")?;
-    } else {
-        let mut widths = header.map(|h| h.chars().count());
-        for r in &rows {
-            for (w, c) in widths.iter_mut().zip(r) {
-                *w = (*w).max(c.chars().count());
-            }
-        }
-        let line = |cells: &[String]| -> String {
-            let mut s = String::new();
-            for (i, (c, w)) in cells.iter().zip(widths).enumerate() {
-                let pad = w - c.chars().count();
-                // Numbers right-aligned, words left-aligned.
-                if matches!(i, 0 | 3 | 4 | 5 | 6) {
-                    s.push_str(&" ".repeat(pad));
-                    s.push_str(c);
-                } else {
-                    s.push_str(c);
-                    s.push_str(&" ".repeat(pad));
-                }
-                s.push_str("  ");
-            }
-            s.trim_end().to_string()
-        };
-        writeln!(out, "{}", line(&header.map(String::from)))?;
-        for r in &rows {
-            writeln!(out, "{}", line(r))?;
-        }
-        writeln!(out)?;
-        writeln!(
-            out,
-            "settled = time until the PV stays inside the band; fastest = quickest settling the OP \
-             limit allows (t*)."
-        )?;
-        let odd: Vec<String> = report
-            .episodes
-            .iter()
-            .enumerate()
-            .filter(|(_, e)| e.verdict == Verdict::Inconclusive)
-            .map(|(i, e)| format!("  #{}: {}", i + 1, e.reason))
-            .collect();
-        if !odd.is_empty() {
-            writeln!(out, "Inconclusive:")?;
-            for l in odd {
-                writeln!(out, "{l}")?;
-            }
-        }
+    writeln!(out, "{}", aligned(&header.map(String::from), widths))?;
+    for r in &rows {
+        writeln!(out, "{}", aligned(r, widths))?;
     }
     writeln!(out)?;
-    match (&report.model, &report.model_refusal) {
-        (Some(m), _) => writeln!(
-            out,
-            "Process model (first order + dead time): gain {:.4} PV/OP, time constant {:.1} s, \
-             dead time {:.1} s; explains {:.2} % of PV variation ({} changes)",
-            m.gain,
-            m.time_constant_s,
-            m.dead_time_s,
-            100.0 * m.fit_r2,
-            m.episodes_used
-        )?,
-        (None, Some(why)) => writeln!(out, "Process model: none — {why}")?,
-        (None, None) => writeln!(out, "Process model: none")?,
-    }
-    let c = &report.counts;
     writeln!(
         out,
-        "Verdicts: {} met, {} tuning-limited, {} actuator-limited, {} unreachable, {} inconclusive",
-        c.met, c.tuning_limited, c.actuator_limited, c.unreachable, c.inconclusive
+        "settled = time until the PV stays inside the band; fastest = quickest settling the OP \
+         limit allows (t*)."
     )?;
-    let r = &report.recommendation;
-    let word = match r.action {
-        Action::None => "no change",
-        Action::Retune => "retune",
-        Action::Renegotiate => "renegotiate the spec",
-        Action::Upgrade => "upgrade the actuator",
-        Action::Undecided => "undecided",
-    };
-    writeln!(out)?;
-    writeln!(out, "Recommendation: {word}")?;
-    writeln!(out, "  {}", r.summary)?;
-    writeln!(out, "  {}", r.caution)?;
+    let odd: Vec<String> = report
+        .episodes
+        .iter()
+        .enumerate()
+        .filter(|(_, e)| e.verdict == Verdict::Inconclusive)
+        .map(|(i, e)| format!("  #{}: {}", i + 1, e.reason))
+        .collect();
+    if !odd.is_empty() {
+        writeln!(out, "Inconclusive:")?;
+        for l in odd {
+            writeln!(out, "{l}")?;
+        }
+    }
     Ok(())
+}
+
+/// One table line: numbers right-aligned, words left-aligned, two spaces between columns.
+fn aligned(cells: &[String; 8], widths: [usize; 8]) -> String {
+    let mut s = String::new();
+    for (i, (c, w)) in cells.iter().zip(widths).enumerate() {
+        let pad = " ".repeat(w - c.chars().count());
+        if matches!(i, 0 | 3 | 4 | 5 | 6) {
+            s.push_str(&pad);
+            s.push_str(c);
+        } else {
+            s.push_str(c);
+            s.push_str(&pad);
+        }
+        s.push_str("  ");
+    }
+    s.trim_end().to_string()
 }
 
 /// A number without trailing zeros.

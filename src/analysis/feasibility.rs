@@ -12,6 +12,7 @@
 //! settle on it.
 
 use super::identify::Fopdt;
+use super::setup::OpRange;
 
 /// The fastest possible response to one setpoint change.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -68,6 +69,17 @@ pub fn largest_compliant_step(m: &Fopdt, h: f64, b: f64, spec_s: f64) -> Option<
     let reach = m.gain.abs() * h.max(0.0);
     let by_time = reach * (1.0 - (-avail / m.time_constant_s).exp()) / (1.0 - b);
     Some(by_time.min(reach))
+}
+
+/// The needed OP capacity as a multiple of today's, measured from the opposite limit: for a
+/// heater on 0–100 % that must reach 140 %, the ratio is 1.4.
+pub fn capacity_ratio(required_limit: f64, dir: f64, op: OpRange) -> f64 {
+    let (limit, other) = if dir > 0.0 {
+        (op.max, op.min)
+    } else {
+        (op.min, op.max)
+    };
+    (required_limit - other).abs() / (limit - other).abs()
 }
 
 #[cfg(test)]

@@ -194,32 +194,7 @@ pub fn identify<'a>(
     if segments.is_empty() {
         return Err(Refusal::NoEpisodes);
     }
-    // Keep the episodes that move both OP and PV clearly; the largest PV moves first.
-    let range = |v: &[f64]| {
-        v.iter().copied().fold(f64::NEG_INFINITY, f64::max)
-            - v.iter().copied().fold(f64::INFINITY, f64::min)
-    };
-    let mut scored: Vec<(f64, &IdSegment)> = Vec::new();
-    let (mut best_op, mut best_pv) = (0.0_f64, 0.0_f64);
-    for s in segments {
-        let (du, dy) = (range(&s.op), range(&s.pv));
-        best_op = best_op.max(du);
-        best_pv = best_pv.max(dy);
-        if du > 0.002 * op_span.abs() && dy > 6.0 * noise_sd {
-            scored.push((dy, s));
-        }
-    }
-    if scored.is_empty() {
-        return Err(Refusal::NoExcitation {
-            op_move: best_op,
-            pv_move: best_pv,
-            noise: noise_sd,
-        });
-    }
-    scored.sort_by(|a, b| b.0.total_cmp(&a.0));
-    scored.truncate(settings.max_episodes.max(1));
-    let prepared: Vec<Prepared> = scored.iter().map(|(_, s)| Prepared::new(s)).collect();
-
+    let prepared = excited(segments, noise_sd, op_span, settings.max_episodes)?;
     let min_h = prepared.iter().map(|p| p.h).fold(f64::INFINITY, f64::min);
     let durations: Vec<f64> = prepared.iter().map(|p| p.h * p.y.len() as f64).collect();
     let max_dur = durations.iter().copied().fold(0.0, f64::max);
@@ -252,18 +227,7 @@ pub fn identify<'a>(
     let (tau_seed, theta_seed) =
         arx_seed(&coarse, theta_hi).unwrap_or(((l0 + l1) / 2.0, 0.2 * theta_hi));
     let lt_seed = tau_seed.clamp(tau_lo, tau_hi).ln();
-    let mut probes: Vec<(f64, f64)> = Vec::with_capacity(24);
-    for ft in [0.5f64, 1.0, 2.0] {
-        for th in [0.5 * theta_seed, theta_seed, 1.5 * theta_seed + min_h] {
-            probes.push((lt_seed + ft.ln(), th));
-        }
-    }
-    for fl in [0.2, 0.5, 0.8] {
-        for fth in [0.1, 0.5] {
-            probes.push((l0 + fl * (l1 - l0), fth * theta_hi));
-        }
-    }
-    let (_, lt_best, th_best) = probes
+    let (_, lt_best, th_best) = probes((lt_seed, theta_seed), min_h, (l0, l1), theta_hi)
         .iter()
         .map(|&(lt, th)| (cost(lt, th), lt, th))
         .min_by(|a, b| a.0.total_cmp(&b.0))
@@ -285,17 +249,26 @@ pub fn identify<'a>(
     );
     let tau = lt.clamp(l0, l1).exp();
     let theta = th.clamp(0.0, theta_hi);
-    let fit = fit_linear(&prepared, tau, theta);
+    accept(&prepared, tau, theta, tau_hi, settings.min_r2)
+}
+
+/// The linear fit at (τ, θ) as the model, unless it explains too little (R² below `min_r2`) or
+/// τ ran to the top of the search (`tau_hi`), where the data cannot tell it.
+fn accept(
+    prepared: &[Prepared],
+    tau: f64,
+    theta: f64,
+    tau_hi: f64,
+    min_r2: f64,
+) -> Result<Model, Refusal> {
+    let fit = fit_linear(prepared, tau, theta);
     let r2 = if fit.sst > 0.0 {
         1.0 - fit.sse / fit.sst
     } else {
         0.0
     };
-    if r2 < settings.min_r2 || !fit.gain.is_finite() {
-        return Err(Refusal::PoorFit {
-            r2,
-            min_r2: settings.min_r2,
-        });
+    if r2 < min_r2 || !fit.gain.is_finite() {
+        return Err(Refusal::PoorFit { r2, min_r2 });
     }
     if tau > 0.95 * tau_hi {
         return Err(Refusal::TimeConstantUndetermined { limit_s: tau_hi });
@@ -308,6 +281,62 @@ pub fn identify<'a>(
         episodes_used: prepared.len(),
         points_used: prepared.iter().map(|p| p.y.len()).sum(),
     })
+}
+
+/// The episodes that move both OP and PV clearly, the largest PV moves first, at most
+/// `max_episodes`, prepared for the fit; refuses when none does.
+fn excited(
+    segments: Vec<&IdSegment>,
+    noise_sd: f64,
+    op_span: f64,
+    max_episodes: usize,
+) -> Result<Vec<Prepared>, Refusal> {
+    let range = |v: &[f64]| {
+        v.iter().copied().fold(f64::NEG_INFINITY, f64::max)
+            - v.iter().copied().fold(f64::INFINITY, f64::min)
+    };
+    let mut scored: Vec<(f64, &IdSegment)> = Vec::new();
+    let (mut best_op, mut best_pv) = (0.0_f64, 0.0_f64);
+    for s in segments {
+        let (du, dy) = (range(&s.op), range(&s.pv));
+        best_op = best_op.max(du);
+        best_pv = best_pv.max(dy);
+        if du > 0.002 * op_span.abs() && dy > 6.0 * noise_sd {
+            scored.push((dy, s));
+        }
+    }
+    if scored.is_empty() {
+        return Err(Refusal::NoExcitation {
+            op_move: best_op,
+            pv_move: best_pv,
+            noise: noise_sd,
+        });
+    }
+    scored.sort_by(|a, b| b.0.total_cmp(&a.0));
+    scored.truncate(max_episodes.max(1));
+    Ok(scored.iter().map(|(_, s)| Prepared::new(s)).collect())
+}
+
+/// The starting points of the output-error search: around the seed (ln τ, θ) and across the
+/// search box (ln τ from `l0` to `l1`, θ up to `theta_hi`).
+fn probes(
+    (lt_seed, theta_seed): (f64, f64),
+    min_h: f64,
+    (l0, l1): (f64, f64),
+    theta_hi: f64,
+) -> Vec<(f64, f64)> {
+    let mut probes: Vec<(f64, f64)> = Vec::with_capacity(24);
+    for ft in [0.5f64, 1.0, 2.0] {
+        for th in [0.5 * theta_seed, theta_seed, 1.5 * theta_seed + min_h] {
+            probes.push((lt_seed + ft.ln(), th));
+        }
+    }
+    for fl in [0.2, 0.5, 0.8] {
+        for fth in [0.1, 0.5] {
+            probes.push((l0 + fl * (l1 - l0), fth * theta_hi));
+        }
+    }
+    probes
 }
 
 /// Seeds the search with an ARX fit y[k+1] = a·y[k] + b·u[k−d] + c per episode, scanning the

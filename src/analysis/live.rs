@@ -9,9 +9,10 @@
 //! gap, manual, horizon), and reported early as provisional when it has already missed its spec
 //! while its window is still open.
 
-use super::assess::{self, EpisodeResult, PoolEntry, Verdict};
+use super::assess::{self, PoolEntry};
 use super::identify::Model;
 use super::segment::{self, WindowEnd};
+use super::verdict::{EpisodeResult, Verdict};
 use super::{LoopSetup, Series};
 use crate::sample::Signal;
 use std::collections::VecDeque;

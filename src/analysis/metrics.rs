@@ -138,12 +138,17 @@ mod tests {
     fn score(t: &[f64], pv: &[f64], from: f64, to: f64) -> StepMetrics {
         let sp = vec![to; t.len()];
         let op = vec![50.0; t.len()];
+        score_all(t, &sp, pv, &op, from, to)
+    }
+
+    /// Scores a response on a 0–100 OP range with a 2 % band and a 0.5 % saturation margin.
+    fn score_all(t: &[f64], sp: &[f64], pv: &[f64], op: &[f64], from: f64, to: f64) -> StepMetrics {
         step_metrics(
             Response {
                 time_s: t,
-                sp: &sp,
+                sp,
                 pv,
-                op: &op,
+                op,
             },
             from,
             to,
@@ -232,24 +237,7 @@ mod tests {
         let op = vec![
             100.0, 100.0, 99.8, 60.0, 55.0, 100.0, 50.0, 50.0, 50.0, 50.0,
         ];
-        let m = step_metrics(
-            Response {
-                time_s: &t,
-                sp: &sp,
-                pv: &pv,
-                op: &op,
-            },
-            0.0,
-            1.0,
-            0.02,
-            OpRange {
-                min: 0.0,
-                max: 100.0,
-            },
-            0.005,
-            1.0,
-        )
-        .unwrap();
+        let m = score_all(&t, &sp, &pv, &op, 0.0, 1.0);
         // Last outside is sample 3 (0.9); samples 0..=3 of which 3 are within 0.5 of 100.
         assert_eq!(m.settling_time_s, Some(3.0));
         assert!((m.saturation_duty - 0.75).abs() < 1e-12);
@@ -257,7 +245,6 @@ mod tests {
     }
 
     mod properties {
-        use super::super::*;
         use proptest::prelude::*;
 
         /// A noisy second-order-like response sampled irregularly, from `from` to `to`.
@@ -290,27 +277,6 @@ mod tests {
             (t, sp, pv, op)
         }
 
-        fn score(t: &[f64], sp: &[f64], pv: &[f64], op: &[f64], from: f64, to: f64) -> StepMetrics {
-            step_metrics(
-                Response {
-                    time_s: t,
-                    sp,
-                    pv,
-                    op,
-                },
-                from,
-                to,
-                0.02,
-                OpRange {
-                    min: 0.0,
-                    max: 100.0,
-                },
-                0.005,
-                1.0,
-            )
-            .unwrap()
-        }
-
         fn close(a: Option<f64>, b: Option<f64>, tol: f64) -> bool {
             match (a, b) {
                 (Some(x), Some(y)) => (x - y).abs() <= tol * (1.0 + x.abs()),
@@ -328,8 +294,8 @@ mod tests {
             ) {
                 let (t, sp, pv, op) = response(20.0, 30.0, zeta, 1.0, &jitter);
                 let shifted: Vec<f64> = t.iter().map(|x| x + shift).collect();
-                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
-                let b = score(&shifted, &sp, &pv, &op, 20.0, 30.0);
+                let a = super::score_all(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = super::score_all(&shifted, &sp, &pv, &op, 20.0, 30.0);
                 prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-6));
                 prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
                 prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-9);
@@ -346,8 +312,8 @@ mod tests {
                 // Percentages and times are unchanged when PV, SP and Δ are scaled together.
                 let (t, sp, pv, op) = response(20.0, 30.0, zeta, 1.0, &jitter);
                 let map = |v: &[f64]| -> Vec<f64> { v.iter().map(|y| offset + scale * y).collect() };
-                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
-                let b = score(&t, &map(&sp), &map(&pv), &op, offset + scale * 20.0, offset + scale * 30.0);
+                let a = super::score_all(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = super::score_all(&t, &map(&sp), &map(&pv), &op, offset + scale * 20.0, offset + scale * 30.0);
                 prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-9));
                 prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
                 prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-6 * (1.0 + a.overshoot_pct));
@@ -362,8 +328,8 @@ mod tests {
             ) {
                 let (t, sp, pv, op) = response(20.0, 30.0, zeta, wn, &jitter);
                 let mirror = |v: &[f64]| -> Vec<f64> { v.iter().map(|y| 50.0 - y).collect() };
-                let a = score(&t, &sp, &pv, &op, 20.0, 30.0);
-                let b = score(&t, &mirror(&sp), &mirror(&pv), &op, 30.0, 20.0);
+                let a = super::score_all(&t, &sp, &pv, &op, 20.0, 30.0);
+                let b = super::score_all(&t, &mirror(&sp), &mirror(&pv), &op, 30.0, 20.0);
                 prop_assert!(close(a.settling_time_s, b.settling_time_s, 1e-9));
                 prop_assert!(close(a.rise_time_s, b.rise_time_s, 1e-6));
                 prop_assert!((a.overshoot_pct - b.overshoot_pct).abs() < 1e-6 * (1.0 + a.overshoot_pct));

@@ -4,9 +4,11 @@
 //!
 //! Data flow inside: [`segment`] finds setpoint changes and cuts episode windows → [`metrics`]
 //! scores each response model-free → [`identify`] fits one FOPDT model to the loop's episodes →
-//! [`feasibility`] computes the fastest response the actuator allows → [`assess`] gives each
-//! episode its verdict and the loop its recommendation ([`tuning`] supplies PI settings).
+//! [`feasibility`] computes the fastest response the actuator allows → [`verdict`] decides each
+//! episode's verdict from those facts → [`advice`] gives the loop its recommendation ([`tuning`]
+//! supplies PI settings). [`assess`] runs these steps in order.
 
+pub mod advice;
 pub mod assess;
 pub mod controller;
 pub mod feasibility;
@@ -22,6 +24,7 @@ mod series;
 pub mod setup;
 pub mod sim;
 pub mod tuning;
+pub mod verdict;
 
 pub use assess::{EpisodeResult, LoopReport, Recommendation, Verdict, analyze_loop};
 pub use identify::{Fopdt, Model, Refusal};

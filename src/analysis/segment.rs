@@ -102,8 +102,9 @@ pub fn segment(series: &Series, s: &SegmentSettings) -> Segmentation {
         return out;
     }
     let deadband = s.deadband.max(0.0);
-    let gap_after = |i: usize| i + 1 < n && t[i + 1] - t[i] > s.max_gap_s;
-    out.gaps = (0..n.saturating_sub(1)).filter(|&i| gap_after(i)).count();
+    out.gaps = (0..n.saturating_sub(1))
+        .filter(|&i| gap_after(series, i, s.max_gap_s))
+        .count();
 
     let mut level = sp[0];
     // Start of the current undisturbed stretch: after the last gap, manual spell or move end.
@@ -138,30 +139,9 @@ pub fn segment(series: &Series, s: &SegmentSettings) -> Segmentation {
             continue;
         }
 
-        // A move starts. Walk back over samples that were already on their way from the level
-        // (the beginning of a ramp), staying inside the calm stretch.
-        let dir = (sp[i] - level).signum();
-        let mut start = i;
-        while start > calm_from + 1 && {
-            let prev = sp[start - 1];
-            (prev - level) * dir > 0.0 && (sp[start] - prev) * dir > 0.0
-        } {
-            start -= 1;
-        }
-
-        // Find where the SP holds still; stop early at a gap or manual.
-        let mut j = i;
-        let mut interrupted = false;
-        let move_end = loop {
-            if held_from(series, j, deadband, s.sp_hold_s) {
-                break j;
-            }
-            if j + 1 >= n || gap_after(j) || !series.is_auto(j + 1) {
-                interrupted = true;
-                break j;
-            }
-            j += 1;
-        };
+        // A move starts.
+        let start = move_start(sp, i, level, calm_from);
+        let (move_end, interrupted) = move_end(series, i, deadband, s);
         let sp_to = sp[move_end];
         if (sp_to - level).abs() <= deadband {
             out.returned_excursions += 1;
@@ -169,42 +149,11 @@ pub fn segment(series: &Series, s: &SegmentSettings) -> Segmentation {
             continue;
         }
 
-        // The window runs until the next move starts, a gap, manual, the horizon or the end.
-        let horizon_t = t[start] + s.horizon_s;
-        let mut k = move_end + 1;
-        let mut end_reason = if interrupted {
-            if move_end + 1 >= n {
-                WindowEnd::EndOfData
-            } else if gap_after(move_end) {
-                WindowEnd::DataGap
-            } else {
-                WindowEnd::ManualMode
-            }
+        let (end, end_reason) = if interrupted {
+            (move_end + 1, interrupted_by(series, move_end, s))
         } else {
-            WindowEnd::EndOfData
+            window_end(series, move_end, t[start] + s.horizon_s, deadband, s)
         };
-        if !interrupted {
-            while k < n {
-                if t[k] - t[k - 1] > s.max_gap_s {
-                    end_reason = WindowEnd::DataGap;
-                    break;
-                }
-                if !series.is_auto(k) {
-                    end_reason = WindowEnd::ManualMode;
-                    break;
-                }
-                if t[k] > horizon_t {
-                    end_reason = WindowEnd::Horizon;
-                    break;
-                }
-                if (sp[k] - sp_to).abs() > deadband {
-                    end_reason = WindowEnd::NextChange;
-                    break;
-                }
-                k += 1;
-            }
-        }
-        let end = if interrupted { move_end + 1 } else { k };
         out.windows.push(EpisodeWindow {
             start,
             move_end,
@@ -226,6 +175,82 @@ pub fn segment(series: &Series, s: &SegmentSettings) -> Segmentation {
         i = end.max(move_end + 1);
     }
     out
+}
+
+/// Where a move that is under way at sample `i` began: walks back over samples that were
+/// already on their way from `level` (the beginning of a ramp), staying inside the calm stretch
+/// that starts at `calm_from`.
+fn move_start(sp: &[f64], i: usize, level: f64, calm_from: usize) -> usize {
+    let dir = (sp[i] - level).signum();
+    let mut start = i;
+    while start > calm_from + 1 && {
+        let prev = sp[start - 1];
+        (prev - level) * dir > 0.0 && (sp[start] - prev) * dir > 0.0
+    } {
+        start -= 1;
+    }
+    start
+}
+
+/// Where the SP holds still after a move under way at sample `i`, and whether a gap, manual or
+/// the end of the data stopped the search first (the move was interrupted).
+fn move_end(series: &Series, i: usize, deadband: f64, s: &SegmentSettings) -> (usize, bool) {
+    let n = series.len();
+    let mut j = i;
+    loop {
+        if held_from(series, j, deadband, s.sp_hold_s) {
+            return (j, false);
+        }
+        if j + 1 >= n || gap_after(series, j, s.max_gap_s) || !series.is_auto(j + 1) {
+            return (j, true);
+        }
+        j += 1;
+    }
+}
+
+/// Whether the interval after sample `i` is a data gap.
+fn gap_after(series: &Series, i: usize, max_gap_s: f64) -> bool {
+    let t = series.time_s();
+    i + 1 < t.len() && t[i + 1] - t[i] > max_gap_s
+}
+
+/// What interrupted a move that ended at `move_end`: the end of the data, a gap or manual.
+fn interrupted_by(series: &Series, move_end: usize, s: &SegmentSettings) -> WindowEnd {
+    if move_end + 1 >= series.len() {
+        WindowEnd::EndOfData
+    } else if gap_after(series, move_end, s.max_gap_s) {
+        WindowEnd::DataGap
+    } else {
+        WindowEnd::ManualMode
+    }
+}
+
+/// The end (exclusive) of a window whose SP settled at `move_end`, and why it ended: it runs
+/// until the next move starts, a gap, manual, the horizon time or the end of the data.
+fn window_end(
+    series: &Series,
+    move_end: usize,
+    horizon_t: f64,
+    deadband: f64,
+    s: &SegmentSettings,
+) -> (usize, WindowEnd) {
+    let (t, sp, n) = (series.time_s(), series.sp(), series.len());
+    let sp_to = sp[move_end];
+    for k in move_end + 1..n {
+        if t[k] - t[k - 1] > s.max_gap_s {
+            return (k, WindowEnd::DataGap);
+        }
+        if !series.is_auto(k) {
+            return (k, WindowEnd::ManualMode);
+        }
+        if t[k] > horizon_t {
+            return (k, WindowEnd::Horizon);
+        }
+        if (sp[k] - sp_to).abs() > deadband {
+            return (k, WindowEnd::NextChange);
+        }
+    }
+    (n, WindowEnd::EndOfData)
 }
 
 /// Whether the SP stays within `deadband` of `sp[j]` from sample `j` for at least `hold_s`.

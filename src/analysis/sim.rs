@@ -67,6 +67,18 @@ pub struct PiController {
     pub op_max: f64,
 }
 
+impl PiController {
+    /// A PI controller whose OP is a percentage, 0–100 % (a valve's opening, a heater's power).
+    pub const fn on_percent(gain: f64, integral_time_s: f64) -> PiController {
+        PiController {
+            gain,
+            integral_time_s,
+            op_min: 0.0,
+            op_max: 100.0,
+        }
+    }
+}
+
 /// Everything needed to run one simulated loop.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct LoopSimConfig {
@@ -303,18 +315,30 @@ mod tests {
         })
     }
 
+    /// A first-order lag, K = 2, τ = 10 s, without dead time or bias; tests vary it.
+    const LAG: Process = Process {
+        gain: 2.0,
+        time_constant_s: 10.0,
+        second_time_constant_s: 0.0,
+        dead_time_s: 0.0,
+        bias: 0.0,
+    };
+
+    /// An open loop with its OP stepped from 0 to 1 at time 0.
+    fn unit_step(process: Process, step_s: f64) -> LoopSim {
+        let mut sim = open_loop(process, step_s);
+        sim.op = 1.0;
+        sim
+    }
+
     #[test]
     fn first_order_reaches_63_percent_after_one_time_constant() {
         // First-order step response y(τ) = 1 − e⁻¹ ≈ 0.632 (standard result for K/(τs+1)).
         let p = Process {
-            gain: 2.0,
-            time_constant_s: 10.0,
-            second_time_constant_s: 0.0,
             dead_time_s: 3.0,
-            bias: 0.0,
+            ..LAG
         };
-        let mut sim = open_loop(p, 0.01);
-        sim.op = 1.0;
+        let mut sim = unit_step(p, 0.01);
         let mut t = 0.0;
         while t < 13.0 - 1e-9 {
             sim.advance(0.0);
@@ -331,11 +355,10 @@ mod tests {
             gain: 1.5,
             time_constant_s: 8.0,
             second_time_constant_s: 3.0,
-            dead_time_s: 0.0,
             bias: 20.0,
+            ..LAG
         };
-        let mut sim = open_loop(p, 0.05);
-        sim.op = 1.0;
+        let mut sim = unit_step(p, 0.05);
         for _ in 0..200 {
             sim.advance(0.0);
         }
@@ -352,11 +375,8 @@ mod tests {
     #[test]
     fn pi_loop_settles_on_the_setpoint_and_respects_the_actuator_range() {
         let p = Process {
-            gain: 2.0,
-            time_constant_s: 10.0,
-            second_time_constant_s: 0.0,
             dead_time_s: 2.0,
-            bias: 0.0,
+            ..LAG
         };
         let mut sim = LoopSim::new(LoopSimConfig {
             process: p,

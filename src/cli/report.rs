@@ -70,10 +70,7 @@ pub async fn report(args: &ReportArgs, out: &mut dyn Write) -> Result<(), Failur
         .with_context(|| format!("cannot summarise {}", period.label))?;
     match &args.out {
         None => {
-            let text = render(&report, formats[0]).map_err(|detail| ReportError::Render {
-                format: formats[0].as_str(),
-                detail,
-            })?;
+            let text = render(&report, formats[0]).map_err(ReportError::from)?;
             out.write_all(text.as_bytes())?;
         }
         Some(dir) => {

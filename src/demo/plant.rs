@@ -146,12 +146,7 @@ fn feed_flow() -> LoopDef {
         sim: LoopSimConfig {
             process,
             // Proportional-heavy, fast integral: a typical flow-loop tuning (common practice).
-            controller: PiController {
-                gain: 5.0,
-                integral_time_s: 3.5,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(5.0, 3.5),
             step_s: 0.1,
             // A magnetic flowmeter reads to about ±0.5 % of reading (common practice): σ 0.02 L/min
             // at 6 L/min.
@@ -193,12 +188,7 @@ fn pre_heater() -> LoopDef {
         sim: LoopSimConfig {
             process,
             // Close to the SIMC rule for this process (Skogestad 2003) with τc = 2θ.
-            controller: PiController {
-                gain: 2.0,
-                integral_time_s: 50.0,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(2.0, 50.0),
             step_s: 0.5,
             // A Pt100 with its transmitter: a few hundredths of a kelvin of noise (common practice).
             noise_sd: 0.03,
@@ -243,12 +233,7 @@ fn cook_kettle() -> LoopDef {
             // Tuned well: among the fastest settings for setpoint changes on this process
             // with this heater (found by simulating the loop), so the misses this loop has are
             // the heater's, not the controller's.
-            controller: PiController {
-                gain: 60.0,
-                integral_time_s: 280.0,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(60.0, 280.0),
             step_s: 1.0,
             noise_sd: 0.02,
             seed: 120,
@@ -288,12 +273,7 @@ fn hot_water_tank() -> LoopDef {
         sim: LoopSimConfig {
             process,
             // Far below what the process allows (SIMC would give Kc ≈ 13 %/K, τI ≈ 540 s).
-            controller: PiController {
-                gain: 1.5,
-                integral_time_s: 1_800.0,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(1.5, 1_800.0),
             step_s: 1.0,
             noise_sd: 0.03,
             seed: 130,
@@ -328,12 +308,7 @@ fn product_cooler() -> LoopDef {
         sim: LoopSimConfig {
             process,
             // Negative gain: the controller's sign matches the process's.
-            controller: PiController {
-                gain: -2.0,
-                integral_time_s: 100.0,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(-2.0, 100.0),
             step_s: 0.5,
             noise_sd: 0.03,
             seed: 140,
@@ -379,12 +354,7 @@ fn buffer_tank_level() -> LoopDef {
         max_overshoot_pct: None,
         sim: LoopSimConfig {
             process,
-            controller: PiController {
-                gain: 3.0,
-                integral_time_s: 600.0,
-                op_min: 0.0,
-                op_max: 100.0,
-            },
+            controller: PiController::on_percent(3.0, 600.0),
             step_s: 1.0,
             // A radar level transmitter: about ±1 mm (common practice), 0.1 % of span.
             noise_sd: 0.1,

@@ -1,13 +1,15 @@
 //! The demo's closing summary, per loop, from the store the daemon wrote: the setpoint changes it
 //! scored, its latest process model, and the recommendation the analysis core derives from them
-//! ([`crate::analysis::assess::recommend`], the same function `analyze` uses). Nothing here is
+//! ([`crate::analysis::advice::recommend`], the same function `analyze` uses). Nothing here is
 //! computed from the simulator's own knowledge of the plant.
 
 use super::plant::{Link, LoopDef};
-use crate::analysis::assess::{Action, Recommendation, VerdictCounts, recommend};
+use crate::analysis::advice::{Recommendation, recommend};
+use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
 use crate::store::Store;
+use crate::units::fraction_to_pct;
 use anyhow::Context;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -128,16 +130,6 @@ pub struct FilePaths {
     pub reports: Vec<PathBuf>,
 }
 
-fn action_word(a: Action) -> &'static str {
-    match a {
-        Action::None => "none needed",
-        Action::Retune => "retune",
-        Action::Renegotiate => "renegotiate spec",
-        Action::Upgrade => "upgrade actuator",
-        Action::Undecided => "undecided",
-    }
-}
-
 fn link_word(l: Link) -> &'static str {
     match l {
         Link::Mqtt => "MQTT",
@@ -162,18 +154,14 @@ fn wall(d: Duration) -> String {
     }
 }
 
-/// The misses by reason, e.g. "7 actuator, 1 unreachable".
+/// The misses by reason, and the inconclusive changes, e.g. "7 actuator-limited, 1 unreachable".
 fn misses(c: &VerdictCounts) -> String {
-    let parts: Vec<String> = [
-        (c.tuning_limited, "tuning"),
-        (c.actuator_limited, "actuator"),
-        (c.unreachable, "unreachable"),
-        (c.inconclusive, "inconclusive"),
-    ]
-    .iter()
-    .filter(|(n, _)| *n > 0)
-    .map(|(n, w)| format!("{n} {w}"))
-    .collect();
+    let parts = c.occurring(&[
+        Verdict::TuningLimited,
+        Verdict::ActuatorLimited,
+        Verdict::Unreachable,
+        Verdict::Inconclusive,
+    ]);
     if parts.is_empty() {
         "—".into()
     } else {
@@ -208,6 +196,62 @@ fn wrapped(
     writeln!(out, "{line}")
 }
 
+/// One row per loop: changes, share met, typical settling against the spec, misses, advice.
+fn table(loops: &[LoopSummary], out: &mut dyn Write) -> std::io::Result<()> {
+    let misses_w = loops
+        .iter()
+        .map(|l| misses(&l.counts).chars().count())
+        .fold(36, usize::max);
+    writeln!(
+        out,
+        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} advice",
+        "loop", "via", "changes", "met", "settling", "spec", "misses"
+    )?;
+    for l in loops {
+        writeln!(
+            out,
+            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} {}",
+            l.tag,
+            link_word(l.link),
+            l.episodes.len(),
+            l.met_share()
+                .map_or("—".into(), |m| format!("{:.0} %", fraction_to_pct(m))),
+            seconds(l.typical_settling_s()),
+            format!("{:.0} s", l.settle_within_s),
+            misses(&l.counts),
+            l.recommendation.action.label(),
+        )?;
+    }
+    Ok(())
+}
+
+/// Where the run's files are, and the commands to look further.
+fn files_and_next_steps(files: &FilePaths, out: &mut dyn Write) -> std::io::Result<()> {
+    let db = files.store.display();
+    writeln!(out, "\nFiles")?;
+    writeln!(out, "  store   {db}")?;
+    writeln!(out, "  config  {}", files.config.display())?;
+    writeln!(out, "  log     {}", files.log.display())?;
+    for r in &files.reports {
+        writeln!(out, "  report  {}", r.display())?;
+    }
+    writeln!(out, "\nContinue with")?;
+    writeln!(out, "  headroom episodes --db {db} --loop TIC-120")?;
+    writeln!(out, "  headroom alerts --db {db}")?;
+    writeln!(out, "  headroom loops --db {db}")?;
+    writeln!(
+        out,
+        "  headroom report --db {db} --config {} --format html --out .",
+        files.config.display()
+    )?;
+    writeln!(
+        out,
+        "  headroom export --db {db} --loop TIC-130 > tic-130.csv\n  headroom analyze tic-130.csv --config {} --loop TIC-130",
+        files.config.display()
+    )?;
+    Ok(())
+}
+
 /// The summary for people.
 pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> std::io::Result<()> {
     writeln!(
@@ -223,26 +267,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
         }
     )?;
     writeln!(out)?;
-    writeln!(
-        out,
-        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} advice",
-        "loop", "via", "changes", "met", "settling", "spec", "misses"
-    )?;
-    for l in loops {
-        writeln!(
-            out,
-            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<36} {}",
-            l.tag,
-            link_word(l.link),
-            l.episodes.len(),
-            l.met_share()
-                .map_or("—".into(), |m| format!("{:.0} %", 100.0 * m)),
-            seconds(l.typical_settling_s()),
-            format!("{:.0} s", l.settle_within_s),
-            misses(&l.counts),
-            action_word(l.recommendation.action),
-        )?;
-    }
+    table(loops, out)?;
     writeln!(
         out,
         "(changes: setpoint changes scored; met: share of the conclusive ones that met the spec; \
@@ -289,29 +314,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             thousands(unreadable as u64)
         )?;
     }
-    let db = facts.files.store.display();
-    writeln!(out, "\nFiles")?;
-    writeln!(out, "  store   {db}")?;
-    writeln!(out, "  config  {}", facts.files.config.display())?;
-    writeln!(out, "  log     {}", facts.files.log.display())?;
-    for r in &facts.files.reports {
-        writeln!(out, "  report  {}", r.display())?;
-    }
-    writeln!(out, "\nContinue with")?;
-    writeln!(out, "  headroom episodes --db {db} --loop TIC-120")?;
-    writeln!(out, "  headroom alerts --db {db}")?;
-    writeln!(out, "  headroom loops --db {db}")?;
-    writeln!(
-        out,
-        "  headroom report --db {db} --config {} --format html --out .",
-        facts.files.config.display()
-    )?;
-    writeln!(
-        out,
-        "  headroom export --db {db} --loop TIC-130 > tic-130.csv\n  headroom analyze tic-130.csv --config {} --loop TIC-130",
-        facts.files.config.display()
-    )?;
-    Ok(())
+    files_and_next_steps(&facts.files, out)
 }
 
 /// 1234567 → "1,234,567".
@@ -348,7 +351,10 @@ mod tests {
             unreachable: 1,
             inconclusive: 0,
         };
-        assert_eq!(misses(&c), "1 tuning, 7 actuator, 1 unreachable");
+        assert_eq!(
+            misses(&c),
+            "1 tuning-limited, 7 actuator-limited, 1 unreachable"
+        );
         assert_eq!(misses(&VerdictCounts::default()), "—");
     }
 }

@@ -13,14 +13,20 @@
 //! `[report]` ([`schedule`]), keeps it in the store and writes it to the configured folder.
 
 pub mod build;
+pub mod format;
 pub mod period;
 pub mod plot;
+pub mod quality;
+pub mod ranking;
 pub mod render;
 pub mod schedule;
+pub mod section;
+pub mod trend;
 
 pub use build::{Inputs, LoopInput, WeeklyReport, build};
+pub use format::{Format, UnknownFormat};
 pub use period::{Period, PeriodError};
-pub use render::{Format, render};
+pub use render::{RenderError, render};
 
 use crate::config::Config;
 use crate::sample::Signal;
@@ -38,11 +44,8 @@ pub enum ReportError {
     #[error(transparent)]
     Period(#[from] PeriodError),
     /// A template failed to render: a bug in this version, not in the data.
-    #[error("cannot render the {format} summary: {detail}")]
-    Render {
-        format: &'static str,
-        detail: String,
-    },
+    #[error(transparent)]
+    Render(#[from] RenderError),
     #[error("cannot write the summary to {}: {source}", path.display())]
     Write {
         path: PathBuf,
@@ -80,49 +83,8 @@ pub async fn gather(
     for tag in tags {
         let cfg = config.and_then(|c| c.loops.get(&tag));
         let setup = cfg.and_then(|l| l.setup(&tag).ok());
-        // The silence the daemon records as a gap for this loop (the writer's own rule).
-        let gap_ms = setup.as_ref().and_then(|s| {
-            let period = s.options.expected_period_s?;
-            Some((s.options.max_gap_for(period) * 1000.0) as i64)
-        });
-        let mut coverage = Vec::new();
-        for (_, signal) in series.iter().filter(|(t, _)| *t == tag) {
-            coverage.push(
-                store
-                    .coverage(&tag, *signal, period.from_ms(), period.to_ms(), gap_ms)
-                    .await?,
-            );
-        }
-        // The sample period for the tuning prediction: the configured one, else the PV's mean
-        // interval over the period.
-        let sample_s = cfg.and_then(|l| l.expected_period_s).or_else(|| {
-            coverage
-                .iter()
-                .find(|c| c.signal == Signal::Pv && c.samples > 1)
-                .and_then(|c| {
-                    Some((c.last_ms? - c.first_ms?) as f64 / 1000.0 / (c.samples - 1) as f64)
-                })
-        });
-        loops.push(LoopInput {
-            description: cfg.map(|l| l.description.clone()).unwrap_or_default(),
-            pv_unit: cfg.map(|l| l.pv_unit.clone()).unwrap_or_default(),
-            op_unit: cfg.map_or("%".into(), |l| l.op_unit.clone()),
-            setup,
-            sample_s,
-            episodes: episodes
-                .iter()
-                .filter(|e| e.loop_tag == tag)
-                .cloned()
-                .collect(),
-            models: models
-                .iter()
-                .filter(|m| m.loop_tag == tag)
-                .cloned()
-                .collect(),
-            coverage,
-            configured: cfg.is_some(),
-            tag,
-        });
+        let coverage = coverage(store, setup.as_ref(), &tag, &series, period).await?;
+        loops.push(loop_input(tag, cfg, setup, coverage, &episodes, &models));
     }
     let inputs = Inputs {
         periods,
@@ -136,6 +98,71 @@ pub async fn gather(
     let mut report = build(&inputs);
     draw(store, &mut report, &inputs).await?;
     Ok(report)
+}
+
+/// Data coverage of each stored signal of the loop over the period, with the silence the
+/// daemon records as a gap for this loop (the writer's own rule).
+async fn coverage(
+    store: &Store,
+    setup: Option<&crate::analysis::LoopSetup>,
+    tag: &str,
+    series: &[(String, Signal)],
+    period: &Period,
+) -> Result<Vec<crate::store::SeriesCoverage>, ReportError> {
+    let gap_ms = setup.and_then(|s| {
+        let period = s.options.expected_period_s?;
+        Some(crate::units::s_to_ms(s.options.max_gap_for(period)))
+    });
+    let mut coverage = Vec::new();
+    for (_, signal) in series.iter().filter(|(t, _)| t == tag) {
+        coverage.push(
+            store
+                .coverage(tag, *signal, period.from_ms(), period.to_ms(), gap_ms)
+                .await?,
+        );
+    }
+    Ok(coverage)
+}
+
+/// What the builder needs to know about one loop, from its configuration and the store's rows.
+fn loop_input(
+    tag: String,
+    cfg: Option<&crate::config::LoopConfig>,
+    setup: Option<crate::analysis::LoopSetup>,
+    coverage: Vec<crate::store::SeriesCoverage>,
+    episodes: &[crate::store::EpisodeRow],
+    models: &[crate::store::ModelRow],
+) -> LoopInput {
+    // The sample period for the tuning prediction: the configured one, else the PV's mean
+    // interval over the period.
+    let sample_s = cfg.and_then(|l| l.expected_period_s).or_else(|| {
+        coverage
+            .iter()
+            .find(|c| c.signal == Signal::Pv && c.samples > 1)
+            .and_then(|c| {
+                Some(crate::units::ms_to_s(c.last_ms? - c.first_ms?) / (c.samples - 1) as f64)
+            })
+    });
+    LoopInput {
+        description: cfg.map(|l| l.description.clone()).unwrap_or_default(),
+        pv_unit: cfg.map(|l| l.pv_unit.clone()).unwrap_or_default(),
+        op_unit: cfg.map_or("%".into(), |l| l.op_unit.clone()),
+        setup,
+        sample_s,
+        episodes: episodes
+            .iter()
+            .filter(|e| e.loop_tag == tag)
+            .cloned()
+            .collect(),
+        models: models
+            .iter()
+            .filter(|m| m.loop_tag == tag)
+            .cloned()
+            .collect(),
+        coverage,
+        configured: cfg.is_some(),
+        tag,
+    }
 }
 
 /// Adds the plots: each loop's telling change (from its stored samples) and its trend.
@@ -244,10 +271,7 @@ pub fn write_files(
 ) -> Result<Vec<(PathBuf, String)>, ReportError> {
     let mut out = Vec::new();
     for &f in formats {
-        let text = render(report, f).map_err(|detail| ReportError::Render {
-            format: f.as_str(),
-            detail,
-        })?;
+        let text = render(report, f)?;
         let path = folder.join(file_name(period, f));
         // Written beside and renamed, so a reader never sees half a file.
         let tmp = path.with_extension(format!("{}.part", f.as_str()));

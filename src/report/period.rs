@@ -199,6 +199,21 @@ fn short(z: &Zoned) -> String {
     }
 }
 
+/// A time in milliseconds since the epoch as RFC 3339 in the report's zone, to the second, e.g.
+/// `2026-11-23T08:00:00+01:00`; a time outside the representable range as its number.
+pub fn local(ms: i64, tz: &TimeZone) -> String {
+    match Timestamp::from_millisecond(ms) {
+        Ok(t) => rfc3339_zoned(&t.to_zoned(tz.clone())),
+        Err(_) => ms.to_string(),
+    }
+}
+
+/// A zoned time as RFC 3339 with its offset, to the second (unlike [`crate::units::rfc3339`],
+/// which writes UTC with the milliseconds).
+pub fn rfc3339_zoned(z: &Zoned) -> String {
+    z.strftime("%Y-%m-%dT%H:%M:%S%:z").to_string()
+}
+
 #[cfg(test)]
 mod tests {
     //! Expected dates and lengths were checked with Python's `datetime.date.fromisocalendar`

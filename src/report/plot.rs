@@ -6,9 +6,11 @@
 //! series is also told apart by line style and named in a legend, so a grey-scale print or a
 //! colour-blind reader loses nothing.
 
-use super::build::{TellingEpisode, TrendWeek};
+use super::section::TellingEpisode;
+use super::trend::TrendWeek;
 use crate::analysis::feasibility::{self, Reach};
 use crate::analysis::{OpRange, Spec};
+use crate::units::{fraction_to_pct, pct_to_fraction};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
@@ -44,73 +46,102 @@ pub fn episode_svg(
     margin_pct: f64,
     s: &EpisodeSamples,
     pv_unit: &str,
-) -> Result<String, String> {
+) -> Result<String, PlotError> {
+    svg((760, 430), "change", |root| {
+        root.fill(&WHITE)?;
+        let t0 = e.start_ms;
+        let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
+        let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
+        let x_start = -0.1 * x_end.max(1.0 / 60.0);
+        let pv = Panel {
+            pv: thin(&s.pv, minutes),
+            sp: step_points(&thin(&s.sp, minutes), x_end),
+            fastest: fastest_response(e, spec, x_end),
+        };
+        let op_pts = thin(&s.op, minutes);
+        let (upper, lower) = root.split_vertically(270);
+        draw_pv_panel(&upper, e, spec, pv, pv_unit, x_start..x_end)?;
+        draw_op_panel(&lower, op, margin_pct, op_pts, x_start..x_end)
+    })
+}
+
+/// A picture that could not be drawn: a bug in this version, not in the data. Its message is
+/// the drawing library's; the caller says which picture.
+#[derive(Debug, thiserror::Error)]
+#[error("{source}")]
+pub struct PlotError {
+    /// Which picture: `change` or `trend`.
+    pub picture: &'static str,
+    source: DrawError,
+}
+
+type DrawError = Box<dyn std::error::Error + Send + Sync>;
+type DrawResult = Result<(), DrawError>;
+
+/// Draws one picture of `size` pixels into an SVG string.
+fn svg(
+    size: (u32, u32),
+    picture: &'static str,
+    draw: impl FnOnce(&DrawingArea<SVGBackend, Shift>) -> DrawResult,
+) -> Result<String, PlotError> {
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (760, 430)).into_drawing_area();
-        draw_episode(&root, e, spec, op, margin_pct, s, pv_unit).map_err(|x| x.to_string())?;
-        root.present().map_err(|x| x.to_string())?;
+        let root = SVGBackend::with_string(&mut svg, size).into_drawing_area();
+        draw(&root)
+            .and_then(|()| Ok(root.present()?))
+            .map_err(|source| PlotError { picture, source })?;
     }
     Ok(svg)
 }
 
-type DrawResult = Result<(), Box<dyn std::error::Error>>;
+/// The lines of the upper panel: PV, SP as steps, and the fastest possible response with its
+/// t* (when there is a model and a spec and the change is reachable).
+struct Panel {
+    pv: Vec<(f64, f64)>,
+    sp: Vec<(f64, f64)>,
+    fastest: Option<(f64, Vec<(f64, f64)>)>,
+}
 
-fn draw_episode(
-    root: &DrawingArea<SVGBackend, Shift>,
+/// The fastest possible response: OP driven to its limit at the change (the t* of the design),
+/// as t* and the curve in minutes up to `x_end`.
+fn fastest_response(
     e: &TellingEpisode,
     spec: Option<&Spec>,
-    op: Option<&OpRange>,
-    margin_pct: f64,
-    s: &EpisodeSamples,
-    pv_unit: &str,
-) -> DrawResult {
-    root.fill(&WHITE)?;
-    let t0 = e.start_ms;
-    let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
+    x_end: f64,
+) -> Option<(f64, Vec<(f64, f64)>)> {
     let delta = e.sp_to - e.sp_from;
-    let band = spec.map(|sp| sp.settle_band_pct / 100.0 * delta.abs());
-    let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
-    let x_start = -0.1 * x_end.max(1.0 / 60.0);
-
-    // The fastest possible response: OP driven to its limit at the change (the t* of the design).
-    let fastest = e.model.and_then(|m| {
-        let b = spec?.settle_band_pct / 100.0;
-        match feasibility::min_settling_time(&m, delta, e.op_headroom, b) {
-            Reach::Reachable { t_star_s } => Some((m, t_star_s, b)),
-            Reach::Unreachable { .. } => None,
-        }
-    });
-    let fastest_curve: Vec<(f64, f64)> = fastest
-        .map(|(m, t_star, b)| {
-            let reach = m.gain.abs() * e.op_headroom;
-            let sign = delta.signum();
-            let n = 200;
-            (0..=n)
-                .map(|i| {
-                    let t = x_end * 60.0 * i as f64 / n as f64;
-                    let y = if t <= m.dead_time_s {
-                        e.sp_from
-                    } else if t <= t_star {
-                        e.sp_from
-                            + sign
-                                * reach
-                                * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
-                    } else {
-                        // Inside the band the OP backs off and the PV closes on the setpoint.
-                        e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()
-                    };
-                    (t / 60.0, y)
-                })
-                .collect()
+    let m = e.model?;
+    let b = spec?.band_fraction();
+    let Reach::Reachable { t_star_s: t_star } =
+        feasibility::min_settling_time(&m, delta, e.op_headroom, b)
+    else {
+        return None;
+    };
+    let reach = m.gain.abs() * e.op_headroom;
+    let sign = delta.signum();
+    let n = 200;
+    let curve = (0..=n)
+        .map(|i| {
+            let t = x_end * 60.0 * i as f64 / n as f64;
+            let y = if t <= m.dead_time_s {
+                e.sp_from
+            } else if t <= t_star {
+                e.sp_from + sign * reach * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
+            } else {
+                // Inside the band the OP backs off and the PV closes on the setpoint.
+                e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()
+            };
+            (t / 60.0, y)
         })
-        .unwrap_or_default();
+        .collect();
+    Some((t_star, curve))
+}
 
-    let pv = thin(&s.pv, minutes);
-    let sp = step_points(&thin(&s.sp, minutes), x_end);
-    let op_pts = thin(&s.op, minutes);
+/// The PV axis: both setpoints, the PV, the fastest response and the band, with some room.
+fn pv_axis(e: &TellingEpisode, band: Option<f64>, p: &Panel) -> (f64, f64) {
+    let curve = p.fastest.as_ref().map_or(&[][..], |(_, c)| c.as_slice());
     let (mut lo, mut hi) = (e.sp_from.min(e.sp_to), e.sp_from.max(e.sp_to));
-    for (_, y) in pv.iter().chain(&fastest_curve) {
+    for (_, y) in p.pv.iter().chain(curve) {
         lo = lo.min(*y);
         hi = hi.max(*y);
     }
@@ -119,20 +150,32 @@ fn draw_episode(
         hi = hi.max(e.sp_to + w);
     }
     let pad = 0.08 * (hi - lo).max(1e-6);
-    let (lo, hi) = (lo - pad, hi + pad);
+    (lo - pad, hi + pad)
+}
 
-    let (upper, lower) = root.split_vertically(270);
+/// The upper panel: SP, PV inside the spec band, the spec time and the fastest response.
+fn draw_pv_panel(
+    area: &DrawingArea<SVGBackend, Shift>,
+    e: &TellingEpisode,
+    spec: Option<&Spec>,
+    p: Panel,
+    pv_unit: &str,
+    xs: std::ops::Range<f64>,
+) -> DrawResult {
+    let band = spec.map(|sp| sp.band_fraction() * (e.sp_to - e.sp_from).abs());
+    let (lo, hi) = pv_axis(e, band, &p);
     let pv_label = if pv_unit.is_empty() {
         "SP, PV".to_string()
     } else {
         format!("SP, PV ({pv_unit})")
     };
-    let mut chart = ChartBuilder::on(&upper)
+    let x_end = xs.end;
+    let mut chart = ChartBuilder::on(area)
         .margin_top(10)
         .margin_right(16)
         .x_label_area_size(24)
         .y_label_area_size(64)
-        .build_cartesian_2d(x_start..x_end, lo..hi)?;
+        .build_cartesian_2d(xs, lo..hi)?;
     chart
         .configure_mesh()
         .light_line_style(WHITE)
@@ -150,9 +193,7 @@ fn draw_episode(
                 BAND_COLOUR.mix(0.18).filled(),
             )))?
             .label("spec band around the new SP")
-            .legend(|(x, y)| {
-                Rectangle::new([(x, y - 5), (x + 18, y + 5)], BAND_COLOUR.mix(0.3).filled())
-            });
+            .legend(box_key(BAND_COLOUR.mix(0.3).filled()));
     }
     if let Some(sp) = spec {
         let ts = sp.settle_within_s / 60.0;
@@ -164,20 +205,14 @@ fn draw_episode(
                 BAND_COLOUR.stroke_width(2),
             ))?
             .label(format!("spec time ({:.0} s)", sp.settle_within_s))
-            .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], BAND_COLOUR.stroke_width(2)));
+            .legend(line_key(BAND_COLOUR.stroke_width(2)));
     }
-    chart
-        .draw_series(LineSeries::new(sp, SP_COLOUR.stroke_width(1)))?
-        .label("SP")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], SP_COLOUR.stroke_width(1)));
-    chart
-        .draw_series(LineSeries::new(pv, PV_COLOUR.stroke_width(2)))?
-        .label("PV")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], PV_COLOUR.stroke_width(2)));
-    if let Some((_, t_star, _)) = fastest {
+    line(&mut chart, p.sp, SP_COLOUR.stroke_width(1), "SP")?;
+    line(&mut chart, p.pv, PV_COLOUR.stroke_width(2), "PV")?;
+    if let Some((t_star, curve)) = p.fastest {
         chart
             .draw_series(DashedLineSeries::new(
-                fastest_curve,
+                curve,
                 3,
                 3,
                 FASTEST_COLOUR.stroke_width(2),
@@ -185,9 +220,7 @@ fn draw_episode(
             .label(format!(
                 "fastest possible, OP at its limit (t* = {t_star:.0} s)"
             ))
-            .legend(|(x, y)| {
-                PathElement::new([(x, y), (x + 18, y)], FASTEST_COLOUR.stroke_width(2))
-            });
+            .legend(line_key(FASTEST_COLOUR.stroke_width(2)));
         let ts = t_star / 60.0;
         chart.draw_series(DashedLineSeries::new(
             [(ts, lo), (ts, hi)],
@@ -196,15 +229,17 @@ fn draw_episode(
             FASTEST_COLOUR.stroke_width(1),
         ))?;
     }
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::LowerRight)
-        .background_style(WHITE.mix(0.9))
-        .border_style(GRID)
-        .label_font((FONT, 14).into_font().color(&INK))
-        .draw()?;
+    draw_legend(&mut chart)
+}
 
-    // OP with its limits and the stretches spent at one.
+/// The lower panel: OP with its limits and the stretches spent at one.
+fn draw_op_panel(
+    area: &DrawingArea<SVGBackend, Shift>,
+    op: Option<&OpRange>,
+    margin_pct: f64,
+    op_pts: Vec<(f64, f64)>,
+    xs: std::ops::Range<f64>,
+) -> DrawResult {
     let (op_lo, op_hi) = match op {
         Some(r) => (r.min, r.max),
         None => op_pts
@@ -214,12 +249,13 @@ fn draw_episode(
             }),
     };
     let op_pad = 0.06 * (op_hi - op_lo).abs().max(1e-6);
-    let mut chart = ChartBuilder::on(&lower)
+    let (x_start, x_end) = (xs.start, xs.end);
+    let mut chart = ChartBuilder::on(area)
         .margin_right(16)
         .margin_bottom(6)
         .x_label_area_size(36)
         .y_label_area_size(64)
-        .build_cartesian_2d(x_start..x_end, (op_lo - op_pad)..(op_hi + op_pad))?;
+        .build_cartesian_2d(xs, (op_lo - op_pad)..(op_hi + op_pad))?;
     chart
         .configure_mesh()
         .light_line_style(WHITE)
@@ -232,7 +268,7 @@ fn draw_episode(
         .y_labels(4)
         .draw()?;
     if let Some(r) = op {
-        let margin = margin_pct / 100.0 * r.span();
+        let margin = pct_to_fraction(margin_pct) * r.span();
         let stretches = saturated_stretches(&op_pts, r, margin);
         if !stretches.is_empty() {
             chart
@@ -243,12 +279,7 @@ fn draw_episode(
                     )
                 }))?
                 .label("OP at a limit (shaded)")
-                .legend(|(x, y)| {
-                    Rectangle::new(
-                        [(x, y - 5), (x + 18, y + 5)],
-                        LIMIT_COLOUR.mix(0.25).filled(),
-                    )
-                });
+                .legend(box_key(LIMIT_COLOUR.mix(0.25).filled()));
         }
         chart
             .draw_series(
@@ -265,12 +296,33 @@ fn draw_episode(
                     .flat_map(|s| s.into_iter()),
             )?
             .label("OP limits")
-            .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], LIMIT_COLOUR.stroke_width(1)));
+            .legend(line_key(LIMIT_COLOUR.stroke_width(1)));
     }
+    line(&mut chart, op_pts, OP_COLOUR.stroke_width(2), "OP")?;
+    draw_legend(&mut chart)
+}
+
+/// A solid line with its legend entry.
+fn line(chart: &mut Chart, points: Vec<(f64, f64)>, style: ShapeStyle, name: &str) -> DrawResult {
     chart
-        .draw_series(LineSeries::new(op_pts, OP_COLOUR.stroke_width(2)))?
-        .label("OP")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], OP_COLOUR.stroke_width(2)));
+        .draw_series(LineSeries::new(points, style))?
+        .label(name)
+        .legend(line_key(style));
+    Ok(())
+}
+
+/// A legend entry: a short stroke in `style`.
+fn line_key(style: ShapeStyle) -> impl Fn((i32, i32)) -> PathElement<(i32, i32)> {
+    move |(x, y)| PathElement::new([(x, y), (x + 18, y)], style)
+}
+
+/// A legend entry: a small box filled in `style`.
+fn box_key(style: ShapeStyle) -> impl Fn((i32, i32)) -> Rectangle<(i32, i32)> {
+    move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], style)
+}
+
+/// The legend, lower right on a light background.
+fn draw_legend<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>) -> DrawResult {
     chart
         .configure_series_labels()
         .position(SeriesLabelPosition::LowerRight)
@@ -349,14 +401,8 @@ fn step_points(sp: &[(f64, f64)], x_end: f64) -> Vec<(f64, f64)> {
 
 /// The eight-week trend: share of judged changes that met the spec, and the median settling
 /// time beside the spec time.
-pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, String> {
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (760, 230)).into_drawing_area();
-        draw_trend(&root, weeks, spec).map_err(|x| x.to_string())?;
-        root.present().map_err(|x| x.to_string())?;
-    }
-    Ok(svg)
+pub fn trend_svg(weeks: &[TrendWeek], spec: Option<&Spec>) -> Result<String, PlotError> {
+    svg((760, 230), "trend", |root| draw_trend(root, weeks, spec))
 }
 
 /// A period's label short enough for a trend axis: `W48` for an ISO week, the end's month and
@@ -398,7 +444,7 @@ fn draw_trend(
     let shares: Vec<Option<(f64, f64)>> = weeks
         .iter()
         .enumerate()
-        .map(|(i, w)| w.met_share.map(|s| (i as f64, 100.0 * s)))
+        .map(|(i, w)| w.met_share.map(|s| (i as f64, fraction_to_pct(s))))
         .collect();
     draw_segments(&mut chart, &shares, BAND_COLOUR)?;
 
@@ -437,7 +483,7 @@ fn draw_trend(
     Ok(())
 }
 
-type TrendChart<'a, 'b> = ChartContext<
+type Chart<'a, 'b> = ChartContext<
     'a,
     SVGBackend<'b>,
     Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
@@ -451,7 +497,7 @@ fn trend_chart<'a, 'b>(
     (x, y): (std::ops::Range<f64>, std::ops::Range<f64>),
     label_of: &dyn Fn(&f64) -> String,
     weeks: usize,
-) -> Result<TrendChart<'a, 'b>, Box<dyn std::error::Error>> {
+) -> Result<Chart<'a, 'b>, DrawError> {
     let mut chart = ChartBuilder::on(area)
         .caption(caption, (FONT, 15).into_font().color(&INK))
         .margin(8)
@@ -471,11 +517,7 @@ fn trend_chart<'a, 'b>(
 }
 
 /// A line through the weeks that have a value, broken where one has none, with a dot per week.
-fn draw_segments(
-    chart: &mut TrendChart,
-    points: &[Option<(f64, f64)>],
-    colour: RGBColor,
-) -> DrawResult {
+fn draw_segments(chart: &mut Chart, points: &[Option<(f64, f64)>], colour: RGBColor) -> DrawResult {
     for run in points.split(|p| p.is_none()) {
         let run: Vec<(f64, f64)> = run.iter().flatten().copied().collect();
         if run.len() > 1 {

@@ -4,34 +4,12 @@
 //! by the few filters registered here, so both formats write them alike.
 
 use super::build::WeeklyReport;
+pub use super::format::{Format, UnknownFormat};
+use crate::analysis::Verdict;
+use crate::units::fraction_to_pct;
 use minijinja::value::{Serde, Value};
 use minijinja::{Environment, context};
 use std::collections::BTreeMap;
-
-/// A summary format.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum Format {
-    Html,
-    Markdown,
-    Json,
-}
-
-impl Format {
-    pub const ALL: [Format; 3] = [Format::Html, Format::Markdown, Format::Json];
-
-    /// The name used on the command line, in the config and as the file extension.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Format::Html => "html",
-            Format::Markdown => "md",
-            Format::Json => "json",
-        }
-    }
-
-    pub fn parse(s: &str) -> Option<Format> {
-        Format::ALL.into_iter().find(|f| f.as_str() == s)
-    }
-}
 
 /// The inline SVGs of one loop (HTML only).
 #[derive(Debug, Clone, Default, serde::Serialize)]
@@ -40,67 +18,95 @@ pub struct LoopSvgs {
     pub trend: Option<String>,
 }
 
+/// A summary that could not be rendered: a bug in this version, not in the data.
+#[derive(Debug, thiserror::Error)]
+pub enum RenderError {
+    #[error("cannot render the json summary: {0}")]
+    Json(#[from] serde_json::Error),
+    #[error("cannot render the {format} summary: {source:#}")]
+    Template {
+        format: &'static str,
+        source: minijinja::Error,
+    },
+}
+
 /// Renders the summary in one format.
-pub fn render(report: &WeeklyReport, format: Format) -> Result<String, String> {
-    match format {
-        Format::Json => serde_json::to_string_pretty(report)
-            .map(|mut s| {
-                s.push('\n');
-                s
-            })
-            .map_err(|e| e.to_string()),
-        Format::Html | Format::Markdown => {
-            let env = environment(format == Format::Html)?;
-            let name = if format == Format::Html {
-                "report.html"
-            } else {
-                "report.md"
+pub fn render(report: &WeeklyReport, format: Format) -> Result<String, RenderError> {
+    if format == Format::Json {
+        let mut s = serde_json::to_string_pretty(report)?;
+        s.push('\n');
+        return Ok(s);
+    }
+    let template = |source| RenderError::Template {
+        format: format.as_str(),
+        source,
+    };
+    let html = format == Format::Html;
+    let env = environment(html).map_err(template)?;
+    let name = if html { "report.html" } else { "report.md" };
+    let svgs: BTreeMap<&str, Value> = report
+        .loops
+        .iter()
+        .map(|l| {
+            let safe = |s: &Option<String>| s.clone().map(Value::from_safe_string);
+            let v = context! {
+                episode => safe(&l.episode_svg),
+                trend => safe(&l.trend_svg),
             };
-            let svgs: BTreeMap<&str, Value> = report
-                .loops
-                .iter()
-                .map(|l| {
-                    let safe = |s: &Option<String>| s.clone().map(Value::from_safe_string);
-                    let v = context! {
-                        episode => safe(&l.episode_svg),
-                        trend => safe(&l.trend_svg),
-                    };
-                    (l.tag.as_str(), v)
-                })
-                .collect();
-            let tmpl = env.get_template(name).map_err(|e| format!("{e:#}"))?;
-            tmpl.render(context! {
+            (l.tag.as_str(), v)
+        })
+        .collect();
+    env.get_template(name)
+        .and_then(|t| {
+            t.render(context! {
                 r => Serde(report),
                 svgs => svgs,
                 css => Value::from_safe_string(CSS.to_string()),
+                verdicts => verdict_rows(),
             })
-            .map_err(|e| format!("{e:#}"))
-        }
-    }
+        })
+        .map_err(template)
+}
+
+/// How the summary shows each verdict, in [`Verdict::ALL`]'s order: its key in the counts
+/// (the JSON name), its label, and the symbol and CSS classes of the HTML (a symbol beside the
+/// word, so that neither colour nor symbol alone carries meaning; `mix` colours the bar of
+/// verdict shares).
+fn verdict_rows() -> Vec<Value> {
+    Verdict::ALL
+        .iter()
+        .map(|v| {
+            let (symbol, class, mix) = match v {
+                Verdict::Met => ("✓", "met", "met"),
+                Verdict::TuningLimited => ("↻", "tuning", "tuning"),
+                Verdict::ActuatorLimited => ("▲", "actuator", "actuator"),
+                Verdict::Unreachable => ("✕", "actuator", "unreach"),
+                Verdict::Inconclusive => ("?", "neutral", "neutral"),
+            };
+            context! { key => v.as_str(), label => v.label(), symbol, class, mix }
+        })
+        .collect()
 }
 
 const CSS: &str = include_str!("templates/report.css");
 
 /// The templates and filters. HTML drops the newline after each block tag (tidier output);
 /// Markdown keeps them, because there a newline decides where a table or a paragraph ends.
-fn environment(trim_blocks: bool) -> Result<Environment<'static>, String> {
+fn environment(trim_blocks: bool) -> Result<Environment<'static>, minijinja::Error> {
     let mut env = Environment::new();
     env.set_syntax(
         minijinja::syntax::SyntaxConfig::builder()
             .trim_blocks(trim_blocks)
             .keep_trailing_newline(true)
-            .build()
-            .map_err(|e| format!("{e:#}"))?,
+            .build()?,
     );
-    env.add_template("report.html", include_str!("templates/report.html"))
-        .map_err(|e| format!("{e:#}"))?;
-    env.add_template("report.md", include_str!("templates/report.md"))
-        .map_err(|e| format!("{e:#}"))?;
+    env.add_template("report.html", include_str!("templates/report.html"))?;
+    env.add_template("report.md", include_str!("templates/report.md"))?;
     env.add_filter("secs", |v: Option<f64>| -> String {
         v.map_or("—".into(), |s| format!("{s:.0} s"))
     });
     env.add_filter("share", |v: Option<f64>| -> String {
-        v.map_or("—".into(), |s| format!("{:.0} %", 100.0 * s))
+        v.map_or("—".into(), |s| format!("{:.0} %", fraction_to_pct(s)))
     });
     env.add_filter("pct1", |v: Option<f64>| -> String {
         v.map_or("—".into(), |s| format!("{s:.1} %"))

@@ -23,6 +23,15 @@ const MAX_SLEEP: Duration = Duration::from_secs(15 * 60);
 /// After a failed run, the next attempt comes this much later.
 const RETRY_AFTER: Duration = Duration::from_secs(3_600);
 
+/// A `[report]` section that cannot be resolved (the config's checks refuse both cases first).
+#[derive(Debug, thiserror::Error)]
+pub enum ScheduleError {
+    #[error(transparent)]
+    TimeZone(#[from] crate::units::UnknownTimeZone),
+    #[error(transparent)]
+    Format(#[from] super::UnknownFormat),
+}
+
 /// A resolved `[report]` section.
 #[derive(Debug, Clone)]
 pub struct Schedule {
@@ -35,13 +44,17 @@ pub struct Schedule {
 
 impl Schedule {
     /// From the checked config section (its time zone and formats were validated there).
-    pub fn from_settings(s: &ReportSettings) -> Result<Schedule, String> {
+    pub fn from_settings(s: &ReportSettings) -> Result<Schedule, ScheduleError> {
         Ok(Schedule {
             weekday: s.weekday,
             time: s.time,
-            time_zone: crate::units::time_zone(&s.time_zone).map_err(|e| e.to_string())?,
+            time_zone: crate::units::time_zone(&s.time_zone)?,
             folder: s.folder.clone(),
-            formats: s.formats.iter().filter_map(|f| Format::parse(f)).collect(),
+            formats: s
+                .formats
+                .iter()
+                .map(|f| f.parse())
+                .collect::<Result<_, _>>()?,
         })
     }
 

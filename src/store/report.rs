@@ -125,34 +125,26 @@ impl Store {
         to_ms: i64,
         gap_threshold_ms: Option<i64>,
     ) -> Result<SeriesCoverage> {
-        const DOING: &str = "measuring data coverage";
-        let (samples, first_ms, last_ms): (i64, Option<i64>, Option<i64>) = sqlx::query_as(
-            "SELECT COUNT(*), MIN(ts_ms), MAX(ts_ms) FROM samples
-             WHERE series_id = (SELECT id FROM series WHERE loop_tag = ?1 AND signal = ?2)
-               AND ts_ms >= ?3 AND ts_ms < ?4",
-        )
-        .bind(loop_tag)
-        .bind(signal.as_str())
-        .bind(from_ms)
-        .bind(to_ms)
-        .fetch_one(&self.pool)
-        .await
-        .map_err(self.fail(DOING))?;
-        let (gaps, gap_ms, longest): (i64, Option<i64>, Option<i64>) = match gap_threshold_ms {
-            None => (0, None, None),
-            Some(_) => sqlx::query_as(
-                "SELECT COUNT(*), SUM(MIN(to_ms, ?4) - MAX(from_ms, ?3)),
-                        MAX(MIN(to_ms, ?4) - MAX(from_ms, ?3))
-                 FROM gaps
-                 WHERE loop_tag = ?1 AND signal = ?2 AND to_ms > ?3 AND from_ms < ?4",
+        let (samples, first_ms, last_ms) = self
+            .series_row(
+                "SELECT COUNT(*), MIN(ts_ms), MAX(ts_ms) FROM samples
+                 WHERE series_id = (SELECT id FROM series WHERE loop_tag = ?1 AND signal = ?2)
+                   AND ts_ms >= ?3 AND ts_ms < ?4",
+                (loop_tag, signal, from_ms, to_ms),
             )
-            .bind(loop_tag)
-            .bind(signal.as_str())
-            .bind(from_ms)
-            .bind(to_ms)
-            .fetch_one(&self.pool)
-            .await
-            .map_err(self.fail(DOING))?,
+            .await?;
+        let (gaps, gap_ms, longest) = match gap_threshold_ms {
+            None => (0, None, None),
+            Some(_) => {
+                self.series_row(
+                    "SELECT COUNT(*), SUM(MIN(to_ms, ?4) - MAX(from_ms, ?3)),
+                            MAX(MIN(to_ms, ?4) - MAX(from_ms, ?3))
+                     FROM gaps
+                     WHERE loop_tag = ?1 AND signal = ?2 AND to_ms > ?3 AND from_ms < ?4",
+                    (loop_tag, signal, from_ms, to_ms),
+                )
+                .await?
+            }
         };
         Ok(SeriesCoverage {
             loop_tag: loop_tag.to_string(),
@@ -165,6 +157,23 @@ impl Store {
             longest_gap_ms: longest.unwrap_or(0),
             gap_threshold_ms: gap_threshold_ms.unwrap_or(i64::MAX),
         })
+    }
+
+    /// One row of a count and two optional numbers over one series and a half-open period: the
+    /// query binds ?1 the loop's tag, ?2 the signal, ?3 and ?4 the period's ends (ms).
+    async fn series_row(
+        &self,
+        sql: &'static str,
+        (loop_tag, signal, from_ms, to_ms): (&str, Signal, i64, i64),
+    ) -> Result<(i64, Option<i64>, Option<i64>)> {
+        sqlx::query_as(sql)
+            .bind(loop_tag)
+            .bind(signal.as_str())
+            .bind(from_ms)
+            .bind(to_ms)
+            .fetch_one(&self.pool)
+            .await
+            .map_err(self.fail("measuring data coverage"))
     }
 
     /// Keeps a generated summary, replacing an earlier one of the same period and format.

@@ -1,0 +1,72 @@
+//! The summary's output formats: the one list of their names, used by the command line, the
+//! configuration's `[report] formats` and the file names. Depends on nothing else in the crate,
+//! so any layer can name a format.
+
+/// A summary format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Format {
+    Html,
+    Markdown,
+    Json,
+}
+
+impl Format {
+    pub const ALL: [Format; 3] = [Format::Html, Format::Markdown, Format::Json];
+
+    /// The name used on the command line, in the config and as the file extension.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Format::Html => "html",
+            Format::Markdown => "md",
+            Format::Json => "json",
+        }
+    }
+
+    /// The format of a name as [`Format::as_str`] spells it; `None` for any other text.
+    pub fn parse(s: &str) -> Option<Format> {
+        Format::ALL.into_iter().find(|f| f.as_str() == s)
+    }
+
+    /// Every name, for messages: `html, md, json`.
+    pub fn names() -> String {
+        Format::ALL.map(Format::as_str).join(", ")
+    }
+}
+
+/// A format name that is none of [`Format::ALL`].
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("unknown summary format {0:?}; use one of {names}", names = Format::names())]
+pub struct UnknownFormat(pub String);
+
+impl std::str::FromStr for Format {
+    type Err = UnknownFormat;
+
+    fn from_str(s: &str) -> Result<Format, UnknownFormat> {
+        Format::parse(s).ok_or_else(|| UnknownFormat(s.to_owned()))
+    }
+}
+
+impl std::fmt::Display for Format {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn each_format_parses_from_its_own_name_only() {
+        for f in Format::ALL {
+            assert_eq!(Format::parse(f.as_str()), Some(f));
+            assert_eq!(f.as_str().parse::<Format>(), Ok(f));
+        }
+        assert_eq!(Format::parse("markdown"), None);
+        let e = "pdf".parse::<Format>().unwrap_err().to_string();
+        assert_eq!(
+            e,
+            "unknown summary format \"pdf\"; use one of html, md, json"
+        );
+    }
+}
