@@ -18,4 +18,5 @@ pub mod report;
 pub mod sample;
 pub mod source;
 pub mod store;
+pub mod summary_format;
 pub mod units;

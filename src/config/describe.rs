@@ -55,7 +55,11 @@ impl Config {
                 r.weekday,
                 r.time.strftime("%H:%M"),
                 r.time_zone,
-                r.formats.join(", "),
+                r.formats
+                    .iter()
+                    .map(|f| f.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", "),
                 r.folder.display()
             )?;
         }

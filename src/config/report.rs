@@ -3,6 +3,7 @@
 use super::error::Checker;
 use super::raw::RawReport;
 use super::relative_to;
+use crate::summary_format::Format;
 use std::path::PathBuf;
 
 /// `[report]`: when the daemon generates the weekly loop-health summary, and where it goes.
@@ -17,8 +18,21 @@ pub struct ReportSettings {
     pub time_zone: String,
     /// Resolved against the config file's folder when relative.
     pub folder: PathBuf,
-    /// `html`, `md`, `json`; at least one, no repeats.
-    pub formats: Vec<String>,
+    /// At least one, no repeats.
+    pub formats: Vec<Format>,
+}
+
+/// The format names as a sentence: `"html", "md" or "json"`.
+fn quoted_names() -> String {
+    let names: Vec<String> = Format::ALL
+        .iter()
+        .map(|f| format!("{:?}", f.as_str()))
+        .collect();
+    match names.split_last() {
+        Some((last, [])) => last.clone(),
+        Some((last, rest)) => format!("{} or {last}", rest.join(", ")),
+        None => String::new(),
+    }
 }
 
 impl Checker<'_> {
@@ -64,15 +78,15 @@ impl Checker<'_> {
         }
         let mut formats = Vec::new();
         for f in &raw.formats {
-            if !["html", "md", "json"].contains(&f.as_str()) {
-                self.problem(
+            match Format::parse(f) {
+                None => self.problem(
                     &["report", "formats"],
-                    format!("unknown format {f:?}: use \"html\", \"md\" or \"json\""),
-                );
-            } else if formats.contains(f) {
-                self.problem(&["report", "formats"], format!("{f:?} is listed twice"));
-            } else {
-                formats.push(f.clone());
+                    format!("unknown format {f:?}: use {}", quoted_names()),
+                ),
+                Some(format) if formats.contains(&format) => {
+                    self.problem(&["report", "formats"], format!("{f:?} is listed twice"))
+                }
+                Some(format) => formats.push(format),
             }
         }
         if raw.formats.is_empty() {
@@ -108,7 +122,7 @@ mod tests {
         assert_eq!(r.time, jiff::civil::time(7, 30, 0, 0));
         assert_eq!(r.time_zone, "UTC");
         assert_eq!(r.folder, PathBuf::from("/etc/headroom/reports"));
-        assert_eq!(r.formats, ["html", "md", "json"]);
+        assert_eq!(r.formats, crate::summary_format::Format::ALL);
     }
 
     #[test]

@@ -13,7 +13,6 @@
 //! `[report]` ([`schedule`]), keeps it in the store and writes it to the configured folder.
 
 pub mod build;
-pub mod format;
 pub mod period;
 pub mod plot;
 pub mod quality;
@@ -23,8 +22,8 @@ pub mod schedule;
 pub mod section;
 pub mod trend;
 
+pub use crate::summary_format::{Format, UnknownFormat};
 pub use build::{Inputs, LoopInput, WeeklyReport, build};
-pub use format::{Format, UnknownFormat};
 pub use period::{Period, PeriodError};
 pub use render::{RenderError, render};
 

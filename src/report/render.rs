@@ -4,8 +4,8 @@
 //! by the few filters registered here, so both formats write them alike.
 
 use super::build::WeeklyReport;
-pub use super::format::{Format, UnknownFormat};
 use crate::analysis::Verdict;
+pub use crate::summary_format::{Format, UnknownFormat};
 use crate::units::fraction_to_pct;
 use minijinja::value::{Serde, Value};
 use minijinja::{Environment, context};

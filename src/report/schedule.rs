@@ -28,8 +28,6 @@ const RETRY_AFTER: Duration = Duration::from_secs(3_600);
 pub enum ScheduleError {
     #[error(transparent)]
     TimeZone(#[from] crate::units::UnknownTimeZone),
-    #[error(transparent)]
-    Format(#[from] super::UnknownFormat),
 }
 
 /// A resolved `[report]` section.
@@ -50,11 +48,7 @@ impl Schedule {
             time: s.time,
             time_zone: crate::units::time_zone(&s.time_zone)?,
             folder: s.folder.clone(),
-            formats: s
-                .formats
-                .iter()
-                .map(|f| f.parse())
-                .collect::<Result<_, _>>()?,
+            formats: s.formats.clone(),
         })
     }
 

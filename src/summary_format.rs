@@ -1,6 +1,6 @@
-//! The summary's output formats: the one list of their names, used by the command line, the
-//! configuration's `[report] formats` and the file names. Depends on nothing else in the crate,
-//! so any layer can name a format.
+//! The loop-health summary's output formats: the one list of their names, used by the command
+//! line, the configuration's `[report] formats`, the scheduler and the file names. Depends on
+//! nothing else in the crate, so any layer can name a format.
 
 /// A summary format.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
