@@ -690,7 +690,7 @@ mod tests {
     fn brute_force(q: &Question, t1_max: f64, t2_max: f64, n1: usize, n2: usize) -> f64 {
         let p = &q.plant;
         let u_hold = hold_input(q).expect("reachable");
-        let (far, near) = if needs_positive_input(q) {
+        let (u_far, u_near) = if needs_positive_input(q) {
             (q.u_hi, q.u_lo)
         } else {
             (q.u_lo, q.u_hi)
@@ -700,37 +700,50 @@ mod tests {
         let mut best = f64::INFINITY;
         for i in 0..=n1 {
             for j in 0..=n2 {
-                let (t1, t2) = (t1_max * i as f64 / n1 as f64, t2_max * j as f64 / n2 as f64);
-                let mut x = [0.0; 3];
-                let mut t = 0.0;
-                let mut last = 0.0;
-                let end = t1 + t2 + 10.0 * p.slowest_s.max(t1_max / 10.0);
-                while t < end {
-                    let u = if t < t1 {
-                        far
-                    } else if t < t1 + t2 {
-                        near
-                    } else {
-                        u_hold
-                    };
-                    let mut dx = [0.0; 3];
-                    for r in 0..p.n {
-                        dx[r] = (0..p.n).map(|c| p.a[r][c] * x[c]).sum::<f64>() + p.b[r] * u;
-                    }
-                    for r in 0..p.n {
-                        x[r] += dt * dx[r];
-                    }
-                    t += dt;
-                    if (p.output(&x) - q.delta).abs() > band {
-                        last = t;
-                    }
-                }
-                if (p.output(&x) - q.delta).abs() <= band && last < t - 1.0 * p.slowest_s.max(dt) {
+                let seq = Sequence {
+                    t1_s: t1_max * i as f64 / n1 as f64,
+                    t2_s: t2_max * j as f64 / n2 as f64,
+                    u_far,
+                    u_near,
+                    u_hold,
+                };
+                let end = seq.t1_s + seq.t2_s + 10.0 * p.slowest_s.max(t1_max / 10.0);
+                let (last, y_end) = euler(q, &seq, dt, end);
+                if (y_end - q.delta).abs() <= band && last < end - p.slowest_s.max(dt) {
                     best = best.min(last);
                 }
             }
         }
         p.dead_time_s + best
+    }
+
+    /// Plain Euler steps of `dt` of the sequence up to `end`: the last time the output is
+    /// outside the band (dead time excluded) and the output at the end.
+    fn euler(q: &Question, seq: &Sequence, dt: f64, end: f64) -> (f64, f64) {
+        let p = &q.plant;
+        let band = q.band_fraction * q.delta.abs();
+        let (mut x, mut t, mut last) = ([0.0; 3], 0.0, 0.0);
+        while t < end {
+            let u = if t < seq.t1_s {
+                seq.u_far
+            } else if t < seq.t1_s + seq.t2_s {
+                seq.u_near
+            } else {
+                seq.u_hold
+            };
+            let mut dx = [0.0; 3];
+            for r in 0..p.n {
+                dx[r] = (0..p.n).map(|c| p.a[r][c] * x[c]).sum::<f64>() + p.b[r] * u;
+            }
+            for r in 0..p.n {
+                x[r] += dt * dx[r];
+            }
+            t += dt;
+            if (p.output(&x) - q.delta).abs() > band {
+                last = t;
+            }
+        }
+        (last, p.output(&x))
     }
 
     #[test]
@@ -896,32 +909,8 @@ mod tests {
     /// The last time (dead time included) the output of `seq` is outside the band, by plain
     /// Euler steps.
     fn last_outside_euler(q: &Question, seq: &Sequence) -> f64 {
-        let p = &q.plant;
-        let dt = 1e-3;
-        let band = q.band_fraction * q.delta.abs();
-        let end = seq.t1_s + seq.t2_s + 20.0 * p.slowest_s.max(1.0);
-        let (mut x, mut t, mut last) = ([0.0; 3], 0.0, 0.0);
-        while t < end {
-            let u = if t < seq.t1_s {
-                seq.u_far
-            } else if t < seq.t1_s + seq.t2_s {
-                seq.u_near
-            } else {
-                seq.u_hold
-            };
-            let mut dx = [0.0; 3];
-            for r in 0..p.n {
-                dx[r] = (0..p.n).map(|c| p.a[r][c] * x[c]).sum::<f64>() + p.b[r] * u;
-            }
-            for r in 0..p.n {
-                x[r] += dt * dx[r];
-            }
-            t += dt;
-            if (p.output(&x) - q.delta).abs() > band {
-                last = t;
-            }
-        }
-        p.dead_time_s + last
+        let end = seq.t1_s + seq.t2_s + 20.0 * q.plant.slowest_s.max(1.0);
+        q.plant.dead_time_s + euler(q, seq, 1e-3, end).0
     }
 
     #[test]
