@@ -121,6 +121,7 @@ impl DemoError {
 }
 
 #[cfg(feature = "demo-broker")]
+mod progress;
 mod run;
 #[cfg(feature = "demo-broker")]
 pub use run::run;

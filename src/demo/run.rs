@@ -2,8 +2,8 @@
 //! module docs of `demo`).
 
 use super::plant::{Link, LoopDef, Plant, Reading};
+use super::progress::Progress;
 use super::registers::{self, Register};
-use super::summary::thousands;
 use super::{
     CONFIG_FILE, DemoError, DemoOptions, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL,
     MODBUS_PERIOD_S, PUBLISH_EVERY, STALE_AFTER_S, STORE_FILE, broker, summary,
@@ -15,7 +15,7 @@ use crate::store::Store;
 use anyhow::Context;
 use rumqttc::{AsyncClient, EventLoop, MqttOptions, QoS};
 use std::fmt::Write as _;
-use std::io::{IsTerminal, Write};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::{AtomicI64, AtomicU64, Ordering};
@@ -225,11 +225,11 @@ fn payload(samples: &[(i64, f64)]) -> Vec<u8> {
 
 /// Counters shared between the plant, the progress line and the end of the run.
 #[derive(Default)]
-struct Shared {
+pub(super) struct Shared {
     /// The plant's clock, epoch ms.
-    clock_ms: AtomicI64,
+    pub(super) clock_ms: AtomicI64,
     /// Samples handed to the MQTT publisher.
-    published: AtomicU64,
+    pub(super) published: AtomicU64,
 }
 
 /// A running daemon and how to stop it.
@@ -756,95 +756,6 @@ async fn drive(mut eventloop: EventLoop, mut stop: watch::Receiver<bool>) {
             _ = stop.changed() => break,
         }
     }
-}
-
-/// The live status line: a bar, simulated time, samples stored, episodes scored, alerts raised.
-/// On a terminal it redraws one line; otherwise it prints a line at every tenth of the run.
-struct Progress {
-    stop: oneshot::Sender<()>,
-    task: tokio::task::JoinHandle<()>,
-}
-
-impl Progress {
-    fn start(
-        shared: Arc<Shared>,
-        committed: Arc<AtomicU64>,
-        store: Store,
-        start_ms: i64,
-        duration_s: f64,
-    ) -> Progress {
-        let (stop, mut stopped) = oneshot::channel::<()>();
-        let task = tokio::spawn(async move {
-            let tty = std::io::stderr().is_terminal();
-            let mut tick =
-                tokio::time::interval(Duration::from_millis(if tty { 250 } else { 500 }));
-            let mut printed_tenth = -1i64;
-            let mut printed_line = String::new();
-            let mut counts = (0usize, 0u64);
-            loop {
-                let last = tokio::select! {
-                    _ = tick.tick() => false,
-                    _ = &mut stopped => true,
-                };
-                if let (Ok(e), Ok(a)) =
-                    (store.episodes(None, None).await, store.alerts(false).await)
-                {
-                    counts = (
-                        e.iter().filter(|e| e.is_final).count(),
-                        a.iter().map(|a| a.count).sum(),
-                    );
-                }
-                let sim_s = (shared.clock_ms.load(Ordering::Relaxed) - start_ms) as f64 / 1000.0;
-                let frac = (sim_s / duration_s).clamp(0.0, 1.0);
-                let line = status_line(
-                    frac,
-                    shared.clock_ms.load(Ordering::Relaxed),
-                    committed.load(Ordering::Relaxed),
-                    counts.0,
-                    counts.1,
-                );
-                let mut err = std::io::stderr().lock();
-                if tty {
-                    let _ = write!(err, "\r\x1b[2K{line}");
-                    if last {
-                        let _ = writeln!(err);
-                    }
-                } else {
-                    let tenth = (frac * 10.0).floor() as i64;
-                    if tenth > printed_tenth || (last && line != printed_line) {
-                        printed_line.clone_from(&line);
-                        printed_tenth = tenth;
-                        let _ = writeln!(err, "{line}");
-                    }
-                }
-                let _ = err.flush();
-                if last {
-                    break;
-                }
-            }
-        });
-        Progress { stop, task }
-    }
-
-    async fn stop(self) {
-        let _ = self.stop.send(());
-        let _ = self.task.await;
-    }
-}
-
-/// `[██████████░░░░░░░░░░]  52 %  plant time 2026-11-19 14:05  samples 1,234,567  episodes 123  alerts 9`
-fn status_line(frac: f64, clock_ms: i64, samples: u64, episodes: usize, alerts: u64) -> String {
-    const WIDTH: usize = 24;
-    let filled = (frac * WIDTH as f64).round() as usize;
-    let bar: String = "█".repeat(filled) + &"░".repeat(WIDTH - filled);
-    let when = jiff::Timestamp::from_millisecond(clock_ms)
-        .map(|t| t.strftime("%Y-%m-%d %H:%M").to_string())
-        .unwrap_or_default();
-    format!(
-        "[{bar}] {:>3.0} %  plant time {when} UTC  samples {}  episodes {episodes}  alerts {alerts}",
-        frac * 100.0,
-        thousands(samples)
-    )
 }
 
 #[cfg(test)]

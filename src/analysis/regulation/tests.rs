@@ -1,0 +1,252 @@
+use super::*;
+use crate::analysis::sim::Rng;
+
+/// A series sampled every `dt` seconds with SP fixed at 50 and the given PV and OP.
+fn series(dt: f64, pv: Vec<f64>, op: Vec<f64>) -> Series {
+    let n = pv.len();
+    Series::new(
+        (0..n).map(|i| i as f64 * dt).collect(),
+        vec![50.0; n],
+        pv,
+        op,
+        None,
+    )
+    .unwrap()
+}
+
+fn whole(s: &Series, end_reason: HoldEnd) -> Vec<Hold> {
+    vec![Hold {
+        start: 0,
+        end: s.len(),
+        end_reason,
+    }]
+}
+
+const SETTINGS: RegulationSettings = RegulationSettings {
+    op: OpRange::DEFAULT,
+    hold_band: None,
+    dead_time_s: Some(20.0),
+};
+
+fn noise(n: usize, sd: f64, seed: u64) -> Vec<f64> {
+    let mut rng = Rng::new(seed);
+    (0..n).map(|_| sd * rng.normal()).collect()
+}
+
+#[test]
+fn the_harris_index_of_an_ar1_disturbance_is_one_minus_phi_to_the_2d() {
+    // y_t = φ·y_{t−1} + a_t without control: σ²_y = σ²_a/(1 − φ²), σ²_mv = σ²_a(1 − φ^2d)/
+    // (1 − φ²), so η = 1 − φ^(2d) (shared/REFERENCES.md §4, derived there and checked by
+    // simulation): φ = 0.9 → d = 1: 0.19, d = 3: 0.468559, d = 5: 0.651322.
+    let a = noise(200_000, 1.0, 11);
+    let mut y = vec![0.0; a.len()];
+    for k in 1..a.len() {
+        y[k] = 0.9 * y[k - 1] + a[k];
+    }
+    for (d, expected) in [(1, 0.19), (3, 0.468559), (5, 0.651322)] {
+        let eta = harris_index(std::slice::from_ref(&y), 15, d).unwrap();
+        assert!((eta - expected).abs() < 0.01, "d {d}: {eta} vs {expected}");
+    }
+}
+
+#[test]
+fn the_noise_estimate_ignores_slow_movements() {
+    // σ = 0.05 on a slow drift of 2 units over the hold: second differences see the noise.
+    let n = 5000;
+    let e = noise(n, 0.05, 3);
+    let pv: Vec<f64> = (0..n)
+        .map(|i| 50.0 + 2.0 * (i as f64 / n as f64) + e[i])
+        .collect();
+    let s = series(1.0, pv, vec![40.0; n]);
+    let sd = noise_sd(s.pv(), &whole(&s, HoldEnd::EndOfData)).unwrap();
+    assert!((sd - 0.05).abs() < 0.005, "{sd}");
+}
+
+/// Two hours at 1 s; a load at 1000 s pushes the PV up by `size` and the loop brings it back
+/// with a 60 s time constant; the OP answers, held at `op_during` while the PV is out if
+/// given.
+fn with_load(size: f64, recovers: bool, op_during: Option<f64>) -> Series {
+    let n = 7200;
+    let e = noise(n, 0.02, 5);
+    let mut pv = Vec::with_capacity(n);
+    let mut op = Vec::with_capacity(n);
+    for (i, noise) in e.iter().enumerate() {
+        let t = i as f64;
+        let dev = if t < 1000.0 {
+            0.0
+        } else if recovers {
+            size * (-(t - 1000.0) / 60.0).exp()
+        } else {
+            size
+        };
+        pv.push(50.0 + dev + noise);
+        let out = dev.abs() > 0.1;
+        op.push(match (out, op_during) {
+            (true, Some(v)) => v,
+            _ => 40.0 - 5.0 * dev,
+        });
+    }
+    series(1.0, pv, op)
+}
+
+#[test]
+fn a_load_that_the_loop_counters_is_recovered_with_its_peak_and_recovery_time() {
+    let s = with_load(1.0, true, None);
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    assert_eq!(r.disturbances.len(), 1, "{:?}", r.disturbances);
+    let d = &r.disturbances[0];
+    assert_eq!(d.verdict, DisturbanceVerdict::Recovered);
+    assert!((d.start_s - 1000.0).abs() <= 1.0);
+    assert!((d.peak_deviation - 1.0).abs() < 0.1);
+    // Inside the band (4σ = 0.08) for good once 1.0·e^(−t/60) is below the band less the
+    // noise: between 60·ln(1/0.12) ≈ 127 s and 60·ln(1/0.04) ≈ 193 s (±2σ of noise).
+    let rec = d.recovery_time_s.unwrap();
+    assert!((127.0..=193.0).contains(&rec), "{rec}");
+    assert!(!r.oscillation.detected);
+}
+
+#[test]
+fn a_load_met_with_the_op_at_its_limit_is_actuator_limited() {
+    let s = with_load(1.0, false, Some(100.0));
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    assert_eq!(r.disturbances.len(), 1);
+    assert_eq!(
+        r.disturbances[0].verdict,
+        DisturbanceVerdict::ActuatorLimited
+    );
+    assert!(r.disturbances[0].op_at_limit_frac > 0.99);
+    assert!(r.time_at_limit_frac.unwrap() > 0.8);
+}
+
+#[test]
+fn a_load_still_out_at_the_end_of_the_hold_is_judged_by_how_the_hold_ended() {
+    let s = with_load(1.0, false, None);
+    for (end, verdict) in [
+        (HoldEnd::SetpointChange, DisturbanceVerdict::NotRecovered),
+        (HoldEnd::EndOfData, DisturbanceVerdict::NotRecovered),
+        (HoldEnd::DataGap, DisturbanceVerdict::Inconclusive),
+        (HoldEnd::ManualMode, DisturbanceVerdict::Inconclusive),
+    ] {
+        let r = regulation(&s, &whole(&s, end), &SETTINGS);
+        assert_eq!(r.disturbances[0].verdict, verdict, "{end:?}");
+        assert_eq!(r.disturbances[0].recovery_time_s, None);
+    }
+}
+
+/// Six hours of a 120 s cycle of amplitude 1 at 1 s; `valve` makes it a sticking valve's
+/// shape (the OP ramps as a triangle, the PV jumps as a square wave a quarter cycle later),
+/// otherwise the OP mirrors the PV (proportional action on the error).
+fn cycling(valve: bool) -> Series {
+    let n = 21_600;
+    let e = noise(n, 0.02, 9);
+    let w = 2.0 * std::f64::consts::PI / 120.0;
+    let mut pv = Vec::new();
+    let mut op = Vec::new();
+    for (i, noise) in e.iter().enumerate() {
+        let t = i as f64;
+        if valve {
+            let phase = (t / 120.0).fract();
+            let tri = if phase < 0.5 {
+                4.0 * phase - 1.0
+            } else {
+                3.0 - 4.0 * phase
+            };
+            op.push(40.0 + 5.0 * tri);
+            pv.push(50.0 + (w * t).sin().signum() * 1.0 + noise);
+        } else {
+            pv.push(50.0 + (w * t).sin() + noise);
+            op.push(40.0 - 5.0 * (w * t).sin());
+        }
+    }
+    series(1.0, pv, op)
+}
+
+#[test]
+fn a_cycling_loop_is_found_with_its_period_amplitude_and_cause() {
+    let s = cycling(false);
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    let o = &r.oscillation;
+    assert!(o.detected);
+    assert!((o.period_s.unwrap() - 120.0).abs() < 6.0, "{o:?}");
+    assert!((o.amplitude.unwrap() - 1.0).abs() < 0.1, "{o:?}");
+    // 120 s is 6 dead times of 20 s: the loop's own cycle.
+    assert_eq!(o.likely_cause, Some(Cause::Tuning), "{o:?}");
+    assert!(r.disturbances.is_empty(), "cycles are not disturbances");
+    // With a 2 s dead time the same cycle is 60 dead times: it comes from outside.
+    let short = RegulationSettings {
+        dead_time_s: Some(2.0),
+        ..SETTINGS
+    };
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &short);
+    assert_eq!(r.oscillation.likely_cause, Some(Cause::Load));
+    // Without a model no cause is named.
+    let none = RegulationSettings {
+        dead_time_s: None,
+        ..SETTINGS
+    };
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &none);
+    assert_eq!(r.oscillation.likely_cause, None);
+    assert!(
+        r.oscillation
+            .evidence
+            .unwrap()
+            .contains("without a process model")
+    );
+}
+
+#[test]
+fn a_sticking_valve_shape_is_called_valve_with_its_evidence() {
+    let s = cycling(true);
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    assert!(r.oscillation.detected);
+    assert_eq!(
+        r.oscillation.likely_cause,
+        Some(Cause::Valve),
+        "{:?}",
+        r.oscillation
+    );
+    assert!(r.oscillation.evidence.unwrap().contains("odd"));
+}
+
+#[test]
+fn a_healthy_loop_with_random_loads_does_not_oscillate() {
+    for seed in 0..20 {
+        let n = 21_600;
+        let e = noise(n, 0.02, 100 + seed);
+        let bumps = noise(n, 1.0, 200 + seed);
+        let mut pv = Vec::new();
+        let mut dev = 0.0;
+        for i in 0..n {
+            // Random loads: a bump now and then, removed by the loop with a 60 s constant.
+            if bumps[i] > 3.0 {
+                dev += 0.5 * bumps[i].signum();
+            }
+            dev *= (-1.0f64 / 60.0).exp();
+            pv.push(50.0 + dev + e[i]);
+        }
+        let op: Vec<f64> = pv.iter().map(|p| 40.0 - 5.0 * (p - 50.0)).collect();
+        let s = series(1.0, pv, op);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        assert!(!r.oscillation.detected, "seed {seed}: {:?}", r.oscillation);
+    }
+}
+
+#[test]
+fn op_reversals_count_moves_back_beyond_a_tenth_of_a_percent_only() {
+    // A sawtooth between 40 and 60 with a 100 s period (2 reversals per period) plus noise of
+    // 0.01 % of span, which must not count; OP travel is 40 per period.
+    let n = 3600;
+    let e = noise(n, 0.01, 1);
+    let op: Vec<f64> = (0..n)
+        .map(|i| {
+            let ph = (i as f64 / 100.0).fract();
+            let tri = if ph < 0.5 { ph * 2.0 } else { 2.0 - ph * 2.0 };
+            40.0 + 20.0 * tri + e[i]
+        })
+        .collect();
+    let s = series(1.0, vec![50.0; n], op);
+    let (at, travel, rev) = op_figures(&s, &whole(&s, HoldEnd::EndOfData), OpRange::DEFAULT);
+    assert_eq!(at, Some(0.0));
+    assert!((rev as f64 - 72.0).abs() <= 1.0, "{rev}");
+    assert!((travel / 36.0 - 40.0).abs() < 2.0, "{travel}");
+}
