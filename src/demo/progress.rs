@@ -1,13 +1,21 @@
 //! The demo's live status line on the terminal (or a line per tenth of the run in a log).
 
-use super::run::Shared;
 use super::summary::thousands;
 use crate::store::Store;
 use std::io::{IsTerminal, Write};
 use std::sync::Arc;
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicI64, AtomicU64, Ordering};
 use std::time::Duration;
 use tokio::sync::oneshot;
+
+/// Counters shared between the plant, the progress line and the end of the run.
+#[derive(Default)]
+pub(super) struct Shared {
+    /// The plant's clock, epoch ms.
+    pub(super) clock_ms: AtomicI64,
+    /// Samples handed to the MQTT publisher.
+    pub(super) published: AtomicU64,
+}
 
 /// The live status line: a bar, simulated time, samples stored, episodes scored, alerts raised.
 /// On a terminal it redraws one line; otherwise it prints a line at every tenth of the run.

@@ -2,7 +2,7 @@
 //! module docs of `demo`).
 
 use super::plant::{Link, LoopDef, Plant, Reading};
-use super::progress::Progress;
+use super::progress::{Progress, Shared};
 use super::registers::{self, Register};
 use super::{
     CONFIG_FILE, DemoError, DemoOptions, LOG_FILE, MAX_BATCH, MAX_LAG_SAMPLES, MAX_TICK_WALL,
@@ -18,7 +18,7 @@ use std::fmt::Write as _;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
-use std::sync::atomic::{AtomicI64, AtomicU64, Ordering};
+use std::sync::atomic::{AtomicU64, Ordering};
 use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, oneshot, watch};
 
@@ -221,15 +221,6 @@ fn payload(samples: &[(i64, f64)]) -> Vec<u8> {
     }
     s.push(']');
     s.into_bytes()
-}
-
-/// Counters shared between the plant, the progress line and the end of the run.
-#[derive(Default)]
-pub(super) struct Shared {
-    /// The plant's clock, epoch ms.
-    pub(super) clock_ms: AtomicI64,
-    /// Samples handed to the MQTT publisher.
-    pub(super) published: AtomicU64,
 }
 
 /// A running daemon and how to stop it.
