@@ -369,7 +369,9 @@ fn arx_seed(segments: &[Prepared], theta_hi: f64) -> Option<(f64, f64)> {
                 }
                 yy1 += y1 * y1;
             }
-            let Some(p) = solve3(m, r) else { continue };
+            let Some(p) = super::linalg::solve(m, r, 3) else {
+                continue;
+            };
             sse += (yy1 - (p[0] * r[0] + p[1] * r[1] + p[2] * r[2])).max(0.0);
             if p[0] > 0.0 && p[0] < 1.0 {
                 taus.push(-seg.h / p[0].ln());
@@ -381,32 +383,6 @@ fn arx_seed(segments: &[Prepared], theta_hi: f64) -> Option<(f64, f64)> {
     }
     let (_, theta, mut taus) = best?;
     Some((median_in_place(&mut taus), theta))
-}
-
-/// Solves a 3×3 linear system by Gaussian elimination with partial pivoting.
-fn solve3(mut m: [[f64; 3]; 3], mut r: [f64; 3]) -> Option<[f64; 3]> {
-    for c in 0..3 {
-        let p = (c..3).max_by(|&a, &b| m[a][c].abs().total_cmp(&m[b][c].abs()))?;
-        if m[p][c].abs() < 1e-300 {
-            return None;
-        }
-        m.swap(c, p);
-        r.swap(c, p);
-        let pivot = m[c];
-        for i in c + 1..3 {
-            let f = m[i][c] / pivot[c];
-            for (mij, pj) in m[i].iter_mut().zip(pivot).skip(c) {
-                *mij -= f * pj;
-            }
-            r[i] -= f * r[c];
-        }
-    }
-    let mut x = [0.0; 3];
-    for i in (0..3).rev() {
-        let s: f64 = (i + 1..3).map(|j| m[i][j] * x[j]).sum();
-        x[i] = (r[i] - s) / m[i][i];
-    }
-    x.iter().all(|v| v.is_finite()).then_some(x)
 }
 
 /// A segment with its PV centred and OP shifted, which leaves the fit unchanged (the offsets are

@@ -13,6 +13,7 @@ pub mod assess;
 pub mod controller;
 pub mod feasibility;
 pub mod identify;
+mod linalg;
 pub mod live;
 pub mod metrics;
 pub mod mode;

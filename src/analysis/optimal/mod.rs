@@ -26,6 +26,8 @@
 // Small dense matrices (n ≤ 4) read best with explicit indices.
 #![allow(clippy::needless_range_loop)]
 
+use super::linalg::solve;
+
 /// A linear process in deviation variables: ẋ = A·x + B·u(t − θ), y = C·x, with n ≤ 3 states.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Plant {
@@ -109,7 +111,7 @@ impl Plant {
     /// The steady-state gain, `None` for a plant with an integrator.
     pub fn static_gain(&self) -> Option<f64> {
         // Solve A·x = −B; the gain is C·x.
-        let x = solve(&self.a, &self.b.map(|v| -v), self.n)?;
+        let x = solve(self.a, self.b.map(|v| -v), self.n)?;
         Some(dot(&self.c, &x, self.n))
     }
 
@@ -408,7 +410,7 @@ impl<'q> Sim<'q> {
         let mut entered: Option<f64> = None;
         // Where the hold leaves a plant that settles by itself; the watch ends once the state is
         // so close to it that the output cannot leave the band any more.
-        let rest_state = solve(&p.a, &p.b.map(|b| -b * self.u_hold), p.n);
+        let rest_state = solve(p.a, p.b.map(|b| -b * self.u_hold), p.n);
         let scale_c = (0..p.n).map(|i| p.c[i].abs()).sum::<f64>().max(1e-300);
         let near_rest = |x: &[f64; 3]| {
             rest_state.is_some_and(|xs| {
@@ -642,34 +644,6 @@ fn mat_vec(a: &[[f64; 3]; 3], v: &[f64; 3], n: usize) -> [f64; 3] {
 
 fn dot(a: &[f64; 3], b: &[f64; 3], n: usize) -> f64 {
     (0..n).map(|i| a[i] * b[i]).sum()
-}
-
-/// Solves A·x = r for n ≤ 3 by Gaussian elimination with partial pivoting; `None` when A is
-/// singular (the plant has an integrator).
-fn solve(a: &[[f64; 3]; 3], r: &[f64; 3], n: usize) -> Option<[f64; 3]> {
-    let mut m = *a;
-    let mut v = *r;
-    for col in 0..n {
-        let pivot = (col..n).max_by(|&i, &j| m[i][col].abs().total_cmp(&m[j][col].abs()))?;
-        if m[pivot][col].abs() < 1e-300 {
-            return None;
-        }
-        m.swap(col, pivot);
-        v.swap(col, pivot);
-        for row in col + 1..n {
-            let f = m[row][col] / m[col][col];
-            for k in col..n {
-                m[row][k] -= f * m[col][k];
-            }
-            v[row] -= f * v[col];
-        }
-    }
-    let mut x = [0.0; 3];
-    for row in (0..n).rev() {
-        let s: f64 = (row + 1..n).map(|k| m[row][k] * x[k]).sum();
-        x[row] = (v[row] - s) / m[row][row];
-    }
-    Some(x)
 }
 
 #[cfg(test)]

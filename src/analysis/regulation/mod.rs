@@ -32,6 +32,7 @@
 
 use super::Series;
 use super::identify::median_in_place;
+use super::linalg::solve;
 use super::setup::OpRange;
 use serde::Serialize;
 
@@ -134,8 +135,10 @@ const REVERSAL_SHARE: f64 = 0.001;
 /// Hägglund's alarm count, and the supervision time in periods.
 const N_LIM: f64 = 10.0;
 const SUPERVISION_PERIODS: f64 = 50.0;
-/// AR order of the minimum-variance estimate (10–30 typical — from memory).
+/// AR order of the minimum-variance estimate (10–30 typical — from memory), and the largest
+/// order [`harris_index`] takes.
 const AR_ORDER: usize = 15;
+const MAX_AR_ORDER: usize = 30;
 
 /// Analyses the holds of a series.
 pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings) -> Regulation {
@@ -555,9 +558,12 @@ pub fn min_variance_index(
 /// dead time.
 pub fn harris_index(series: &[Vec<f64>], order: usize, d: usize) -> Option<f64> {
     let p = order;
+    if p > MAX_AR_ORDER {
+        return None;
+    }
     // Normal equations of y[k] = Σ a_i·y[k−i] + ε.
-    let mut m = vec![vec![0.0; p]; p];
-    let mut r = vec![0.0; p];
+    let mut m = [[0.0; MAX_AR_ORDER]; MAX_AR_ORDER];
+    let mut r = [0.0; MAX_AR_ORDER];
     let (mut count, mut sum_sq) = (0usize, 0.0);
     for y in series {
         for k in p..y.len() {
@@ -574,7 +580,7 @@ pub fn harris_index(series: &[Vec<f64>], order: usize, d: usize) -> Option<f64> 
     if count < 10 * p {
         return None;
     }
-    let a = solve_dense(m, r)?;
+    let a = solve(m, r, p)?;
     // Residual variance.
     let (mut res, mut n_res) = (0.0, 0usize);
     for y in series {
@@ -597,33 +603,6 @@ pub fn harris_index(series: &[Vec<f64>], order: usize, d: usize) -> Option<f64> 
     }
     let var_mv = var_a * psi.iter().map(|v| v * v).sum::<f64>();
     (var_y > 0.0).then(|| (var_mv / var_y).clamp(0.0, 1.0))
-}
-
-/// Gaussian elimination with partial pivoting.
-fn solve_dense(mut m: Vec<Vec<f64>>, mut r: Vec<f64>) -> Option<Vec<f64>> {
-    let n = r.len();
-    for c in 0..n {
-        let p = (c..n).max_by(|&a, &b| m[a][c].abs().total_cmp(&m[b][c].abs()))?;
-        if m[p][c].abs() < 1e-300 {
-            return None;
-        }
-        m.swap(c, p);
-        r.swap(c, p);
-        let pivot = m[c].clone();
-        for i in c + 1..n {
-            let f = m[i][c] / pivot[c];
-            for (mij, pj) in m[i].iter_mut().zip(&pivot).skip(c) {
-                *mij -= f * pj;
-            }
-            r[i] -= f * r[c];
-        }
-    }
-    let mut x = vec![0.0; n];
-    for i in (0..n).rev() {
-        let s: f64 = (i + 1..n).map(|j| m[i][j] * x[j]).sum();
-        x[i] = (r[i] - s) / m[i][i];
-    }
-    x.iter().all(|v| v.is_finite()).then_some(x)
 }
 
 #[cfg(test)]
