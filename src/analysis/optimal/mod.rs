@@ -338,6 +338,12 @@ struct Sim<'q> {
     dt: f64,
     /// One step's transition (Φ) and input (Γ) matrices.
     step: Step,
+    /// How far t1 (and twice t2) is searched.
+    span: f64,
+    /// The step from the end of a sequence to "far in the future", under the hold input.
+    far: Step,
+    /// Where the hold leaves a plant that settles by itself (`None` with an integrator).
+    rest_state: Option<[f64; 3]>,
 }
 
 #[derive(Debug, Clone, Copy)]
@@ -348,15 +354,22 @@ struct Step {
 
 impl<'q> Sim<'q> {
     fn new(q: &'q Question, u_far: f64, u_near: f64, u_hold: f64) -> Sim<'q> {
+        let p = &q.plant;
         let scale = Sim::time_scale(q, u_far);
         let dt = scale / 400.0;
+        // At full input a self-regulating plant reaches (1 − b) of a reachable change within a
+        // few time constants; the search covers well beyond.
+        let span = 12.0 * scale;
         Sim {
             q,
             u_far,
             u_near,
             u_hold,
             dt,
-            step: Step::of(&q.plant, dt),
+            step: Step::of(p, dt),
+            span,
+            far: Step::of(p, 1000.0 * p.slowest_s.max(span)),
+            rest_state: solve(p.a, p.b.map(|b| -b * u_hold), p.n),
         }
     }
 
@@ -388,10 +401,7 @@ impl<'q> Sim<'q> {
     /// How far t1 (and twice t2) is searched: long enough for the slowest plant to cover the
     /// change at full input.
     fn search_span(&self) -> f64 {
-        let scale = Sim::time_scale(self.q, self.u_far);
-        // At full input a self-regulating plant reaches (1 − b) of a reachable change within a
-        // few time constants; the search covers well beyond.
-        12.0 * scale
+        self.span
     }
 
     /// The settling time (dead time excluded) of the sequence (t1, t2, hold), or infinity when
@@ -408,9 +418,9 @@ impl<'q> Sim<'q> {
         let mut prev_excess = excess(0.0);
         // Time of the last entry into the band.
         let mut entered: Option<f64> = None;
-        // Where the hold leaves a plant that settles by itself; the watch ends once the state is
-        // so close to it that the output cannot leave the band any more.
-        let rest_state = solve(p.a, p.b.map(|b| -b * self.u_hold), p.n);
+        // The watch of the hold ends once the state is so close to where the hold leaves it that
+        // the output cannot leave the band any more.
+        let rest_state = self.rest_state;
         let scale_c = (0..p.n).map(|i| p.c[i].abs()).sum::<f64>().max(1e-300);
         let near_rest = |x: &[f64; 3]| {
             rest_state.is_some_and(|xs| {
@@ -465,8 +475,7 @@ impl<'q> Sim<'q> {
     /// future; it drifts off for a plant with two integrators that is still moving).
     fn resting_output(&self, x: &[f64; 3]) -> f64 {
         let p = &self.q.plant;
-        let far = 1000.0 * p.slowest_s.max(self.search_span());
-        p.output(&Step::of(p, far).apply(x, self.u_hold, p.n))
+        p.output(&self.far.apply(x, self.u_hold, p.n))
     }
 
     /// The state after the first bang of `t1` and a counter-bang of `t2`.
