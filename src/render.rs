@@ -3,7 +3,7 @@
 
 use crate::analysis::assess::{LoopReport, Verdict};
 use crate::csvload::LoadReport;
-use crate::units::fraction_to_pct;
+use crate::units::{fraction_to_pct, human_duration};
 use std::io::Write;
 
 /// JSON: the loop report with the field names the design fixes, plus how the file was read.
@@ -203,16 +203,4 @@ fn trim(x: f64) -> String {
     let s = format!("{x:.3}");
     let s = s.trim_end_matches('0').trim_end_matches('.');
     if s == "-0" { "0".into() } else { s.into() }
-}
-
-fn human_duration(s: f64) -> String {
-    if s >= 2.0 * 86_400.0 {
-        format!("{:.1} days", s / 86_400.0)
-    } else if s >= 2.0 * 3600.0 {
-        format!("{:.1} h", s / 3600.0)
-    } else if s >= 120.0 {
-        format!("{:.1} min", s / 60.0)
-    } else {
-        format!("{s:.1} s")
-    }
 }

@@ -1,5 +1,5 @@
 //! Unit conversions used across the product, defined once: epoch milliseconds ↔ seconds,
-//! RFC 3339 text of a time, and percent ↔ fraction. Pure, no clock.
+//! RFC 3339 text of a time, percent ↔ fraction, and a duration for people. Pure, no clock.
 
 /// Milliseconds in one second.
 pub const MS_PER_S: f64 = 1000.0;
@@ -56,47 +56,17 @@ pub fn fraction_to_pct(fraction: f64) -> f64 {
 }
 
 /// A duration for people: seconds below two minutes, minutes below two hours, hours below two
-/// days, then days; e.g. `45 s`, `12.5 min`, `4.0 h`. A duration that is not a number reads `—`.
+/// days, then days, each to one decimal: `45.0 s`, `12.5 min`, `4.0 h`, `3.0 days`.
 pub fn human_duration(seconds: f64) -> String {
-    if !seconds.is_finite() {
-        return "—".to_owned();
-    }
-    let a = seconds.abs();
-    if a < 10.0 {
-        format!("{} s", significant(seconds, 2))
-    } else if a < 120.0 {
-        format!("{seconds:.0} s")
-    } else if a < 7200.0 {
-        format!("{:.1} min", seconds / 60.0)
-    } else if a < 172_800.0 {
+    if seconds >= 2.0 * 86_400.0 {
+        format!("{:.1} days", seconds / 86_400.0)
+    } else if seconds >= 2.0 * 3600.0 {
         format!("{:.1} h", seconds / 3600.0)
+    } else if seconds >= 120.0 {
+        format!("{:.1} min", seconds / 60.0)
     } else {
-        format!("{:.1} d", seconds / 86_400.0)
+        format!("{seconds:.1} s")
     }
-}
-
-/// A number rounded to `digits` significant figures, without trailing zeros after the point:
-/// 1609.8 → `1610`, 0.28443 → `0.284`, 9.0 → `9`. A value that is not a number reads `—`, never
-/// `NaN` or `inf`.
-pub fn significant(value: f64, digits: u32) -> String {
-    if !value.is_finite() {
-        return "—".to_owned();
-    }
-    if value == 0.0 {
-        return "0".to_owned();
-    }
-    let digits = digits.max(1) as i32;
-    let magnitude = value.abs().log10().floor() as i32;
-    let decimals = (digits - 1 - magnitude).max(0) as usize;
-    let scale = 10f64.powi(digits - 1 - magnitude);
-    let rounded = (value * scale).round() / scale;
-    let text = format!("{rounded:.decimals$}");
-    let text = if text.contains('.') {
-        text.trim_end_matches('0').trim_end_matches('.').to_owned()
-    } else {
-        text
-    };
-    if text == "-0" { "0".to_owned() } else { text }
 }
 
 #[cfg(test)]
@@ -134,24 +104,10 @@ mod tests {
 
     #[test]
     fn durations_read_in_the_unit_that_fits() {
-        assert_eq!(human_duration(4.25), "4.3 s");
-        assert_eq!(human_duration(45.0), "45 s");
+        assert_eq!(human_duration(45.0), "45.0 s");
         assert_eq!(human_duration(750.0), "12.5 min");
         assert_eq!(human_duration(14_400.0), "4.0 h");
-        assert_eq!(human_duration(3.0 * 86_400.0), "3.0 d");
-        assert_eq!(human_duration(f64::INFINITY), "—");
-    }
-
-    #[test]
-    fn numbers_keep_sensible_significant_figures_and_never_read_nan() {
-        assert_eq!(significant(1609.8, 3), "1610");
-        assert_eq!(significant(0.28443, 3), "0.284");
-        assert_eq!(significant(9.0, 3), "9");
-        assert_eq!(significant(-0.0004999, 2), "-0.0005");
-        assert_eq!(significant(105.7, 3), "106");
-        assert_eq!(significant(-0.00001, 1), "-0.00001");
-        assert_eq!(significant(f64::NAN, 3), "—");
-        assert_eq!(significant(f64::NEG_INFINITY, 3), "—");
+        assert_eq!(human_duration(3.0 * 86_400.0), "3.0 days");
     }
 
     #[test]
