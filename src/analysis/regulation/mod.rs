@@ -406,7 +406,8 @@ fn cause_of(
     let t = series.time_s();
     let dt = (t[to - 1] - t[from]) / (to - from - 1).max(1) as f64;
     let max_lag = ((fit.period_s / dt) as usize).clamp(1, u.len() / 2);
-    let ccf = |lag: isize| cross_correlation(u, y, lag);
+    let xc = CrossCorrelation::new(u, y);
+    let ccf = |lag: isize| xc.at(lag);
     let r0 = ccf(0);
     let (mut best_pos, mut best_neg) = (0.0f64, 0.0f64);
     for l in 1..=max_lag as isize {
@@ -459,24 +460,44 @@ fn cause_of(
     }
 }
 
-/// Normalised cross-correlation of `u` (shifted by `lag`) and `y`.
-fn cross_correlation(u: &[f64], y: &[f64], lag: isize) -> f64 {
-    let n = u.len().min(y.len());
-    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len().max(1) as f64;
-    let (mu, my) = (mean(&u[..n]), mean(&y[..n]));
-    let su = u[..n].iter().map(|v| (v - mu).powi(2)).sum::<f64>().sqrt();
-    let sy = y[..n].iter().map(|v| (v - my).powi(2)).sum::<f64>().sqrt();
-    if su == 0.0 || sy == 0.0 {
-        return 0.0;
+/// Normalised cross-correlation of two equally long signals, centred and scaled once.
+struct CrossCorrelation {
+    u: Vec<f64>,
+    y: Vec<f64>,
+    /// The product of the two signals' norms about their means.
+    norm: f64,
+}
+
+impl CrossCorrelation {
+    fn new(u: &[f64], y: &[f64]) -> CrossCorrelation {
+        let n = u.len().min(y.len());
+        let centred = |v: &[f64]| {
+            let mean = v.iter().sum::<f64>() / v.len().max(1) as f64;
+            v.iter().map(|x| x - mean).collect::<Vec<f64>>()
+        };
+        let (u, y) = (centred(&u[..n]), centred(&y[..n]));
+        let norm = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>().sqrt();
+        let norm = norm(&u) * norm(&y);
+        CrossCorrelation { u, y, norm }
     }
-    let mut s = 0.0;
-    for (k, uk) in u[..n].iter().enumerate() {
-        let j = k as isize + lag;
-        if j >= 0 && (j as usize) < n {
-            s += (uk - mu) * (y[j as usize] - my);
+
+    /// The correlation of `u` with `y` shifted by `lag` samples (0 for a constant signal).
+    fn at(&self, lag: isize) -> f64 {
+        if self.norm == 0.0 {
+            return 0.0;
         }
+        let n = self.u.len();
+        let s: f64 = self
+            .u
+            .iter()
+            .enumerate()
+            .filter_map(|(k, uk)| {
+                let j = k as isize + lag;
+                (j >= 0 && (j as usize) < n).then(|| uk * self.y[j as usize])
+            })
+            .sum();
+        s / self.norm
     }
-    s / (su * sy)
 }
 
 /// Share of hold samples at an OP limit, total OP travel, and OP reversals by more than 0.1 % of
