@@ -85,14 +85,13 @@ pub fn step_metrics(
         iae += 0.5 * (e0 + e1) * (r.time_s[k] - r.time_s[k - 1]);
     }
 
-    let margin = saturation_margin * op_range.span().abs();
     let until = match last_outside {
         Some(i) => i + 1,
         None => 1,
     };
     let saturated = r.op[..until]
         .iter()
-        .filter(|&&u| u >= op_range.max - margin || u <= op_range.min + margin)
+        .filter(|&&u| op_range.is_at_limit(u, saturation_margin))
         .count();
 
     let peak_op = if op_dir >= 0.0 {

@@ -147,11 +147,14 @@ impl Finding {
     }
 }
 
-/// A run of samples `[start, end]` (inclusive indices) holding one exact value.
+/// A run of samples `[start, end]` (inclusive indices, times `start_s` to `end_s`) holding one
+/// exact value.
 #[derive(Debug, Clone, Copy, PartialEq)]
 struct Run {
     start: usize,
     end: usize,
+    start_s: f64,
+    end_s: f64,
     value: f64,
 }
 
@@ -168,7 +171,6 @@ pub struct Survey {
     /// Frozen PV runs, each with whether it sits at the record's extreme (clipped).
     frozen_pv: Vec<(Run, bool)>,
     frozen_op: Vec<Run>,
-    time_s: Vec<f64>,
 }
 
 /// Intervals outside [1/2, 3/2] × the median count as irregular; a record is irregular when at
@@ -197,17 +199,16 @@ pub fn survey(series: &Series, op: OpRange, pv_noise_sd: f64) -> Survey {
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
             (a.min(v), b.max(v))
         });
-    let frozen_pv = runs(series.pv())
+    let frozen_pv = runs(t, series.pv())
         .into_iter()
         .filter(|r| spread(&series.op()[r.start..=r.end]) >= FROZEN_PV_OP_MOVE * op.span())
         .map(|r| (r, r.value == lo || r.value == hi))
         .collect();
-    let margin = 0.005 * op.span();
     let error_move = FROZEN_OP_ERROR_MOVE_SIGMA * pv_noise_sd + pv_step.unwrap_or(0.0);
-    let frozen_op = runs(series.op())
+    let frozen_op = runs(t, series.op())
         .into_iter()
         .filter(|r| {
-            let at_limit = r.value <= op.min + margin || r.value >= op.max - margin;
+            let at_limit = op.is_saturated(r.value);
             let error: Vec<f64> = (r.start..=r.end)
                 .map(|i| series.sp()[i] - series.pv()[i])
                 .collect();
@@ -223,7 +224,6 @@ pub fn survey(series: &Series, op: OpRange, pv_noise_sd: f64) -> Survey {
         op_coarseness,
         frozen_pv,
         frozen_op,
-        time_s: t.to_vec(),
     }
 }
 
@@ -240,9 +240,8 @@ impl Survey {
         let mut out = self.record_findings(band, dead_time_s);
         let last = end.saturating_sub(1);
         let overlaps = |r: &Run| r.start <= last && r.end >= start;
-        let span = |r: &Run| (self.time_s[r.start], self.time_s[r.end]);
         for (r, at_end) in self.frozen_pv.iter().filter(|(r, _)| overlaps(r)) {
-            let (start_s, end_s) = span(r);
+            let (start_s, end_s) = (r.start_s, r.end_s);
             let value = r.value;
             let issue = if *at_end {
                 Issue::ClippedPv {
@@ -263,7 +262,7 @@ impl Survey {
             });
         }
         for r in self.frozen_op.iter().filter(|r| overlaps(r)) {
-            let (start_s, end_s) = span(r);
+            let (start_s, end_s) = (r.start_s, r.end_s);
             out.push(Finding {
                 issue: Issue::FrozenOp {
                     start_s,
@@ -386,7 +385,7 @@ fn coarseness(pv: &[f64], op: &[f64]) -> f64 {
 }
 
 /// Runs of at least [`MIN_FROZEN_SAMPLES`] exactly equal values.
-fn runs(v: &[f64]) -> Vec<Run> {
+fn runs(t: &[f64], v: &[f64]) -> Vec<Run> {
     let mut out = Vec::new();
     let mut start = 0;
     for i in 1..=v.len() {
@@ -395,6 +394,8 @@ fn runs(v: &[f64]) -> Vec<Run> {
                 out.push(Run {
                     start,
                     end: i - 1,
+                    start_s: t[start],
+                    end_s: t[i - 1],
                     value: v[start],
                 });
             }

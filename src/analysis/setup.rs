@@ -90,6 +90,21 @@ impl OpRange {
         self.max - self.min
     }
 
+    /// Whether `op` is at a limit: within `margin` (a fraction of the span) of either end.
+    pub fn is_at_limit(&self, op: f64, margin: f64) -> bool {
+        let m = margin * self.span().abs();
+        op >= self.max - m || op <= self.min + m
+    }
+
+    /// [`OpRange::is_at_limit`] with the default margin,
+    /// [`AnalysisOptions::DEFAULT_SATURATION_MARGIN_PCT`] of the span.
+    pub fn is_saturated(&self, op: f64) -> bool {
+        self.is_at_limit(
+            op,
+            crate::units::pct_to_fraction(AnalysisOptions::DEFAULT_SATURATION_MARGIN_PCT),
+        )
+    }
+
     /// The range's problem, if any: both ends finite and the lower one below the upper.
     pub fn problems(&self) -> Vec<Problem> {
         let mut out = Vec::new();

@@ -128,8 +128,6 @@ const MIN_OUT_RUN: usize = 3;
 const RECOVERED_AFTER_S: f64 = 60.0;
 /// The share of out-of-band samples at an OP limit that makes a disturbance actuator-limited.
 const AT_LIMIT_SHARE: f64 = 0.3;
-/// OP within this share of its span from a limit is at the limit (DESIGN: 0.5 %).
-const LIMIT_MARGIN: f64 = 0.005;
 /// A reversal of the OP counts when it moves back by more than this share of its span.
 const REVERSAL_SHARE: f64 = 0.001;
 /// Hägglund's alarm count, and the supervision time in periods.
@@ -210,11 +208,6 @@ pub fn noise_sd(pv: &[f64], holds: &[Hold]) -> Option<f64> {
     Some(1.4826 * median_in_place(&mut dev) / 6f64.sqrt())
 }
 
-fn at_limit(op: f64, range: OpRange) -> bool {
-    let m = LIMIT_MARGIN * range.span();
-    op <= range.min + m || op >= range.max - m
-}
-
 /// The disturbances of one hold.
 fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Disturbance> {
     let (t, sp, pv, u) = (series.time_s(), series.sp(), series.pv(), series.op());
@@ -249,7 +242,7 @@ fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Dis
         }
         let stop = recovered.unwrap_or(h.end);
         let outside: Vec<usize> = (start..stop).filter(|&k| out(k)).collect();
-        let limited = outside.iter().filter(|&&k| at_limit(u[k], op)).count();
+        let limited = outside.iter().filter(|&&k| op.is_saturated(u[k])).count();
         let frac = limited as f64 / outside.len().max(1) as f64;
         let peak = (start..stop)
             .map(|k| pv[k] - sp[k])
@@ -513,7 +506,7 @@ fn op_figures(series: &Series, holds: &[Hold], op: OpRange) -> (Option<f64>, f64
         for i in h.start..h.end {
             let v = u[i];
             n += 1;
-            if at_limit(v, op) {
+            if op.is_saturated(v) {
                 at += 1;
             }
             if i > h.start {
