@@ -134,7 +134,7 @@ pub(crate) fn segment_settings(series: &Series, setup: &LoopSetup) -> SegmentSet
         deadband: opts.sp_deadband.unwrap_or((1e-3 * max_abs_sp).max(1e-9)),
         sp_hold_s: opts.sp_hold_s.unwrap_or(3.0 * period),
         max_gap_s: opts.max_gap_for(period),
-        horizon_s: opts.horizon_factor * setup.spec.settle_within_s,
+        horizon_s: setup.horizon_s(),
     }
 }
 

@@ -353,7 +353,7 @@ impl LoopTracker {
     fn trim(&mut self, series: &Series, open_from: usize) {
         let t = series.time_s();
         let n = t.len();
-        let horizon = self.setup.options.horizon_factor * self.setup.spec.settle_within_s;
+        let horizon = self.setup.horizon_s();
         let look_back = 0.25 * horizon;
         let idle_cut = t[n - 1] - look_back;
         let by_time = t.partition_point(|&x| x < idle_cut).saturating_sub(50);

@@ -237,6 +237,11 @@ impl LoopSetup {
         }
     }
 
+    /// The evaluation horizon (s): episode windows end this long after their change.
+    pub fn horizon_s(&self) -> f64 {
+        self.options.horizon_factor * self.spec.settle_within_s
+    }
+
     /// Every problem with the setup's numbers: OP range, spec, options.
     pub fn problems(&self) -> Vec<Problem> {
         let mut out = self.op.problems();

@@ -22,7 +22,7 @@ use crate::config::Config;
 use crate::modbus::source as modbus;
 use crate::mqtt::source as mqtt;
 use crate::sample::Signal;
-use crate::store::Store;
+use crate::store::{LoopRow, Store};
 use crate::units::ms_to_s;
 use anyhow::Context;
 use std::collections::HashMap;
@@ -66,6 +66,7 @@ impl Daemon {
         };
         let devices = modbus_devices(config, &system_clock())?;
         let mut loops = HashMap::new();
+        let stored = store.loops_overview().await?;
         for (tag, l) in config.loops.iter().filter(|(_, l)| l.is_watched()) {
             let setup: LoopSetup = l
                 .setup(tag)
@@ -76,7 +77,8 @@ impl Daemon {
                 .expected_period_s
                 .with_context(|| format!("loop {tag}: a watched loop needs expected_period_s"))?;
             let mut rt = writer::LoopRuntime::new(setup, expected, period, l.stale_after_periods);
-            resume(&store, tag, &mut rt)
+            let overview = stored.iter().find(|r| r.loop_tag == *tag);
+            resume(&store, overview, &mut rt)
                 .await
                 .with_context(|| format!("cannot resume loop {tag} from the store"))?;
             loops.insert(Arc::from(tag.as_str()), rt);
@@ -194,17 +196,16 @@ impl Daemon {
 /// Feeds a loop's tracker what the store holds from before a restart: the rows of the last
 /// evaluation horizon and a quarter (what any open episode can need), the newest final episode
 /// and the newest model.
-async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyhow::Result<()> {
-    let setup = rt.tracker.setup().clone();
-    let look_back_ms = writer::horizon_ms(&setup, 1.25);
-    let overview = store
-        .loops_overview()
-        .await?
-        .into_iter()
-        .find(|r| r.loop_tag == tag);
+async fn resume(
+    store: &Store,
+    overview: Option<&LoopRow>,
+    rt: &mut writer::LoopRuntime,
+) -> anyhow::Result<()> {
+    let look_back_ms = writer::horizon_ms(rt.tracker.setup(), 1.25);
     let Some(overview) = overview else {
         return Ok(());
     };
+    let tag = overview.loop_tag.as_str();
     for (&signal, &ts) in &overview.last_sample_ms {
         rt.resumed_from(signal, ts);
     }
@@ -220,12 +221,7 @@ async fn resume(store: &Store, tag: &str, rt: &mut writer::LoopRuntime) -> anyho
         .filter(|e| e.is_final)
         .map(|e| ms_to_s(e.start_ms))
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.max(t))));
-    let model = store
-        .latest_models()
-        .await?
-        .into_iter()
-        .find(|m| m.loop_tag == tag)
-        .map(|m| m.model());
+    let model = overview.latest_model.as_ref().map(|m| m.model());
     tracing::info!(loop_tag = tag, rows = rows.len(), "resumed from the store");
     rt.tracker.resume(&rows, final_until, model);
     Ok(())

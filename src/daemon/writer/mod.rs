@@ -578,7 +578,7 @@ impl Writer {
 /// `times` the loop's evaluation horizon (its horizon factor times its spec's settling time),
 /// in milliseconds: how far back the live analysis can look.
 pub fn horizon_ms(setup: &LoopSetup, times: f64) -> i64 {
-    s_to_ms(times * setup.options.horizon_factor * setup.spec.settle_within_s)
+    s_to_ms(times * setup.horizon_s())
 }
 
 fn log_model(tag: &str, m: &Model) {
