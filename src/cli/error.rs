@@ -83,13 +83,8 @@ impl Failure {
     /// Output piped into a program that closed early (`| head`): not an error.
     pub fn is_broken_pipe(&self) -> bool {
         let broken = |e: &std::io::Error| e.kind() == std::io::ErrorKind::BrokenPipe;
-        match self {
-            Failure::Io(e) => broken(e),
-            Failure::Runtime(e) => e
-                .chain()
-                .any(|c| c.downcast_ref::<std::io::Error>().is_some_and(broken)),
-            _ => false,
-        }
+        std::iter::successors(Some(self as &dyn std::error::Error), |e| e.source())
+            .any(|e| e.downcast_ref::<std::io::Error>().is_some_and(broken))
     }
 }
 
@@ -171,6 +166,9 @@ mod tests {
         assert!(Failure::from(pipe()).is_broken_pipe());
         let wrapped = anyhow::Error::new(pipe()).context("writing the table");
         assert!(Failure::from(wrapped).is_broken_pipe());
+        // The demo writes its summary through its own error type.
+        let demo = DemoError::Run(anyhow::Error::new(pipe()).context("writing the summary"));
+        assert!(Failure::from(demo).is_broken_pipe());
         assert!(!Failure::from(Usage::NoStore).is_broken_pipe());
     }
 }
