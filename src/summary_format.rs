@@ -26,24 +26,6 @@ impl Format {
     pub fn parse(s: &str) -> Option<Format> {
         Format::ALL.into_iter().find(|f| f.as_str() == s)
     }
-
-    /// Every name, for messages: `html, md, json`.
-    pub fn names() -> String {
-        Format::ALL.map(Format::as_str).join(", ")
-    }
-}
-
-/// A format name that is none of [`Format::ALL`].
-#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
-#[error("unknown summary format {0:?}; use one of {names}", names = Format::names())]
-pub struct UnknownFormat(pub String);
-
-impl std::str::FromStr for Format {
-    type Err = UnknownFormat;
-
-    fn from_str(s: &str) -> Result<Format, UnknownFormat> {
-        Format::parse(s).ok_or_else(|| UnknownFormat(s.to_owned()))
-    }
 }
 
 impl std::fmt::Display for Format {
@@ -60,13 +42,7 @@ mod tests {
     fn each_format_parses_from_its_own_name_only() {
         for f in Format::ALL {
             assert_eq!(Format::parse(f.as_str()), Some(f));
-            assert_eq!(f.as_str().parse::<Format>(), Ok(f));
         }
         assert_eq!(Format::parse("markdown"), None);
-        let e = "pdf".parse::<Format>().unwrap_err().to_string();
-        assert_eq!(
-            e,
-            "unknown summary format \"pdf\"; use one of html, md, json"
-        );
     }
 }

@@ -133,6 +133,17 @@ pub struct VerdictCounts {
 }
 
 impl VerdictCounts {
+    /// Changes with a verdict other than inconclusive.
+    pub fn conclusive(&self) -> usize {
+        self.met + self.tuning_limited + self.actuator_limited + self.unreachable
+    }
+
+    /// The changes that met the spec as a share of the conclusive ones; `None` without any.
+    pub fn met_share(&self) -> Option<f64> {
+        let conclusive = self.conclusive();
+        (conclusive > 0).then(|| self.met as f64 / conclusive as f64)
+    }
+
     pub fn of(episodes: &[EpisodeResult]) -> VerdictCounts {
         let mut c = VerdictCounts::default();
         for e in episodes {

@@ -17,6 +17,13 @@ pub(super) struct Shared {
     pub(super) published: AtomicU64,
 }
 
+impl Shared {
+    /// Plant time since the run's start (s).
+    pub(super) fn plant_time_s(&self, start_ms: i64) -> f64 {
+        crate::units::ms_to_s(self.clock_ms.load(Ordering::Relaxed) - start_ms)
+    }
+}
+
 /// The live status line: a bar, simulated time, samples stored, episodes scored, alerts raised.
 /// On a terminal it redraws one line; otherwise it prints a line at every tenth of the run.
 pub(super) struct Progress {
@@ -53,7 +60,7 @@ impl Progress {
                         a.iter().map(|a| a.count).sum(),
                     );
                 }
-                let sim_s = (shared.clock_ms.load(Ordering::Relaxed) - start_ms) as f64 / 1000.0;
+                let sim_s = shared.plant_time_s(start_ms);
                 let frac = (sim_s / duration_s).clamp(0.0, 1.0);
                 let line = status_line(
                     frac,

@@ -444,7 +444,7 @@ async fn simulate(
     reader.close().await;
     daemon.stop().await?;
     let facts = summary::RunFacts {
-        simulated_s: plant_time(&shared, start_ms),
+        simulated_s: shared.plant_time_s(start_ms),
         wall: run_wall,
         speed,
         interrupted,
@@ -673,10 +673,6 @@ async fn write_report(
     let dir = files.store.parent().unwrap_or(Path::new("."));
     let written = crate::report::write_files(&report, &period, &Format::ALL, dir)?;
     Ok(written.into_iter().map(|(p, _)| p).collect())
-}
-
-fn plant_time(shared: &Shared, start_ms: i64) -> f64 {
-    (shared.clock_ms.load(Ordering::Relaxed) - start_ms) as f64 / 1000.0
 }
 
 fn daemon_ended(res: Result<anyhow::Result<()>, tokio::task::JoinError>) -> anyhow::Error {

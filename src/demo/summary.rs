@@ -35,8 +35,7 @@ pub struct LoopSummary {
 impl LoopSummary {
     /// Conclusive changes that met the spec, as a share of the conclusive ones.
     pub fn met_share(&self) -> Option<f64> {
-        let conclusive = self.episodes.len() - self.counts.inconclusive;
-        (conclusive > 0).then(|| self.counts.met as f64 / conclusive as f64)
+        self.counts.met_share()
     }
 
     /// The median settling time of the conclusive changes; infinite when most never settled.

@@ -22,7 +22,7 @@ pub mod schedule;
 pub mod section;
 pub mod trend;
 
-pub use crate::summary_format::{Format, UnknownFormat};
+pub use crate::summary_format::Format;
 pub use build::{Inputs, LoopInput, WeeklyReport, build};
 pub use period::{Period, PeriodError};
 pub use render::{RenderError, render};

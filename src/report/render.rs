@@ -5,7 +5,7 @@
 
 use super::build::WeeklyReport;
 use crate::analysis::Verdict;
-pub use crate::summary_format::{Format, UnknownFormat};
+pub use crate::summary_format::Format;
 use crate::units::fraction_to_pct;
 use minijinja::value::{Serde, Value};
 use minijinja::{Environment, context};

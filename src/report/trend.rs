@@ -109,7 +109,7 @@ pub(super) fn week_stats(week: &[&Episode]) -> WeekStats {
         changes: results.len(),
         counts,
         judged,
-        met_share: (judged > 0).then(|| counts.met as f64 / judged as f64),
+        met_share: counts.met_share(),
         median_settling_s: median,
         median_not_settled,
         worst_settling_s: finite(&mut settling.iter().flatten().copied()),
