@@ -79,7 +79,10 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
 pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
     let t = series.time_s();
     let n = series.len();
-    let seg_settings = segment_settings(series, setup);
+    let median_sample_s = median_interval(t);
+    let max_abs_sp = series.sp().iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+    let period = setup.options.expected_period_s.unwrap_or(median_sample_s);
+    let seg_settings = segment_settings(setup, max_abs_sp, period);
     let seg = segment::segment(series, &seg_settings);
 
     // Model-free scores first; they also bound the data used for identification.
@@ -104,7 +107,7 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
         data: DataSummary {
             samples: n,
             duration_s: if n > 0 { t[n - 1] - t[0] } else { 0.0 },
-            median_sample_s: median_interval(t),
+            median_sample_s,
             gaps: seg.gaps,
             pv_noise_sd: pv_noise_sd(series.pv()),
             sp_deadband: seg_settings.deadband,
@@ -122,17 +125,13 @@ pub(crate) fn median_interval(t: &[f64]) -> f64 {
 }
 
 /// Segmentation settings: what the setup gives, else derived — the SP deadband from the largest
-/// |SP| in the data, hold and gap limits from the loop's expected sample period (or, without
-/// one, the median sample interval of the data).
-pub(crate) fn segment_settings(series: &Series, setup: &LoopSetup) -> SegmentSettings {
+/// |SP| seen, hold and gap limits from the sample period (the loop's expected one, or without
+/// it the median sample interval of the data).
+pub(crate) fn segment_settings(setup: &LoopSetup, max_abs_sp: f64, period: f64) -> SegmentSettings {
     let opts = &setup.options;
-    let max_abs_sp = series.sp().iter().fold(0.0_f64, |m, v| m.max(v.abs()));
-    let period = opts
-        .expected_period_s
-        .unwrap_or_else(|| median_interval(series.time_s()));
     SegmentSettings {
-        deadband: opts.sp_deadband.unwrap_or((1e-3 * max_abs_sp).max(1e-9)),
-        sp_hold_s: opts.sp_hold_s.unwrap_or(3.0 * period),
+        deadband: opts.sp_deadband_for(max_abs_sp),
+        sp_hold_s: opts.sp_hold_for(period),
         max_gap_s: opts.max_gap_for(period),
         horizon_s: setup.horizon_s(),
     }

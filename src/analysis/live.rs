@@ -290,10 +290,12 @@ impl LoopTracker {
             Ok(s) => s,
             Err(_) => return events,
         };
-        let mut settings = assess::segment_settings(&series, &self.setup);
-        if self.setup.options.sp_deadband.is_none() {
-            settings.deadband = (1e-3 * self.max_abs_sp).max(1e-9);
-        }
+        let period = self
+            .setup
+            .options
+            .expected_period_s
+            .unwrap_or_else(|| assess::median_interval(series.time_s()));
+        let settings = assess::segment_settings(&self.setup, self.max_abs_sp, period);
         let seg = segment::segment(&series, &settings);
         let t = series.time_s();
         let mut keep_from = t.len().saturating_sub(1);
@@ -314,8 +316,8 @@ impl LoopTracker {
                     // A model carried over from before a restart is only replaced once a few new
                     // episodes can outvote it.
                     if self.model.is_none() || self.pool.len() >= MIN_POOL_TO_REPLACE {
-                        let pool: Vec<PoolEntry> = self.pool.iter().cloned().collect();
-                        if let Ok(m) = assess::identify_pool(&pool, &self.setup) {
+                        let pool = self.pool.make_contiguous();
+                        if let Ok(m) = assess::identify_pool(pool, &self.setup) {
                             events.push(LiveEvent::Model(m));
                             self.model = Some(m);
                         }

@@ -166,6 +166,18 @@ impl AnalysisOptions {
     /// Upgrades up to this multiple of today's capacity are advised; beyond, renegotiation.
     pub const DEFAULT_UPGRADE_RATIO_LIMIT: f64 = 2.0;
 
+    /// SP moves no larger than this are jitter, unless `sp_deadband` says: 0.1 % of the largest
+    /// |SP| seen.
+    pub fn sp_deadband_for(&self, max_abs_sp: f64) -> f64 {
+        self.sp_deadband.unwrap_or((1e-3 * max_abs_sp).max(1e-9))
+    }
+
+    /// How long the SP must hold still to end a move (s), for a loop sampled every `period_s`.
+    pub fn sp_hold_for(&self, period_s: f64) -> f64 {
+        self.sp_hold_s
+            .unwrap_or(AnalysisOptions::HOLD_PERIODS * period_s)
+    }
+
     /// The silence that counts as a data gap (s), for a loop sampled every `period_s`.
     pub fn max_gap_for(&self, period_s: f64) -> f64 {
         self.max_gap_s
