@@ -27,6 +27,7 @@ pub use build::{Inputs, LoopInput, WeeklyReport, build};
 pub use period::{Period, PeriodError};
 pub use render::{RenderError, render};
 
+use crate::analysis::AnalysisOptions;
 use crate::config::Config;
 use crate::sample::Signal;
 use crate::store::Store;
@@ -201,7 +202,9 @@ async fn draw(
         if samples.sp.first().is_none_or(|(ts, _)| *ts > from) {
             samples.sp.insert(0, (from, t.sp_from));
         }
-        let margin = setup.map_or(0.5, |s| s.options.saturation_margin_pct);
+        let margin = setup.map_or(AnalysisOptions::DEFAULT_SATURATION_MARGIN_PCT, |s| {
+            s.options.saturation_margin_pct
+        });
         match plot::episode_svg(
             t,
             section.spec.as_ref(),

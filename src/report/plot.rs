@@ -268,8 +268,7 @@ fn draw_op_panel(
         .y_labels(4)
         .draw()?;
     if let Some(r) = op {
-        let margin = pct_to_fraction(margin_pct) * r.span();
-        let stretches = saturated_stretches(&op_pts, r, margin);
+        let stretches = saturated_stretches(&op_pts, r, pct_to_fraction(margin_pct));
         if !stretches.is_empty() {
             chart
                 .draw_series(stretches.into_iter().map(|(a, b)| {
@@ -333,9 +332,10 @@ fn draw_legend<'a, 'b: 'a>(chart: &mut Chart<'a, 'b>) -> DrawResult {
     Ok(())
 }
 
-/// Times (minutes) where the OP sat within `margin` of a limit, as closed stretches.
+/// Times (minutes) where the OP sat within `margin` (a fraction of the span) of a limit, as
+/// closed stretches.
 fn saturated_stretches(op: &[(f64, f64)], r: &OpRange, margin: f64) -> Vec<(f64, f64)> {
-    let at_limit = |v: f64| v >= r.max - margin || v <= r.min + margin;
+    let at_limit = |v: f64| r.is_at_limit(v, margin);
     let mut out = Vec::new();
     let mut start: Option<f64> = None;
     for (i, (t, v)) in op.iter().enumerate() {
@@ -557,7 +557,11 @@ mod tests {
             (4.0, 0.2),
             (5.0, 0.0),
         ];
-        assert_eq!(saturated_stretches(&op, &r, 0.5), [(1.0, 3.0), (4.0, 5.0)]);
+        // 0.5 % of a 0–100 span.
+        assert_eq!(
+            saturated_stretches(&op, &r, 0.005),
+            [(1.0, 3.0), (4.0, 5.0)]
+        );
     }
 
     #[test]
