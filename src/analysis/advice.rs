@@ -11,8 +11,9 @@
 
 use super::CAUTION;
 use super::feasibility::{self, Reach};
-use super::identify::{self, Fopdt, Model};
+use super::identify::{Fopdt, Model};
 use super::setup::LoopSetup;
+use super::stats;
 use super::tuning::{self, PiSuggestion};
 use super::verdict::{EpisodeResult, Verdict, VerdictCounts};
 use serde::Serialize;
@@ -354,7 +355,7 @@ fn actuator_words(action: Action, e: &ActuatorEvidence, spec_s: f64, tally: Tall
 
 fn median(values: impl Iterator<Item = f64>) -> f64 {
     let mut v: Vec<f64> = values.collect();
-    identify::median_in_place(&mut v)
+    stats::median_in_place(&mut v)
 }
 
 /// Median magnitude, with the sign of the majority.

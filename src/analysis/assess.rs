@@ -8,7 +8,7 @@ use super::identify::{self, IdSegment, Model, Refusal};
 use super::metrics::{self, OpRange, Response};
 use super::segment::{self, EpisodeWindow, SegmentSettings};
 use super::verdict::{self, Capability, Context, Facts};
-use super::{LoopSetup, Series, Spec};
+use super::{LoopSetup, Series, Spec, stats};
 use serde::Serialize;
 
 pub use super::advice::{Action, ActuatorEvidence, Recommendation, recommend};
@@ -121,7 +121,7 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
 /// Median interval between samples, 0 for fewer than two samples.
 pub(crate) fn median_interval(t: &[f64]) -> f64 {
     let mut dts: Vec<f64> = t.windows(2).map(|w| w[1] - w[0]).collect();
-    identify::median_in_place(&mut dts)
+    stats::median_in_place(&mut dts)
 }
 
 /// Segmentation settings: what the setup gives, else derived — the SP deadband from the largest
@@ -161,7 +161,7 @@ impl PoolEntry {
 /// Identifies the loop's model from a pool of episodes.
 pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<Model, Refusal> {
     let mut noises: Vec<f64> = pool.iter().map(|p| p.noise).collect();
-    let noise = identify::median_in_place(&mut noises);
+    let noise = stats::median_in_place(&mut noises);
     // The PV cannot respond before the dead time: the earliest 10 % crossing of a change well
     // above the noise bounds the dead-time search.
     let max_dead_time = pool
@@ -414,7 +414,5 @@ pub fn pv_noise_sd(pv: &[f64]) -> f64 {
         return 0.0;
     }
     let mut d: Vec<f64> = pv.windows(2).map(|w| w[1] - w[0]).collect();
-    let med = identify::median_in_place(&mut d);
-    let mut dev: Vec<f64> = d.iter().map(|x| (x - med).abs()).collect();
-    1.4826 * identify::median_in_place(&mut dev) / std::f64::consts::SQRT_2
+    stats::robust_sd(&mut d) / std::f64::consts::SQRT_2
 }

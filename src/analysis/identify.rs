@@ -130,7 +130,7 @@ pub fn build_segment(
     let t_a = time_s[0];
     let duration = time_s[n - 1] - t_a;
     let mut gaps: Vec<f64> = time_s.windows(2).map(|w| w[1] - w[0]).collect();
-    let median_dt = median_in_place(&mut gaps);
+    let median_dt = super::stats::median_in_place(&mut gaps);
     let step = median_dt.max(duration / max_points.max(4) as f64);
     if step.is_nan() || step <= 0.0 {
         return None;
@@ -199,7 +199,7 @@ pub fn identify<'a>(
     let durations: Vec<f64> = prepared.iter().map(|p| p.h * p.y.len() as f64).collect();
     let max_dur = durations.iter().copied().fold(0.0, f64::max);
     let mut sorted = durations.clone();
-    let median_dur = median_in_place(&mut sorted);
+    let median_dur = super::stats::median_in_place(&mut sorted);
     let tau_lo = 0.3 * min_h;
     let tau_hi = 10.0 * max_dur;
     let theta_hi = match max_dead_time_s {
@@ -382,7 +382,7 @@ fn arx_seed(segments: &[Prepared], theta_hi: f64) -> Option<(f64, f64)> {
         }
     }
     let (_, theta, mut taus) = best?;
-    Some((median_in_place(&mut taus), theta))
+    Some((super::stats::median_in_place(&mut taus), theta))
 }
 
 /// A segment with its PV centred and OP shifted, which leaves the fit unchanged (the offsets are
@@ -576,16 +576,6 @@ fn nelder_mead(
         .min_by(|&a, &b| vals[a].total_cmp(&vals[b]))
         .unwrap_or(0);
     (pts[best][0], pts[best][1])
-}
-
-/// Median of a slice (reorders it). 0 for an empty slice.
-pub(crate) fn median_in_place(v: &mut [f64]) -> f64 {
-    if v.is_empty() {
-        return 0.0;
-    }
-    let mid = v.len() / 2;
-    let (_, m, _) = v.select_nth_unstable_by(mid, f64::total_cmp);
-    *m
 }
 
 #[cfg(test)]

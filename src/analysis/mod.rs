@@ -24,6 +24,7 @@ pub mod segment;
 mod series;
 pub mod setup;
 pub mod sim;
+mod stats;
 pub mod tuning;
 pub mod verdict;
 

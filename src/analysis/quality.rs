@@ -19,8 +19,8 @@
 //! plant data, stated beside each), not published values.
 
 use super::Series;
-use super::identify::median_in_place;
 use super::setup::OpRange;
+use super::stats::median_in_place;
 use serde::Serialize;
 
 /// What a finding does to the verdicts it touches.

@@ -31,9 +31,9 @@
 //!   d = ⌊θ/Ts⌋ + 1 samples of dead time.
 
 use super::Series;
-use super::identify::median_in_place;
 use super::linalg::solve;
 use super::setup::OpRange;
+use super::stats::{median_in_place, robust_sd};
 use serde::Serialize;
 
 /// Why a hold ended.
@@ -203,9 +203,7 @@ pub fn noise_sd(pv: &[f64], holds: &[Hold]) -> Option<f64> {
     if d2.len() < 10 {
         return None;
     }
-    let med = median_in_place(&mut d2);
-    let mut dev: Vec<f64> = d2.iter().map(|x| (x - med).abs()).collect();
-    Some(1.4826 * median_in_place(&mut dev) / 6f64.sqrt())
+    Some(robust_sd(&mut d2) / 6f64.sqrt())
 }
 
 /// The disturbances of one hold.
