@@ -20,33 +20,12 @@ pub enum AlertKind {
 }
 
 impl AlertKind {
-    /// Every kind, in a stable order.
-    pub const ALL: [AlertKind; 4] = [
-        AlertKind::Missed(Verdict::TuningLimited),
-        AlertKind::Missed(Verdict::ActuatorLimited),
-        AlertKind::Missed(Verdict::Unreachable),
-        AlertKind::StaleTag,
-    ];
-
     /// The kind as stored and published (`tuning_limited`, …, `stale_tag`).
     pub fn as_str(self) -> &'static str {
         match self {
             AlertKind::Missed(v) => v.as_str(),
             AlertKind::StaleTag => "stale_tag",
         }
-    }
-
-    /// The kind as people read it: the verdict's label (`tuning-limited`, …) or `stale tag`.
-    pub fn label(self) -> &'static str {
-        match self {
-            AlertKind::Missed(v) => v.label(),
-            AlertKind::StaleTag => "stale tag",
-        }
-    }
-
-    /// The kind of a stored alert, from [`AlertKind::as_str`]'s spelling.
-    pub fn parse(s: &str) -> Option<AlertKind> {
-        AlertKind::ALL.into_iter().find(|k| k.as_str() == s)
     }
 }
 
@@ -161,17 +140,10 @@ mod tests {
     }
 
     #[test]
-    fn kinds_read_back_and_verdicts_keep_their_spellings() {
-        for k in AlertKind::ALL {
-            assert_eq!(AlertKind::parse(k.as_str()), Some(k));
-        }
+    fn kinds_keep_their_stored_spellings() {
         let k = AlertKind::Missed(Verdict::ActuatorLimited);
-        assert_eq!(
-            (k.as_str(), k.label()),
-            ("actuator_limited", "actuator-limited")
-        );
+        assert_eq!(k.as_str(), "actuator_limited");
         assert_eq!(AlertKind::StaleTag.as_str(), "stale_tag");
-        assert_eq!(AlertKind::parse("met"), None);
     }
 
     #[test]

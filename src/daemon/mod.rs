@@ -76,7 +76,8 @@ impl Daemon {
             let period = l
                 .expected_period_s
                 .with_context(|| format!("loop {tag}: a watched loop needs expected_period_s"))?;
-            let mut rt = writer::LoopRuntime::new(setup, expected, period, l.stale_after_periods);
+            let stale_after = l.stale_after().unwrap_or(std::time::Duration::MAX);
+            let mut rt = writer::LoopRuntime::new(setup, expected, period, stale_after);
             let overview = stored.iter().find(|r| r.loop_tag == *tag);
             resume(&store, overview, &mut rt)
                 .await

@@ -153,7 +153,6 @@ struct Link {
     pending: VecDeque<Outbound>,
     backoff: Duration,
     errors: RateLimitedLog,
-    is_connected: bool,
     connected_at: Option<tokio::time::Instant>,
     /// Whether this run's subscriptions have been confirmed. A resumed session holds the
     /// filters of the run that created it, not necessarily this config's (a loop may have been
@@ -180,7 +179,6 @@ impl Link {
             pending: VecDeque::new(),
             backoff: BACKOFF_FIRST,
             errors: RateLimitedLog::new(Duration::from_secs(30)),
-            is_connected: false,
             connected_at: None,
             has_subscribed: false,
             writer_done: false,
@@ -227,7 +225,6 @@ impl Link {
 
     fn connected(&mut self, ack: &rumqttc::ConnAck) {
         self.connected_at = Some(tokio::time::Instant::now());
-        self.is_connected = true;
         tracing::info!(
             host = %self.params.host, port = self.params.port,
             session_present = ack.session_present,
@@ -339,14 +336,11 @@ impl Link {
         // The back-off starts over only after a connection that lasted: a link that drops
         // right after connecting (two clients sharing our id, a broker that closes on us) must
         // not reconnect at full speed.
-        if self
-            .connected_at
-            .is_some_and(|t| t.elapsed() >= STABLE_AFTER)
-        {
+        let connected_at = self.connected_at.take();
+        if connected_at.is_some_and(|t| t.elapsed() >= STABLE_AFTER) {
             self.backoff = BACKOFF_FIRST;
         }
-        self.connected_at = None;
-        let was_connected = std::mem::replace(&mut self.is_connected, false);
+        let was_connected = connected_at.is_some();
         if let Some(suppressed) = self.errors.allow() {
             if was_connected {
                 tracing::warn!(error = %e, suppressed, "lost the MQTT connection; reconnecting");

@@ -36,10 +36,10 @@ const RETRY_AFTER: Duration = Duration::from_secs(1);
 pub struct LoopRuntime {
     pub tracker: LoopTracker,
     pub aligner: Aligner,
-    /// The signals the configuration says this loop has, with the period they should arrive at.
+    /// The signals the configuration says this loop has.
     pub expected: Vec<Signal>,
-    pub expected_period_s: f64,
-    pub stale_after_periods: f64,
+    /// A signal silent for longer than this is stale.
+    stale_after_ms: i64,
     last_seen_ms: HashMap<Signal, i64>,
     /// The newest stored sample of each signal from before a restart, so that the silence
     /// across the restart is recorded as a gap.
@@ -55,7 +55,7 @@ impl LoopRuntime {
         setup: LoopSetup,
         expected: Vec<Signal>,
         expected_period_s: f64,
-        stale_after_periods: f64,
+        stale_after: Duration,
     ) -> LoopRuntime {
         let uses_mode = expected.contains(&Signal::Mode);
         // A signal that has gone quiet holds rows back for at most a few periods.
@@ -65,8 +65,7 @@ impl LoopRuntime {
             tracker: LoopTracker::new(setup),
             aligner: Aligner::new(uses_mode, patience),
             expected,
-            expected_period_s,
-            stale_after_periods,
+            stale_after_ms: i64::try_from(stale_after.as_millis()).unwrap_or(i64::MAX),
             last_seen_ms: HashMap::new(),
             resumed_ms: HashMap::new(),
             gap_after_ms,
@@ -502,7 +501,7 @@ impl Writer {
         let watched_from = self.clock.first_ms.unwrap_or(now);
         let mut newly: Vec<AlertInput> = Vec::new();
         for (tag, rt) in self.loops.iter_mut() {
-            let limit_ms = s_to_ms(rt.stale_after_periods * rt.expected_period_s);
+            let limit_ms = rt.stale_after_ms;
             let silent: Vec<Signal> = rt
                 .expected
                 .iter()
