@@ -104,7 +104,15 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
     let mut loops: Vec<LoopSection> = inputs
         .loops
         .iter()
-        .map(|l| section::build_loop(l, &inputs.periods, &tz, &mut data_quality))
+        .map(|l| {
+            section::build_loop(
+                l,
+                &inputs.periods,
+                &tz,
+                inputs.config_given,
+                &mut data_quality,
+            )
+        })
         .collect();
     data_quality.extend(quality::stale_tags(&inputs.alerts, period, &tz));
     let ranking = ranking::rank(&mut loops);

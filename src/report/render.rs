@@ -11,13 +11,6 @@ use minijinja::value::{Serde, Value};
 use minijinja::{Environment, context};
 use std::collections::BTreeMap;
 
-/// The inline SVGs of one loop (HTML only).
-#[derive(Debug, Clone, Default, serde::Serialize)]
-pub struct LoopSvgs {
-    pub episode: Option<String>,
-    pub trend: Option<String>,
-}
-
 /// A summary that could not be rendered: a bug in this version, not in the data.
 #[derive(Debug, thiserror::Error)]
 pub enum RenderError {

@@ -187,11 +187,13 @@ pub struct TellingEpisode {
 }
 
 /// Builds one loop's section over the last of `periods` (the others are its trend), adding
-/// what is odd about its data to `data_quality`.
+/// what is odd about its data to `data_quality`. `config_given`: whether the report had a
+/// configuration at all.
 pub(super) fn build_loop(
     l: &LoopInput,
     periods: &[Period],
     tz: &TimeZone,
+    config_given: bool,
     data_quality: &mut Vec<String>,
 ) -> LoopSection {
     let period = periods.last().expect("at least one period");
@@ -232,7 +234,8 @@ pub(super) fn build_loop(
         &l.coverage,
         l.configured,
     ));
-    if !l.configured && l.setup.is_none() && !data_quality.iter().any(|d| d == quality::NO_CONFIG) {
+    // Without any configuration the report says so once, not per loop.
+    if !l.configured && l.setup.is_none() && config_given {
         data_quality.push(quality::not_configured(&l.tag));
     }
 
