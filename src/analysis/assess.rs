@@ -402,7 +402,7 @@ pub(crate) fn judge(
         reach: feasible.as_ref().map(|f| f.capability.reach),
         required_op_limit: feasible.as_ref().and_then(|f| f.required_op_limit),
         capacity_ratio: feasible.as_ref().and_then(|f| f.capacity_ratio),
-        verdict: judgement.verdict,
+        verdict: judgement.verdict(),
         reason: verdict::explain(&judgement, &facts, &setup.spec, &context),
     }
 }

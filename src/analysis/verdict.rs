@@ -267,18 +267,21 @@ impl Ground {
 /// A decided verdict with its ground.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Judgement {
-    pub verdict: Verdict,
     pub ground: Ground,
+}
+
+impl Judgement {
+    /// The verdict its ground gives.
+    pub fn verdict(&self) -> Verdict {
+        self.ground.verdict()
+    }
 }
 
 /// Decides the verdict of one change from its facts against the spec (the rules in the module
 /// documentation).
 pub fn decide(f: &Facts, spec: &Spec) -> Judgement {
     let ground = ground(f, spec);
-    Judgement {
-        verdict: ground.verdict(),
-        ground,
-    }
+    Judgement { ground }
 }
 
 fn ground(f: &Facts, spec: &Spec) -> Ground {
@@ -434,7 +437,7 @@ mod tests {
     }
 
     fn verdict(f: Facts) -> Verdict {
-        decide(&f, &spec()).verdict
+        decide(&f, &spec()).verdict()
     }
 
     fn with_fastest(t_star: f64) -> Option<Capability> {
@@ -447,7 +450,7 @@ mod tests {
     #[test]
     fn a_change_settled_in_time_without_overshoot_is_met() {
         let j = decide(&facts(), &spec());
-        assert_eq!(j.verdict, Verdict::Met);
+        assert_eq!(j.verdict(), Verdict::Met);
         assert_eq!(
             j.ground,
             Ground::Settled {
@@ -469,7 +472,7 @@ mod tests {
             ..facts()
         };
         let j = decide(&f, &spec());
-        assert_eq!(j.verdict, Verdict::TuningLimited);
+        assert_eq!(j.verdict(), Verdict::TuningLimited);
         assert_eq!(
             j.ground,
             Ground::RoomToSpare(
@@ -489,7 +492,7 @@ mod tests {
             ..facts()
         };
         let j = decide(&f, &spec());
-        assert_eq!(j.verdict, Verdict::ActuatorLimited);
+        assert_eq!(j.verdict(), Verdict::ActuatorLimited);
         assert_eq!(j.ground, Ground::TooSlowAtLimit(Miss::NeverSettled, 700.0));
     }
 
@@ -514,7 +517,7 @@ mod tests {
             ..facts()
         };
         let j = decide(&f, &spec());
-        assert_eq!(j.verdict, Verdict::TuningLimited);
+        assert_eq!(j.verdict(), Verdict::TuningLimited);
         assert_eq!(j.ground, Ground::RoomToSpare(Miss::Overshoot, 300.0));
     }
 
@@ -526,7 +529,7 @@ mod tests {
             ..facts()
         };
         let j = decide(&f, &spec());
-        assert_eq!(j.verdict, Verdict::Inconclusive);
+        assert_eq!(j.verdict(), Verdict::Inconclusive);
         assert_eq!(j.ground, Ground::BandInsideNoise);
         // 3σ exactly at the band's half-width is still scored.
         let f = Facts {
@@ -553,7 +556,7 @@ mod tests {
             };
             let j = decide(&f, &spec());
             assert_eq!(j.ground, Ground::CutShort, "{end:?}");
-            assert_eq!(j.verdict, Verdict::Inconclusive, "{end:?}");
+            assert_eq!(j.verdict(), Verdict::Inconclusive, "{end:?}");
         }
         // The evaluation horizon ends the window normally: judged, not inconclusive.
         let f = Facts {
@@ -589,7 +592,7 @@ mod tests {
             ..facts()
         };
         let j = decide(&f, &spec());
-        assert_eq!(j.verdict, Verdict::Inconclusive);
+        assert_eq!(j.verdict(), Verdict::Inconclusive);
         assert_eq!(
             j.ground,
             Ground::NoModel(Miss::SettledLate {
@@ -621,7 +624,7 @@ mod tests {
             max_overshoot_pct: None,
             ..spec()
         };
-        assert_eq!(decide(&at(80.0), &spec).verdict, Verdict::Met);
+        assert_eq!(decide(&at(80.0), &spec).verdict(), Verdict::Met);
     }
 
     #[test]
