@@ -241,19 +241,13 @@ pub fn week_of_one_loop() -> (Series, LoopSetup) {
         None,
     )
     .expect("simulated series is valid");
-    let setup = LoopSetup {
-        tag: "TIC-900".into(),
-        op: OpRange {
-            min: 0.0,
-            max: 100.0,
-        },
-        spec: Spec {
-            settle_band_pct: 2.0,
-            settle_within_s: 600.0,
+    let setup = LoopSetup::new(
+        "TIC-900",
+        Spec {
             max_overshoot_pct: Some(10.0),
+            ..Spec::within(600.0)
         },
-        options: AnalysisOptions::default(),
-    };
+    );
     (series, setup)
 }
 

@@ -422,9 +422,8 @@ async fn simulate(
     let mut interrupt: Interrupt = Box::pin(crate::daemon::shutdown::shutdown_signal());
     let mut interrupted =
         send_first_samples(&mut side, &daemon, &broker, files, &mut interrupt).await?;
-    let mut sim_s = 0.0f64;
     if !interrupted {
-        match accelerated(&mut side, &mut daemon, options, &mut interrupt, &mut sim_s).await {
+        match accelerated(&mut side, &mut daemon, options, &mut interrupt).await {
             Ok(i) => interrupted = i,
             Err(e) => {
                 progress.stop().await;
@@ -455,16 +454,7 @@ async fn simulate(
     if options.keep_running && !interrupted {
         // A new daemon for real time (Modbus polled every 15 s now), resuming from the store.
         let daemon = RunningDaemon::start(files, &defs, ports, 1.0, clock).await?;
-        real_time(
-            &mut side,
-            daemon,
-            &broker,
-            ports,
-            &mut interrupt,
-            sim_s,
-            out,
-        )
-        .await?;
+        real_time(&mut side, daemon, &broker, &mut interrupt, out).await?;
     }
     drop(side);
     stop_publisher.send_replace(true);
@@ -555,9 +545,9 @@ async fn accelerated(
     daemon: &mut RunningDaemon,
     options: &DemoOptions,
     interrupt: &mut Interrupt,
-    sim_s: &mut f64,
 ) -> anyhow::Result<bool> {
     let (duration_s, speed) = (options.duration_s, options.speed);
+    let mut sim_s = 0.0f64;
     let tick_wall = Duration::from_secs_f64((MODBUS_PERIOD_S / speed).clamp(0.001, 0.05));
     let max_step = MAX_TICK_WALL.max(2 * tick_wall);
     let mut last = Instant::now();
@@ -578,7 +568,7 @@ async fn accelerated(
             .load(Ordering::Relaxed)
             .saturating_sub(daemon.committed.load(Ordering::Relaxed));
         if lag < MAX_LAG_SAMPLES {
-            *sim_s = (*sim_s + speed * dt.as_secs_f64()).min(duration_s);
+            sim_s = (sim_s + speed * dt.as_secs_f64()).min(duration_s);
         }
         side.advance(sim_s.floor());
         if last_publish.elapsed() >= PUBLISH_EVERY || side.plant.time_s() >= duration_s {
@@ -615,9 +605,7 @@ async fn real_time(
     side: &mut PlantSide,
     mut daemon: RunningDaemon,
     broker: &broker::EmbeddedBroker,
-    ports: (u16, u16),
     interrupt: &mut Interrupt,
-    mut sim_s: f64,
     out: &mut dyn Write,
 ) -> anyhow::Result<()> {
     writeln!(
@@ -628,9 +616,11 @@ async fn real_time(
          Ctrl-C stops.",
         addr = broker.addr,
         dev = side.device.addr(),
-        port = ports.0,
+        port = broker.addr.port(),
     )?;
     out.flush()?;
+    // Plant time carries on from where the accelerated run left the plant.
+    let mut sim_s = side.plant.time_s();
     let mut tick = tokio::time::interval(Duration::from_millis(250));
     let mut last = Instant::now();
     loop {
