@@ -152,8 +152,13 @@ impl Store {
     ) -> Result<(Vec<Row>, bool)> {
         let mut series = Vec::new();
         for s in [Signal::Pv, Signal::Sp, Signal::Op, Signal::Mode] {
-            let lo = if s == Signal::Pv { from_ms } else { i64::MIN };
-            let rows = self.samples(loop_tag, s, lo, to_ms).await?;
+            // What the join needs of the other signals: the value in force at `from_ms` (their
+            // newest sample before it) and everything after, not their whole history.
+            let mut rows = match s {
+                Signal::Pv => Vec::new(),
+                _ => self.latest_before(loop_tag, s, from_ms).await?,
+            };
+            rows.extend(self.samples(loop_tag, s, from_ms, to_ms).await?);
             series.push(
                 rows.into_iter()
                     .map(|(t, v)| (ms_to_s(t), v))
@@ -183,6 +188,27 @@ impl Store {
         .bind(signal.as_str())
         .bind(from_ms)
         .bind(to_ms)
+        .fetch_all(&self.pool)
+        .await
+        .map_err(self.fail("reading samples"))
+    }
+
+    /// The newest sample of one signal with `ts_ms < before_ms`, if any.
+    async fn latest_before(
+        &self,
+        loop_tag: &str,
+        signal: Signal,
+        before_ms: i64,
+    ) -> Result<Vec<(i64, f64)>> {
+        sqlx::query_as(
+            "SELECT ts_ms, value FROM samples
+             WHERE series_id = (SELECT id FROM series WHERE loop_tag = ?1 AND signal = ?2)
+               AND ts_ms < ?3
+             ORDER BY ts_ms DESC LIMIT 1",
+        )
+        .bind(loop_tag)
+        .bind(signal.as_str())
+        .bind(before_ms)
         .fetch_all(&self.pool)
         .await
         .map_err(self.fail("reading samples"))
@@ -384,6 +410,32 @@ mod tests {
                 .await
                 .unwrap()
                 .is_empty()
+        );
+    }
+
+    #[tokio::test]
+    async fn loop_rows_take_the_values_in_force_from_before_the_range() {
+        let (_dir, store) = fresh_store().await;
+        // SP and OP were last written at 1 s and 2 s; the PV every second.
+        let mut batch = ramp("TIC-101", Signal::Pv, 0, 10);
+        batch.extend([
+            sample("TIC-101", Signal::Sp, 0, 40.0),
+            sample("TIC-101", Signal::Sp, 1_000, 50.0),
+            sample("TIC-101", Signal::Op, 2_000, 30.0),
+            sample("TIC-101", Signal::Op, 7_000, 35.0),
+        ]);
+        store.insert_samples(&batch).await.unwrap();
+        let (rows, has_mode) = store.loop_rows("TIC-101", 5_000, 8_000).await.unwrap();
+        assert!(!has_mode);
+        let got: Vec<(f64, f64, f64)> = rows.iter().map(|r| (r.time_s, r.sp, r.op)).collect();
+        assert_eq!(
+            got,
+            [
+                (5.0, 50.0, 30.0),
+                (6.0, 50.0, 30.0),
+                (7.0, 50.0, 35.0),
+                (8.0, 50.0, 35.0)
+            ]
         );
     }
 
