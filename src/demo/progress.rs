@@ -46,19 +46,14 @@ impl Progress {
                 tokio::time::interval(Duration::from_millis(if tty { 250 } else { 500 }));
             let mut printed_tenth = -1i64;
             let mut printed_line = String::new();
-            let mut counts = (0usize, 0u64);
+            let mut counts = (0u64, 0u64);
             loop {
                 let last = tokio::select! {
                     _ = tick.tick() => false,
                     _ = &mut stopped => true,
                 };
-                if let (Ok(e), Ok(a)) =
-                    (store.episodes(None, None).await, store.alerts(false).await)
-                {
-                    counts = (
-                        e.iter().filter(|e| e.is_final).count(),
-                        a.iter().map(|a| a.count).sum(),
-                    );
+                if let Ok(c) = store.progress_counts().await {
+                    counts = c;
                 }
                 let sim_s = shared.plant_time_s(start_ms);
                 let frac = (sim_s / duration_s).clamp(0.0, 1.0);
@@ -99,7 +94,7 @@ impl Progress {
 }
 
 /// `[██████████░░░░░░░░░░]  52 %  plant time 2026-11-19 14:05  samples 1,234,567  episodes 123  alerts 9`
-fn status_line(frac: f64, clock_ms: i64, samples: u64, episodes: usize, alerts: u64) -> String {
+fn status_line(frac: f64, clock_ms: i64, samples: u64, episodes: u64, alerts: u64) -> String {
     const WIDTH: usize = 24;
     let filled = (frac * WIDTH as f64).round() as usize;
     let bar: String = "█".repeat(filled) + &"░".repeat(WIDTH - filled);

@@ -195,6 +195,19 @@ impl Store {
         rows.iter().map(|r| self.model_row(r, DOING)).collect()
     }
 
+    /// How many final episodes are stored, and how many times alerts were raised in all: the
+    /// counts a progress line shows, without reading the rows.
+    pub async fn progress_counts(&self) -> Result<(u64, u64)> {
+        sqlx::query_as(
+            "SELECT (SELECT COUNT(*) FROM episodes WHERE final = 1),
+                    (SELECT COALESCE(SUM(count), 0) FROM alerts)",
+        )
+        .fetch_one(&self.pool)
+        .await
+        .map(|(e, a): (i64, i64)| (e as u64, a as u64))
+        .map_err(self.fail("counting episodes and alerts"))
+    }
+
     /// One row per loop tag found anywhere in the store (samples, episodes, models, alerts),
     /// by tag. All parts come from one read transaction, so they agree with each other.
     pub async fn loops_overview(&self) -> Result<Vec<LoopRow>> {
@@ -352,6 +365,25 @@ mod tests {
             episodes_used: 3,
             points_used: 900,
         }
+    }
+
+    #[tokio::test]
+    async fn progress_counts_final_episodes_only() {
+        let (_dir, store) = fresh_store().await;
+        assert_eq!(store.progress_counts().await.unwrap(), (0, 0));
+        let done = episode_result(Verdict::Met, Some(100.0));
+        let open = episode_result(Verdict::Inconclusive, None);
+        for (start, result, is_final) in [(0, &done, true), (500_000, &done, true)] {
+            store
+                .upsert_episode("TIC-101", result, start, start + 400_000, is_final, 1)
+                .await
+                .unwrap();
+        }
+        store
+            .upsert_episode("TIC-101", &open, 900_000, 950_000, false, 1)
+            .await
+            .unwrap();
+        assert_eq!(store.progress_counts().await.unwrap(), (2, 0));
     }
 
     #[tokio::test]
