@@ -433,14 +433,7 @@ mod tests {
     }
 
     fn series(samples: &[SimSample]) -> Series {
-        Series::new(
-            samples.iter().map(|s| s.time_s).collect(),
-            samples.iter().map(|s| s.sp).collect(),
-            samples.iter().map(|s| s.pv).collect(),
-            samples.iter().map(|s| s.op).collect(),
-            None,
-        )
-        .unwrap()
+        crate::analysis::sim::series(samples, 0.0)
     }
 
     const OP: OpRange = OpRange::DEFAULT;

@@ -5,6 +5,8 @@
 //! model; tests use it to build corpora with a known truth; the demo uses it as the plant. It is
 //! pure (seeded noise, no clock) so the same inputs always give the same samples.
 
+use super::Series;
+
 /// A process: `PV = bias + x`, where `x` follows `K·u(t − θ)` through one or two first-order lags.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Process {
@@ -250,6 +252,18 @@ impl LoopSim {
         }
         out
     }
+}
+
+/// Simulated samples as a series for the analysis, each time shifted by `t0_s` seconds.
+pub fn series(samples: &[SimSample], t0_s: f64) -> Series {
+    Series::new(
+        samples.iter().map(|x| t0_s + x.time_s).collect(),
+        samples.iter().map(|x| x.sp).collect(),
+        samples.iter().map(|x| x.pv).collect(),
+        samples.iter().map(|x| x.op).collect(),
+        None,
+    )
+    .expect("a simulated run is a valid series")
 }
 
 /// SplitMix64 with a Box–Muller normal: tiny, seedable and good enough for measurement noise.

@@ -15,7 +15,7 @@
 mod ingest;
 mod modbus;
 
-use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Process};
+use crate::analysis::sim::{self, LoopSim, LoopSimConfig, PiController, Process};
 use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Series, Spec};
 use crate::csvload::{self, CsvOptions};
 use anyhow::Context;
@@ -233,14 +233,7 @@ pub fn week_of_one_loop() -> (Series, LoopSetup) {
         })
         .collect();
     let s = sim.run(&schedule, 604_799.0, 1.0);
-    let series = Series::new(
-        s.iter().map(|x| x.time_s).collect(),
-        s.iter().map(|x| x.sp).collect(),
-        s.iter().map(|x| x.pv).collect(),
-        s.iter().map(|x| x.op).collect(),
-        None,
-    )
-    .expect("simulated series is valid");
+    let series = sim::series(&s, 0.0);
     let setup = LoopSetup::new(
         "TIC-900",
         Spec {

@@ -2,21 +2,11 @@
 //! setup the core judges them with, and as samples for the store.
 
 use headroom::analysis::sim::{PiController, SimSample};
-use headroom::analysis::{AnalysisOptions, LoopSetup, OpRange, Series, Spec};
+use headroom::analysis::{AnalysisOptions, LoopSetup, OpRange, Spec};
 use headroom::sample::{Sample, Signal};
 use std::sync::Arc;
 
-/// The simulated samples as a series, each time shifted by `t0_s` seconds.
-pub fn series(samples: &[SimSample], t0_s: f64) -> Series {
-    Series::new(
-        samples.iter().map(|x| t0_s + x.time_s).collect(),
-        samples.iter().map(|x| x.sp).collect(),
-        samples.iter().map(|x| x.pv).collect(),
-        samples.iter().map(|x| x.op).collect(),
-        None,
-    )
-    .unwrap()
-}
+pub use headroom::analysis::sim::series;
 
 /// The setup of a simulated loop: its controller's OP range, `spec` and the default options.
 pub fn setup(tag: &str, controller: &PiController, spec: Spec) -> LoopSetup {
