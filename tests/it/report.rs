@@ -90,6 +90,16 @@ fn episode(
         capacity_ratio: None,
         verdict,
         reason: format!("seeded {}", verdict.as_str()),
+        start_pv: None,
+        pv_moving: false,
+        confidence: None,
+        confidence_reasons: Vec::new(),
+        min_settling_time_range_s: None,
+        reach_range: None,
+        capacity_ratio_range: None,
+        bound_beaten: false,
+        quality: Vec::new(),
+        deciding_step: None,
     }
 }
 
