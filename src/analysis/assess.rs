@@ -681,6 +681,27 @@ mod tests {
     }
 
     #[test]
+    fn marginal_changes_drive_no_advice() {
+        let (s, setup) = plateau_run(None);
+        let a = assess(&s, &setup);
+        let model = a.model.as_ref().ok();
+        let advised = recommend(&a.episodes, model, &setup, 2.0);
+        assert_ne!(advised.action, Action::None, "{}", advised.summary);
+        // The same changes, every miss marked marginal: nothing left to act on.
+        let mut marked = a.episodes.clone();
+        for e in marked.iter_mut().filter(|e| e.verdict.is_miss()) {
+            e.confidence = Some(Confidence::Marginal);
+        }
+        let r = recommend(&marked, model, &setup, 2.0);
+        assert!(
+            matches!(r.action, Action::None | Action::Undecided),
+            "{r:#?}"
+        );
+        assert!(r.summary.contains("listed to watch"), "{}", r.summary);
+        assert!(r.actuator.is_none() && r.retune.is_none());
+    }
+
+    #[test]
     fn a_pv_quantised_as_coarsely_as_the_band_makes_every_change_inconclusive() {
         // Steps of 0.5 against bands of ±0.14 … ±0.5: the settling time is left to rounding.
         let (s, setup) = plateau_run(Some(0.5));

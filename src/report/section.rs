@@ -216,6 +216,8 @@ pub struct TellingEpisode {
     pub sp_to: f64,
     pub settling_time_s: Option<f64>,
     pub min_settling_time_s: Option<f64>,
+    /// The PV at the change, where the fastest response starts.
+    pub start_pv: Option<f64>,
     pub overshoot_pct: f64,
     pub saturation_duty: f64,
     pub op_start: f64,
@@ -369,6 +371,7 @@ fn telling_episode(
         sp_to: r.sp_to,
         settling_time_s: r.settling_time_s,
         min_settling_time_s: r.min_settling_time_s,
+        start_pv: r.start_pv,
         overshoot_pct: r.overshoot_pct,
         saturation_duty: r.saturation_duty,
         op_start: r.op_start,
