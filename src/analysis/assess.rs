@@ -173,7 +173,7 @@ pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<Mod
     identify::identify(
         pool.iter().map(|p| &p.segment),
         noise,
-        setup.op.span(),
+        (setup.op.min, setup.op.max),
         max_dead_time,
         &setup.options.identify,
     )
