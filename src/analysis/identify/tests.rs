@@ -309,3 +309,230 @@ fn an_equal_percentage_valve_picks_an_op_dependent_gain() {
         "{m:?}"
     );
 }
+
+/// Unit step at t = 10 s sampled every 5 s, and the responses to it of
+/// 2·e^(−5.5s)/((40s + 1)(15s + 1)) and 0.004·e^(−3.3s)/(s(20s + 1)) computed by
+/// `scipy.signal.step` (scipy 1.17.1) on a 0.1 s grid, shifted by the change time and the dead
+/// time:
+/// `fine = np.arange(0, 200, 0.1); _, y = signal.step(signal.lti(num, den), T=fine)`,
+/// value at t: `y[round((t - 10 - θ)/0.1)]` for t − 10 − θ > 0, else 0.
+const SCIPY_SECOND_ORDER: [f64; 40] = [
+    0.0,
+    0.0,
+    0.0,
+    0.0,
+    0.0294703541,
+    0.11347329,
+    0.229428704,
+    0.361726548,
+    0.499951672,
+    0.63732077,
+    0.769573018,
+    0.894184577,
+    1.00981403,
+    1.11591233,
+    1.21244977,
+    1.299726,
+    1.37823901,
+    1.44859555,
+    1.51145101,
+    1.56746962,
+    1.61729916,
+    1.66155538,
+    1.70081327,
+    1.73560292,
+    1.76640835,
+    1.79366833,
+    1.8177784,
+    1.8390936,
+    1.85793153,
+    1.87457552,
+    1.88927782,
+    1.90226261,
+    1.91372884,
+    1.92385293,
+    1.93279109,
+    1.94068165,
+    1.94764694,
+    1.95379515,
+    1.9592219,
+    1.96401169,
+];
+const SCIPY_INTEGRATING_LAG: [f64; 40] = [
+    0.0,
+    0.0,
+    0.0,
+    0.000280982752,
+    0.00402704691,
+    0.0113684689,
+    0.0215099585,
+    0.0338321429,
+    0.047852654,
+    0.0631958234,
+    0.0795690801,
+    0.0967445696,
+    0.114544839,
+    0.132831686,
+    0.151497482,
+    0.170458403,
+    0.189649167,
+    0.209018933,
+    0.228528107,
+    0.248145851,
+    0.26784815,
+    0.2876163,
+    0.307435735,
+    0.327295111,
+    0.347185593,
+    0.3671003,
+    0.387033874,
+    0.406982141,
+    0.426941852,
+    0.446910474,
+    0.466886037,
+    0.486867006,
+    0.506852184,
+    0.526840641,
+    0.546831651,
+    0.56682465,
+    0.586819198,
+    0.606814951,
+    0.626811644,
+    0.646809068,
+];
+
+#[test]
+fn the_second_order_and_integrating_responses_match_scipy() {
+    use super::data::Prepared;
+    use super::response::Shape;
+    let op: Vec<f64> = (0..40).map(|k| if k >= 2 { 1.0 } else { 0.0 }).collect();
+    for (pv, shape, gain) in [
+        (
+            SCIPY_SECOND_ORDER,
+            Shape::Second {
+                tau1: 40.0,
+                tau2: 15.0,
+                theta: 5.5,
+            },
+            2.0,
+        ),
+        (
+            SCIPY_INTEGRATING_LAG,
+            Shape::Integrating {
+                lag: 20.0,
+                theta: 3.3,
+            },
+            0.004,
+        ),
+    ] {
+        let seg = IdSegment {
+            step_s: 5.0,
+            op: op.clone(),
+            pv: pv.to_vec(),
+            pv_rising: true,
+        };
+        let data = [Prepared::new(&seg)];
+        let fit = shape.fit(&data);
+        let sst: f64 = shape.stats(&data[0]).sst;
+        assert!(
+            (fit.gain - gain).abs() < 1e-6 * gain,
+            "{shape:?}: {}",
+            fit.gain
+        );
+        // What is left is the rounding of the printed reference values.
+        assert!(fit.sse < 1e-12 * sst, "{shape:?}: {} of {sst}", fit.sse);
+        // A slightly different shape leaves a clear residual: the check can fail.
+        let off = match shape {
+            Shape::Second { tau1, tau2, theta } => Shape::Second {
+                tau1: tau1 * 1.05,
+                tau2,
+                theta,
+            },
+            Shape::Integrating { lag, theta } => Shape::Integrating {
+                lag: lag * 1.05,
+                theta,
+            },
+            s => s,
+        };
+        assert!(off.fit(&data).sse > 1e-7 * sst, "{off:?}");
+    }
+}
+
+#[test]
+fn replicates_are_deterministic_and_spread_around_the_model() {
+    let truth = Truth::First {
+        k: 1.5,
+        tau: 40.0,
+        theta: 6.0,
+    };
+    let segs = episodes(truth, &levels(12, 20.0, 80.0, 3), 300.0, 0.5, 5);
+    let s = IdentifySettings::default();
+    let m = identify(&segs, 0.5, (0.0, 100.0), None, &s).unwrap();
+    let a = replicates(&m, &segs, 0.5, (0.0, 100.0), None, &s, 16, 42);
+    let b = replicates(&m, &segs, 0.5, (0.0, 100.0), None, &s, 16, 42);
+    let c = replicates(&m, &segs, 0.5, (0.0, 100.0), None, &s, 16, 43);
+    assert_eq!(a.len(), 16);
+    assert_eq!(a, b);
+    assert_ne!(a, c);
+    let taus: Vec<f64> = a.iter().map(|r| r.time_constant_s).collect();
+    let (lo, hi) = taus
+        .iter()
+        .fold((f64::INFINITY, 0.0f64), |(l, h), &t| (l.min(t), h.max(t)));
+    assert!(lo < hi && lo > 30.0 && hi < 50.0, "{taus:?}");
+    assert!(a.iter().all(|r| r.family == Family::FirstOrder));
+}
+
+#[test]
+fn too_few_episodes_in_one_direction_are_refused_for_two_directions() {
+    let truth = Truth::First {
+        k: 1.5,
+        tau: 40.0,
+        theta: 6.0,
+    };
+    let segs = episodes(truth, &[30.0, 60.0, 40.0], 300.0, 0.1, 5);
+    let err = fit_family(
+        FamilyKind::TwoDirection,
+        &segs,
+        0.1,
+        (0.0, 100.0),
+        None,
+        &IdentifySettings::default(),
+    )
+    .unwrap_err();
+    assert!(
+        matches!(
+            err,
+            Refusal::TooFewEpisodes {
+                rising: 1,
+                falling: 1,
+                ..
+            }
+        ),
+        "{err}"
+    );
+}
+
+#[test]
+fn one_long_level_episode_gives_an_integrating_model_not_a_refusal() {
+    // A single change: nothing to hold out, and the first-order time constant is longer than
+    // the episode can show, so the integrating family is fitted instead.
+    let truth = Truth::Integrating {
+        k: 0.004,
+        lag: 0.0,
+        theta: 4.0,
+        u_bal: 50.0,
+    };
+    let segs = episodes(truth, &[50.0, 60.0], 200.0, 0.02, 5);
+    let m = identify(
+        &segs[1..],
+        0.02,
+        (0.0, 100.0),
+        None,
+        &IdentifySettings::default(),
+    )
+    .unwrap();
+    let Family::Integrating { gain_per_s, .. } = m.family else {
+        panic!("{m:?}");
+    };
+    assert!(near(gain_per_s, 0.004, 0.05), "{m:?}");
+}
