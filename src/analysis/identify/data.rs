@@ -216,6 +216,11 @@ pub(super) struct Bounds {
 }
 
 impl Bounds {
+    /// A middle (τ, θ), should no first-order fit be at hand.
+    pub(super) fn seed(&self) -> (f64, f64) {
+        ((self.tau_lo * self.tau_hi).sqrt(), 0.2 * self.theta_hi)
+    }
+
     /// τ from 0.3 grid steps to 10 × the longest episode; θ up to half the median episode (or
     /// the known bound on the dead time, if tighter), at least one grid step.
     pub(super) fn of(prepared: &[Prepared], max_dead_time_s: Option<f64>) -> Bounds {

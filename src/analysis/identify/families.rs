@@ -3,7 +3,7 @@
 //! in closed form; then acceptance and the [`Model`] with its first-order equivalent.
 
 use super::data::{Bounds, Prepared};
-use super::response::{Shape, nelder_mead};
+use super::response::{EpStats, Shape, nelder_mead};
 use super::{Family, FamilyKind, HeldOut, INTEGRATING_HORIZON, Model, OpMap, Refusal};
 
 /// A shape with its shared gain.
@@ -54,6 +54,32 @@ impl Fitted {
         match *self {
             Fitted::Single { part, map, .. } => (part, map),
             Fitted::Split { rise, fall } => (if seg.rising { rise } else { fall }, OpMap::IDENTITY),
+        }
+    }
+
+    /// Episode `seg`'s statistics under this fit (its nuisance refitted) and its squared error.
+    pub(super) fn score(&self, seg: &Prepared) -> (EpStats, f64) {
+        let (part, map) = self.part_for(seg);
+        let e = if map == OpMap::IDENTITY {
+            part.shape.stats(seg)
+        } else {
+            part.shape.stats(&seg.mapped(&map))
+        };
+        (e, e.sse_at(part.gain))
+    }
+
+    /// The first-order (τ, θ) of a first-order fit, which seeds the other families.
+    pub(super) fn first_order_seed(&self) -> Option<(f64, f64)> {
+        match self {
+            Fitted::Single {
+                part:
+                    Part {
+                        shape: Shape::First { tau, theta },
+                        ..
+                    },
+                ..
+            } => Some((*tau, *theta)),
+            _ => None,
         }
     }
 
@@ -324,13 +350,8 @@ pub(super) fn polish(f: Fitted, full: &[Prepared], ctx: &Ctx) -> Fitted {
 pub(super) fn r2(f: &Fitted, data: &[Prepared]) -> f64 {
     let (mut sse, mut sst) = (0.0, 0.0);
     for seg in data {
-        let (part, map) = f.part_for(seg);
-        let e = if map == OpMap::IDENTITY {
-            part.shape.stats(seg)
-        } else {
-            part.shape.stats(&seg.mapped(&map))
-        };
-        sse += e.sse_at(part.gain);
+        let (e, sse_e) = f.score(seg);
+        sse += sse_e;
         sst += e.sst;
     }
     if sst > 0.0 { 1.0 - sse / sst } else { 0.0 }

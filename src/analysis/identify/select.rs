@@ -126,10 +126,7 @@ pub fn identify<'a>(
     let pool = Pool::new(segments, noise_sd, op_range, max_dead_time_s, settings)?;
     let min_r2 = settings.min_r2;
     let fo = pool.first_order();
-    let seed = match fo.part_for(&pool.full[0]).0.shape {
-        Shape::First { tau, theta } => (tau, theta),
-        _ => unreachable!("a first-order fit has a first-order shape"),
-    };
+    let seed = fo.first_order_seed().unwrap_or(pool.b.seed());
     let fo_model = accept(&fo, &pool.full, &pool.b, min_r2);
     if pool.full.len() < MIN_EPISODES_FOR_SELECTION {
         return match fo_model {
@@ -220,13 +217,8 @@ fn held_out_rms(f: &Fitted, ctx: &Ctx) -> Option<f64> {
         };
         let g = fit(f.kind(), &fold, Some(f))?;
         for seg in ctx.data.iter().skip(k).step_by(folds) {
-            let (part, map) = g.part_for(seg);
-            let e = if map == OpMap::IDENTITY {
-                part.shape.stats(seg)
-            } else {
-                part.shape.stats(&seg.mapped(&map))
-            };
-            sse += e.sse_at(part.gain);
+            let (e, sse_e) = g.score(seg);
+            sse += sse_e;
             points += e.n;
         }
     }
@@ -247,10 +239,7 @@ pub fn fit_family<'a>(
     if kind == FamilyKind::FirstOrder {
         return accept(&fo, &pool.full, &pool.b, settings.min_r2);
     }
-    let seed = match fo.part_for(&pool.full[0]).0.shape {
-        Shape::First { tau, theta } => (tau, theta),
-        _ => unreachable!("a first-order fit has a first-order shape"),
-    };
+    let seed = fo.first_order_seed().unwrap_or(pool.b.seed());
     pool.fit_polished(kind, seed, settings.min_r2)
 }
 
