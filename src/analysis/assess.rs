@@ -288,7 +288,7 @@ fn identify_entries<'a>(
     identify::identify(
         pool.map(|p| &p.segment),
         noise,
-        setup.op.span(),
+        (setup.op.min, setup.op.max),
         max_dead_time,
         &setup.options.identify,
     )

@@ -104,14 +104,16 @@ fn episode(
 }
 
 fn model(gain: f64, tau: f64, theta: f64) -> Model {
-    Model {
-        gain,
-        time_constant_s: tau,
-        dead_time_s: theta,
-        fit_r2: 0.995,
-        episodes_used: 4,
-        points_used: 1_000,
-    }
+    Model::first_order(
+        headroom::analysis::Fopdt {
+            gain,
+            time_constant_s: tau,
+            dead_time_s: theta,
+        },
+        0.995,
+        4,
+        1_000,
+    )
 }
 
 /// Samples of one simulated setpoint change starting at `t0_ms` (10 s apart), for the plot.
