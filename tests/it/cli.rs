@@ -65,12 +65,19 @@ fn analyze_json_has_the_contract_fields() {
         "min_settling_time_s",
         "required_op_limit",
         "verdict",
+        "confidence",
+        "min_settling_time_range_s",
+        "start_pv",
     ] {
         assert!(eps[0].get(k).is_some(), "episode field {k} missing");
     }
     assert_eq!(eps[0]["start_s"], 600.0);
     assert_eq!(eps[0]["sp_to"], 55.0);
     assert_eq!(eps[0]["verdict"], "met");
+    assert_eq!(eps[0]["confidence"], "clear");
+    assert!(eps[0]["start_pv"].is_number());
+    assert_eq!(v["model"]["family"], "first_order");
+    assert!(v["data"]["quality"]["findings"].is_array());
     assert!(
         v["recommendation"]["caution"]
             .as_str()
