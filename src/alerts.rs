@@ -32,7 +32,8 @@ impl AlertKind {
 /// The alert for a scored setpoint change, when its verdict is a miss; `None` otherwise. Seen at
 /// the later of the change's start and its window's end.
 pub fn missed_change(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> Option<AlertInput> {
-    if !r.verdict.is_miss() {
+    // Marginal verdicts raise no alert: they are listed to watch in the summaries.
+    if !r.verdict.is_miss() || r.is_marginal() {
         return None;
     }
     let (start_ms, end_ms) = (s_to_ms(r.start_s), s_to_ms(r.end_s));
@@ -46,6 +47,8 @@ pub fn missed_change(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> Optio
         "required_op_limit": r.required_op_limit,
         "capacity_ratio": r.capacity_ratio,
         "saturation_duty": r.saturation_duty,
+        "min_settling_time_range_s": r.min_settling_time_range_s,
+        "confidence": r.confidence,
         "final": is_final,
     });
     Some(AlertInput {
@@ -136,6 +139,16 @@ mod tests {
             capacity_ratio: Some(1.4),
             verdict,
             reason: "the heater ran flat out".into(),
+            start_pv: None,
+            pv_moving: false,
+            confidence: None,
+            confidence_reasons: Vec::new(),
+            min_settling_time_range_s: None,
+            reach_range: None,
+            capacity_ratio_range: None,
+            bound_beaten: false,
+            quality: Vec::new(),
+            deciding_step: None,
         }
     }
 
@@ -162,6 +175,17 @@ mod tests {
         assert_eq!(a.evidence["start"], "2027-01-15T08:00:00Z");
         assert_eq!(a.evidence["final"], false);
         assert_eq!(a.evidence["capacity_ratio"], 1.4);
+    }
+
+    #[test]
+    fn a_marginal_miss_raises_no_alert_and_a_clear_one_does() {
+        use crate::analysis::confidence::Confidence;
+        let mut e = episode(Verdict::ActuatorLimited);
+        e.confidence = Some(Confidence::Marginal);
+        assert!(missed_change("TIC-1", &e, true).is_none());
+        e.confidence = Some(Confidence::Clear);
+        let a = missed_change("TIC-1", &e, true).unwrap();
+        assert_eq!(a.evidence["confidence"], "clear");
     }
 
     #[test]

@@ -98,6 +98,9 @@ fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow
     for note in load.notes() {
         writeln!(out, "  input: {note}")?;
     }
+    for f in &d.quality.findings {
+        writeln!(out, "  data quality: {}", f.describe(""))?;
+    }
     let skipped = [
         (d.changes_in_manual, "in manual"),
         (d.changes_in_gaps, "inside data gaps"),
@@ -127,8 +130,9 @@ fn episode_table(
         "OP sat.",
         "fastest",
         "verdict",
+        "confidence",
     ];
-    let rows: Vec<[String; 8]> = report
+    let rows: Vec<[String; 9]> = report
         .episodes
         .iter()
         .enumerate()
@@ -146,6 +150,7 @@ fn episode_table(
                 format!("{:.0} %", fraction_to_pct(e.saturation_duty)),
                 opt_s(e.min_settling_time_s),
                 e.verdict.label().to_string(),
+                e.confidence.map_or("—", |c| c.label()).to_string(),
             ]
         })
         .collect();
@@ -178,11 +183,47 @@ fn episode_table(
             writeln!(out, "{l}")?;
         }
     }
+    watch_list(report, out)
+}
+
+/// The marginal verdicts, to watch: why each is marginal, its t* range, and the step that would
+/// decide it.
+fn watch_list(report: &LoopReport, out: &mut dyn Write) -> anyhow::Result<()> {
+    let marginal: Vec<(usize, &crate::analysis::EpisodeResult)> = report
+        .episodes
+        .iter()
+        .enumerate()
+        .filter(|(_, e)| e.is_marginal())
+        .collect();
+    if marginal.is_empty() {
+        return Ok(());
+    }
+    writeln!(
+        out,
+        "Marginal, to watch (these raise no alert and drive no advice):"
+    )?;
+    for (i, e) in marginal {
+        let range = e
+            .min_settling_time_range_s
+            .map_or(String::new(), |[lo, hi]| {
+                format!(" (fastest possible settling {lo:.0}–{hi:.0} s)")
+            });
+        writeln!(
+            out,
+            "  #{}: {}{range} — {}",
+            i + 1,
+            e.verdict.label(),
+            e.confidence_reasons.join("; ")
+        )?;
+        if let Some(x) = &e.deciding_step {
+            writeln!(out, "      to decide it: {}", x.plan)?;
+        }
+    }
     Ok(())
 }
 
 /// One table line: numbers right-aligned, words left-aligned, two spaces between columns.
-fn aligned(cells: &[String; 8], widths: [usize; 8]) -> String {
+fn aligned(cells: &[String; 9], widths: [usize; 9]) -> String {
     let mut s = String::new();
     for (i, (c, w)) in cells.iter().zip(widths).enumerate() {
         let pad = " ".repeat(w - c.chars().count());

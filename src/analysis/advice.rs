@@ -60,6 +60,9 @@ pub struct ActuatorEvidence {
     /// The OP limit needed for the typical change to meet the spec.
     pub required_op_limit: Option<f64>,
     pub capacity_ratio: Option<f64>,
+    /// The capacity ratio the model's uncertainty allows (medians of the actuator-limited
+    /// changes' ranges).
+    pub capacity_ratio_range: Option<[f64; 2]>,
 }
 
 /// The loop's recommendation.
@@ -70,6 +73,8 @@ pub struct Recommendation {
     pub summary: String,
     pub retune: Option<PiSuggestion>,
     pub actuator: Option<ActuatorEvidence>,
+    /// Conclusive changes left out because their verdict is marginal.
+    pub marginal: usize,
     pub caution: &'static str,
 }
 
@@ -80,6 +85,7 @@ impl Recommendation {
             summary,
             retune: None,
             actuator: None,
+            marginal: 0,
             caution: CAUTION,
         }
     }
@@ -120,7 +126,31 @@ pub fn lean(c: &VerdictCounts, has_model: bool) -> Lean {
 /// The loop's recommendation from its judged episodes: none, retune (SIMC settings), or, when
 /// the actuator is what misses the spec, upgrade or renegotiate with the numbers for both.
 pub fn recommend(
+    all: &[EpisodeResult],
+    model: Option<&Model>,
+    setup: &LoopSetup,
+    sample_s: f64,
+) -> Recommendation {
+    // Marginal verdicts drive no advice: they are listed to watch.
+    let (marginal, clear): (Vec<EpisodeResult>, Vec<EpisodeResult>) =
+        all.iter().cloned().partition(EpisodeResult::is_marginal);
+    let mut r = recommend_from(&clear, all.len(), model, setup, sample_s);
+    if !marginal.is_empty() {
+        let missed = marginal.iter().filter(|e| e.verdict.is_miss()).count();
+        r.summary.push_str(&format!(
+            " {} more change(s) ({missed} of them missed) have a marginal verdict and are not \
+             counted here: they are listed to watch.",
+            marginal.len()
+        ));
+    }
+    r.marginal = marginal.len();
+    r
+}
+
+/// [`recommend`] from the changes whose verdicts are clear (or inconclusive).
+fn recommend_from(
     episodes: &[EpisodeResult],
+    total: usize,
     model: Option<&Model>,
     setup: &LoopSetup,
     sample_s: f64,
@@ -132,8 +162,8 @@ pub fn recommend(
         (Lean::NoEvidence, _) => Recommendation::new(
             Action::Undecided,
             format!(
-                "No conclusive setpoint change among {} found; nothing to recommend yet.",
-                episodes.len()
+                "No setpoint change with a clear verdict among {total} found; nothing to \
+                 recommend yet."
             ),
         ),
         (Lean::AllMet, _) => Recommendation::new(
@@ -282,6 +312,7 @@ fn actuator_evidence(typical_step: f64, typical_u0: f64, b: &Basis) -> ActuatorE
         largest_compliant_step: feasibility::largest_compliant_step(f, h, b.band, b.spec_s),
         required_op_limit: required_limit,
         capacity_ratio: required_limit.map(|l| feasibility::capacity_ratio(l, dir, op)),
+        capacity_ratio_range: None,
     }
 }
 
@@ -297,7 +328,21 @@ pub fn actuator_action(e: &ActuatorEvidence, ratio_limit: f64) -> Action {
 
 fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     let (step, u0) = typical(episodes, Verdict::is_actuator_miss);
-    let evidence = actuator_evidence(step, u0, b);
+    let mut evidence = actuator_evidence(step, u0, b);
+    // The typical change's capacity ratio, spread as the actuator-limited changes' own ratios
+    // spread over the model's plausible variants (medians of their relative range ends).
+    let spreads: Vec<(f64, f64)> = episodes
+        .iter()
+        .filter(|e| e.verdict.is_actuator_miss())
+        .filter_map(|e| Some((e.capacity_ratio_range?, e.capacity_ratio?)))
+        .filter(|(_, point)| *point > 0.0)
+        .map(|([lo, hi], point)| (lo / point, hi / point))
+        .collect();
+    if let (false, Some(point)) = (spreads.is_empty(), evidence.capacity_ratio) {
+        let lo = median(spreads.iter().map(|s| s.0)).min(1.0);
+        let hi = median(spreads.iter().map(|s| s.1)).max(1.0);
+        evidence.capacity_ratio_range = Some([point * lo, point * hi]);
+    }
     let action = actuator_action(&evidence, b.setup.options.upgrade_ratio_limit);
     let mut r = Recommendation::new(action, actuator_words(action, &evidence, b.spec_s, b.tally));
     r.actuator = Some(evidence);
@@ -330,9 +375,12 @@ fn actuator_words(action: Action, e: &ActuatorEvidence, spec_s: f64, tally: Tall
         fastest_txt,
         spec_s
     );
+    let range_txt = e.capacity_ratio_range.map_or(String::new(), |[lo, hi]| {
+        format!(", plausibly {lo:.2}–{hi:.2}×")
+    });
     if action == Action::Upgrade {
         return format!(
-            "{head} Meeting it needs an OP limit of {:.1} ({:.2}× today's capacity); \
+            "{head} Meeting it needs an OP limit of {:.1} ({:.2}× today's capacity{range_txt}); \
              alternatively, today's actuator meets the spec for {largest_txt}.",
             e.required_op_limit.unwrap_or(f64::NAN),
             e.capacity_ratio.unwrap_or(f64::NAN)
@@ -402,6 +450,7 @@ mod tests {
             largest_compliant_step: Some(3.0),
             required_op_limit: ratio.map(|r| 100.0 * r),
             capacity_ratio: ratio,
+            capacity_ratio_range: None,
         };
         assert_eq!(actuator_action(&e(Some(1.5)), 1.5), Action::Upgrade);
         assert_eq!(actuator_action(&e(Some(1.51)), 1.5), Action::Renegotiate);

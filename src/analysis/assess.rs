@@ -3,9 +3,12 @@
 //! identify the process from them, give each change its verdict ([`super::verdict`]) and the
 //! loop its recommendation ([`super::advice`]).
 
-use super::feasibility::{self, Reach};
+use super::bound::{self, Bound, Change, StartState};
+use super::confidence::{self, Confidence, Evidence, Stake};
+use super::feasibility;
 use super::identify::{self, IdSegment, Model, Refusal};
 use super::metrics::{self, OpRange, Response};
+use super::quality::{self, Effect, Finding, Survey};
 use super::segment::{self, EpisodeWindow, SegmentSettings};
 use super::verdict::{self, Capability, Context, Facts};
 use super::{LoopSetup, Series, Spec, stats};
@@ -27,6 +30,24 @@ pub struct DataSummary {
     pub changes_in_manual: usize,
     pub changes_in_gaps: usize,
     pub returned_excursions: usize,
+    /// Changes that settled faster than the model's bound for them (the model was wrong there;
+    /// no such bound is reported).
+    pub bounds_beaten: usize,
+    /// Conclusive changes whose verdict is marginal.
+    pub marginal: usize,
+    pub quality: DataQuality,
+}
+
+/// What in the record makes verdicts doubtful or impossible.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct DataQuality {
+    /// Loop-wide findings (judged against the median change's band); each change lists the
+    /// findings that touch it.
+    pub findings: Vec<Finding>,
+    /// Changes a finding made inconclusive.
+    pub changes_unjudgeable: usize,
+    /// Conclusive changes a finding made marginal.
+    pub changes_downgraded: usize,
 }
 
 /// The full analysis of one loop. Field names are a contract (JSON output).
@@ -95,27 +116,70 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
         .iter()
         .filter_map(|s| PoolEntry::new(series, s, setup))
         .collect();
-    let model = identify_pool(&pool, setup);
-
+    let models = identify_pool(&pool, setup);
+    let pv_noise_sd = pv_noise_sd(series.pv());
+    let survey = quality::survey(series, setup.op, pv_noise_sd);
+    let mut knowledge = Knowledge {
+        models: models.as_ref().ok(),
+        survey: &survey,
+        beaten: Beaten::default(),
+    };
     let episodes: Vec<EpisodeResult> = scored
         .iter()
-        .map(|s| judge(series, s, setup, model.as_ref().ok()))
+        .map(|s| {
+            let r = judge(series, s, setup, &knowledge);
+            knowledge.beaten.record(&r);
+            r
+        })
         .collect();
+    let typical_band = typical_band(&episodes, setup);
+    let touched = |effect: Effect| {
+        episodes
+            .iter()
+            .filter(|e| e.quality.iter().any(|f| f.effect == effect))
+            .filter(|e| effect == Effect::Inconclusive || e.confidence.is_some())
+            .count()
+    };
+    let quality = DataQuality {
+        findings: survey.findings(
+            0,
+            usize::MAX,
+            typical_band,
+            models.as_ref().ok().map(|ms| ms.model.dead_time_s),
+        ),
+        changes_unjudgeable: touched(Effect::Inconclusive),
+        changes_downgraded: touched(Effect::Downgrade),
+    };
     Assessment {
-        episodes,
-        model,
         data: DataSummary {
             samples: n,
             duration_s: if n > 0 { t[n - 1] - t[0] } else { 0.0 },
             median_sample_s,
             gaps: seg.gaps,
-            pv_noise_sd: pv_noise_sd(series.pv()),
+            pv_noise_sd,
             sp_deadband: seg_settings.deadband,
             changes_in_manual: seg.changes_in_manual,
             changes_in_gaps: seg.changes_in_gaps,
             returned_excursions: seg.returned_excursions,
+            bounds_beaten: episodes.iter().filter(|e| e.bound_beaten).count(),
+            marginal: episodes
+                .iter()
+                .filter(|e| e.confidence == Some(Confidence::Marginal))
+                .count(),
+            quality,
         },
+        episodes,
+        model: models.map(|ms| ms.model),
     }
+}
+
+/// The settling band (half-width, PV units) of the median change, for the loop-wide quality notes.
+fn typical_band(episodes: &[EpisodeResult], setup: &LoopSetup) -> f64 {
+    let mut steps: Vec<f64> = episodes
+        .iter()
+        .map(|e| (e.sp_to - e.sp_from).abs())
+        .collect();
+    setup.spec.band_fraction() * stats::median_in_place(&mut steps)
 }
 
 /// Median interval between samples, 0 for fewer than two samples.
@@ -158,22 +222,73 @@ impl PoolEntry {
     }
 }
 
-/// Identifies the loop's model from a pool of episodes.
-pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<Model, Refusal> {
-    let mut noises: Vec<f64> = pool.iter().map(|p| p.noise).collect();
+/// The identified model with its plausible variants: the same identification on episodes drawn
+/// again with replacement from the pool (a bootstrap over episodes), whose spread is the model's
+/// uncertainty.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelSet {
+    pub model: Model,
+    pub variants: Vec<Model>,
+}
+
+impl ModelSet {
+    /// Bootstrap variants drawn per identification.
+    pub const VARIANTS: usize = 16;
+
+    /// A model without variants (carried over from a store, where only the model is kept).
+    pub fn alone(model: Model) -> ModelSet {
+        ModelSet {
+            model,
+            variants: Vec::new(),
+        }
+    }
+
+    /// What the deciding experiment is sized from, with `reach_hi` the top of the reach range.
+    fn plausible(&self, reach_hi: f64) -> confidence::Plausible {
+        let all = || std::iter::once(&self.model).chain(&self.variants);
+        confidence::Plausible {
+            reach_hi,
+            time_constant_hi_s: all().map(|m| m.time_constant_s).fold(0.0, f64::max),
+            dead_time_hi_s: all().map(|m| m.dead_time_s).fold(0.0, f64::max),
+        }
+    }
+}
+
+/// Identifies the loop's model from a pool of episodes, with its bootstrap variants.
+pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<ModelSet, Refusal> {
+    let model = identify_entries(pool.iter(), setup)?;
+    // Deterministic draws (the core has no clock): seeded by the pool's size.
+    let mut rng = super::sim::Rng::new(0x5eed ^ pool.len() as u64);
+    let variants = (0..ModelSet::VARIANTS)
+        .filter_map(|_| {
+            let draw: Vec<&PoolEntry> = (0..pool.len())
+                .map(|_| &pool[(rng.uniform() * pool.len() as f64) as usize % pool.len()])
+                .collect();
+            identify_entries(draw.into_iter(), setup).ok()
+        })
+        .collect();
+    Ok(ModelSet { model, variants })
+}
+
+/// Identifies one model from some pool entries.
+fn identify_entries<'a>(
+    pool: impl Iterator<Item = &'a PoolEntry> + Clone,
+    setup: &LoopSetup,
+) -> Result<Model, Refusal> {
+    let mut noises: Vec<f64> = pool.clone().map(|p| p.noise).collect();
     let noise = stats::median_in_place(&mut noises);
     // The PV cannot respond before the dead time: the earliest 10 % crossing of a change well
     // above the noise bounds the dead-time search.
     let max_dead_time = pool
-        .iter()
+        .clone()
         .filter(|p| 0.1 * p.delta.abs() > 4.0 * p.noise)
         .filter_map(|p| p.t10_s)
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.min(t))))
         .map(|t| 1.2 * t);
     identify::identify(
-        pool.iter().map(|p| &p.segment),
+        pool.map(|p| &p.segment),
         noise,
-        setup.op.span(),
+        (setup.op.min, setup.op.max),
         max_dead_time,
         &setup.options.identify,
     )
@@ -312,67 +427,119 @@ pub(crate) fn id_segment(series: &Series, s: &Scored, setup: &LoopSetup) -> Opti
     )
 }
 
-/// What the model says the actuator allows for one change, with the OP limit and capacity a
-/// spec-meeting actuator would need.
-struct Feasible {
-    capability: Capability,
-    headroom: f64,
-    required_op_limit: Option<f64>,
-    capacity_ratio: Option<f64>,
+/// What is known about the loop when a change is judged: the model with its plausible variants,
+/// the survey of the data, and the changes whose settling beat the model's bound so far.
+pub(crate) struct Knowledge<'a> {
+    pub(crate) models: Option<&'a ModelSet>,
+    pub(crate) survey: &'a Survey,
+    pub(crate) beaten: Beaten,
 }
 
-fn feasible(model: &Model, delta: f64, op_start: f64, setup: &LoopSetup) -> Feasible {
-    let f = model.fopdt();
-    let band = setup.spec.band_fraction();
-    let dir = feasibility::op_direction(f.gain, delta);
-    let h = feasibility::headroom(op_start, dir, setup.op.min, setup.op.max);
-    let fastest_s = match feasibility::min_settling_time(&f, delta, h, band) {
-        Reach::Reachable { t_star_s } => Some(t_star_s),
-        Reach::Unreachable { .. } => None,
-    };
-    let required_op_limit =
-        feasibility::required_headroom(&f, delta, band, setup.spec.settle_within_s)
-            .map(|req_h| op_start + dir * req_h);
-    Feasible {
-        capability: Capability {
-            reach: f.gain.abs() * h.max(0.0),
-            fastest_s,
-        },
-        headroom: h,
-        required_op_limit,
-        capacity_ratio: required_op_limit
-            .map(|limit| feasibility::capacity_ratio(limit, dir, setup.op)),
-    }
-}
-
-/// Gives one scored change its verdict: gathers the facts (with the model's feasibility when
-/// there is a model), lets [`verdict::decide`] decide, and records the result with its reason.
+/// Gives one scored change its verdict: gathers the facts (with the bound of the model and its
+/// variants when there is a model, and the data-quality findings), lets [`verdict::decide`]
+/// decide, reads the confidence ([`confidence`]) and records the result with its reasons.
 pub(crate) fn judge(
     series: &Series,
     s: &Scored,
     setup: &LoopSetup,
-    model: Option<&Model>,
+    k: &Knowledge,
 ) -> EpisodeResult {
     let t = series.time_s();
     let (w, m) = (&s.w, &s.m);
     let delta = w.delta();
     let t0 = t[w.start];
-    let feasible = model.map(|model| feasible(model, delta, s.op_start, setup));
+    let spec_s = setup.spec.settle_within_s;
+    let band_abs = setup.spec.band_fraction() * delta.abs();
+    let state = StartState::read(t, series.pv(), w.pre_start, w.start);
+    let change = Change {
+        state,
+        sp_to: w.sp_to,
+        band_abs,
+        op_start: s.op_start,
+    };
+    let rising = w.sp_to >= state.pv;
+    let point = k.models.map(|ms| {
+        let b = bound::bound(&ms.model, &change, setup.op, spec_s);
+        let variants: Vec<Bound> = ms
+            .variants
+            .iter()
+            .map(|v| bound::bound(v, &change, setup.op, spec_s))
+            .collect();
+        (b, bound::spread(&b, &variants))
+    });
+    let quality = k.survey.findings(
+        w.start,
+        w.end,
+        band_abs,
+        k.models.map(|ms| ms.model.dead_time_s),
+    );
+    let unfit = |about_pv: bool| {
+        quality
+            .iter()
+            .find(|f| f.effect == Effect::Inconclusive && f.issue.about_pv() == about_pv)
+    };
+    let (pv_unfit, op_unfit) = (unfit(true), unfit(false));
     let facts = Facts {
         settling_time_s: m.settling_time_s,
         overshoot_pct: m.overshoot_pct,
         covered_s: t[w.end - 1] - t0,
         window_end: w.end_reason,
-        distance: delta.abs(),
-        band_abs: setup.spec.band_fraction() * delta.abs(),
+        distance: (w.sp_to - state.pv).abs(),
+        band_abs,
         residual_noise: s.residual_noise,
-        capability: feasible.as_ref().map(|f| f.capability),
+        capability: point.as_ref().map(|(b, _)| Capability {
+            reach: b.reach,
+            fastest_s: b.fastest_s,
+        }),
+        pv_unfit: pv_unfit.is_some(),
+        op_unfit: op_unfit.is_some(),
     };
     let judgement = verdict::decide(&facts, &setup.spec);
+    let verdict = judgement.verdict();
+    let beaten_now = point.as_ref().is_some_and(|(b, _)| {
+        m.settling_time_s
+            .is_some_and(|ts| b.fastest_s.is_none_or(|t| ts < t))
+    });
+    let unfit_words = match judgement.ground {
+        verdict::Ground::DataUnfit => pv_unfit.or(op_unfit).map(|f| f.describe("")),
+        _ => None,
+    };
+    let doubts = confidence::doubts(
+        &quality,
+        &Stake {
+            verdict,
+            settling_time_s: m.settling_time_s,
+            fastest_s: point.as_ref().and_then(|(b, _)| b.fastest_s),
+            spec_s,
+        },
+    );
+    let (conf, reasons) = confidence::confidence(&Evidence {
+        verdict,
+        spread: point.as_ref().map(|(_, sp)| sp),
+        distance: facts.distance,
+        spec_s,
+        saturation_duty: m.saturation_duty,
+        doubts: &doubts,
+        beaten: k.beaten.towards(rising),
+    });
+    let deciding_step = match (conf, k.models, &point) {
+        (Some(Confidence::Marginal), Some(ms), Some((_, sp))) if reasons.len() > doubts.len() => {
+            Some(confidence::deciding_step(
+                &state,
+                s.op_start,
+                w.sp_to - state.pv,
+                spec_s,
+                &ms.plausible(sp.reach[1]),
+            ))
+        }
+        _ => None,
+    };
     let context = Context {
         pv_noise_sd: s.noise,
         op_start: s.op_start,
+        data_problem: unfit_words.as_deref(),
     };
+    let b = point.as_ref().map(|(b, _)| b).filter(|_| !beaten_now);
     EpisodeResult {
         start_s: t0,
         end_s: t[w.end - 1],
@@ -388,9 +555,9 @@ pub(crate) fn judge(
         saturation_duty: m.saturation_duty,
         pv_smoothing_samples: s.filter_len,
         op_start: s.op_start,
-        op_headroom: feasible
+        op_headroom: point
             .as_ref()
-            .map(|f| f.headroom)
+            .map(|(b, _)| b.headroom)
             .filter(|h| h.is_finite())
             .unwrap_or_else(|| {
                 // Without a model, the direction the OP went.
@@ -398,12 +565,50 @@ pub(crate) fn judge(
                 feasibility::headroom(s.op_start, dir, setup.op.min, setup.op.max)
             }),
         peak_op: m.peak_op,
-        min_settling_time_s: feasible.as_ref().and_then(|f| f.capability.fastest_s),
-        reach: feasible.as_ref().map(|f| f.capability.reach),
-        required_op_limit: feasible.as_ref().and_then(|f| f.required_op_limit),
-        capacity_ratio: feasible.as_ref().and_then(|f| f.capacity_ratio),
-        verdict: judgement.verdict(),
+        min_settling_time_s: b.and_then(|b| b.fastest_s),
+        reach: b.map(|b| b.reach),
+        required_op_limit: b.and_then(|b| b.required_op_limit),
+        capacity_ratio: b.and_then(|b| b.capacity_ratio),
+        verdict,
         reason: verdict::explain(&judgement, &facts, &setup.spec, &context),
+        start_pv: Some(state.pv),
+        pv_moving: state.moving(),
+        confidence: conf,
+        confidence_reasons: reasons,
+        min_settling_time_range_s: point
+            .as_ref()
+            .filter(|_| !beaten_now)
+            .and_then(|(_, sp)| sp.fastest_s),
+        reach_range: point.as_ref().map(|(_, sp)| sp.reach),
+        capacity_ratio_range: point.as_ref().and_then(|(_, sp)| sp.capacity_ratio),
+        bound_beaten: beaten_now,
+        quality,
+        deciding_step,
+    }
+}
+
+/// Changes so far whose settling beat the model's bound, by the direction the PV had to go.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub(crate) struct Beaten {
+    rising: usize,
+    falling: usize,
+}
+
+impl Beaten {
+    /// Earlier changes in this direction that beat the bound.
+    pub(crate) fn towards(&self, rising: bool) -> usize {
+        if rising { self.rising } else { self.falling }
+    }
+
+    /// Counts a judged change.
+    pub(crate) fn record(&mut self, r: &EpisodeResult) {
+        if r.bound_beaten {
+            if r.sp_to >= r.start_pv.unwrap_or(r.sp_from) {
+                self.rising += 1;
+            } else {
+                self.falling += 1;
+            }
+        }
     }
 }
 
@@ -415,4 +620,126 @@ pub fn pv_noise_sd(pv: &[f64]) -> f64 {
     }
     let mut d: Vec<f64> = pv.windows(2).map(|w| w[1] - w[0]).collect();
     stats::robust_sd(&mut d) / std::f64::consts::SQRT_2
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::sim::{LoopSim, LoopSimConfig, Process, series};
+    use crate::analysis::{OpRange, Verdict};
+
+    /// The jacketed vessel (K 0.8, τ 300 s, θ 30 s, ambient 20) whose valve tops out at 60 %, so
+    /// the PV can reach at most 68: from 50 up to 75 (beyond reach: the PV settles on its plateau
+    /// at 68), then down to 60, then up to 64.
+    fn plateau_run(quantum: Option<f64>) -> (Series, LoopSetup) {
+        let mut sim = LoopSim::new(LoopSimConfig::jacketed_vessel(60.0, 7));
+        let schedule = [(600.0, 75.0), (6600.0, 60.0), (10_200.0, 64.0)];
+        let mut samples = sim.run(&schedule, 13_800.0, 2.0);
+        if let Some(q) = quantum {
+            for s in &mut samples {
+                s.pv = (s.pv / q).round() * q;
+            }
+        }
+        let mut setup = LoopSetup::new("TIC-1", Spec::within(600.0));
+        setup.op = OpRange {
+            min: 0.0,
+            max: 60.0,
+        };
+        (series(&samples, 0.0), setup)
+    }
+
+    #[test]
+    fn after_an_unreachable_change_the_next_bound_starts_from_the_plateau() {
+        let (s, setup) = plateau_run(None);
+        let r = analyze_loop(&s, &setup);
+        let [up, down, _] = &r.episodes[..] else {
+            panic!("three changes: {:#?}", r.episodes);
+        };
+        assert_eq!(up.verdict, Verdict::Unreachable, "{}", up.reason);
+        let plateau = Process::JACKETED_VESSEL.bias + Process::JACKETED_VESSEL.gain * 60.0;
+        let start = down.start_pv.unwrap();
+        assert!(
+            (start - plateau).abs() < 0.2,
+            "start PV {start} vs {plateau}"
+        );
+        // Closed form of DESIGN.md on the true plant from the plateau: the OP may fall by its
+        // whole 60 %, R = 0.8·60 = 48; to go 68 − 60 − 0.02·15 = 7.7;
+        // t* = 30 + 300·ln(48 / 40.3) ≈ 82 s. From sp_from (75 → 60, to go 14.7) it would be
+        // 30 + 300·ln(48 / 33.3) ≈ 140 s.
+        let truth = 30.0 + 300.0 * (48.0_f64 / (48.0 - (plateau - 60.0 - 0.3))).ln();
+        let t_star = down.min_settling_time_s.unwrap();
+        assert!(
+            (t_star - truth).abs() <= 0.15 * truth,
+            "t* {t_star} vs {truth} (true plant from the plateau)"
+        );
+        for e in &r.episodes {
+            assert!(e.confidence.is_some() || e.verdict == Verdict::Inconclusive);
+            if let (Some(ts), Some(t)) = (e.settling_time_s, e.min_settling_time_s) {
+                assert!(ts >= t, "a reported bound beaten: {e:#?}");
+            }
+        }
+    }
+
+    #[test]
+    fn marginal_changes_drive_no_advice() {
+        let (s, setup) = plateau_run(None);
+        let a = assess(&s, &setup);
+        let model = a.model.as_ref().ok();
+        let advised = recommend(&a.episodes, model, &setup, 2.0);
+        assert_ne!(advised.action, Action::None, "{}", advised.summary);
+        // The same changes, every miss marked marginal: nothing left to act on.
+        let mut marked = a.episodes.clone();
+        for e in marked.iter_mut().filter(|e| e.verdict.is_miss()) {
+            e.confidence = Some(Confidence::Marginal);
+        }
+        let r = recommend(&marked, model, &setup, 2.0);
+        assert!(
+            matches!(r.action, Action::None | Action::Undecided),
+            "{r:#?}"
+        );
+        assert!(r.summary.contains("listed to watch"), "{}", r.summary);
+        assert!(r.actuator.is_none() && r.retune.is_none());
+    }
+
+    #[test]
+    fn a_pv_quantised_as_coarsely_as_the_band_makes_every_change_inconclusive() {
+        // Steps of 0.5 against bands of ±0.14 … ±0.5: the settling time is left to rounding.
+        let (s, setup) = plateau_run(Some(0.5));
+        let r = analyze_loop(&s, &setup);
+        assert!(!r.episodes.is_empty());
+        for e in &r.episodes {
+            assert_eq!(e.verdict, Verdict::Inconclusive, "{e:#?}");
+            assert!(e.reason.contains("steps of 0.5"), "{}", e.reason);
+        }
+        assert_eq!(r.data.quality.changes_unjudgeable, r.episodes.len());
+        assert!(
+            r.data
+                .quality
+                .findings
+                .iter()
+                .any(|f| matches!(f.issue, quality::Issue::QuantisedPv { .. }))
+        );
+    }
+
+    #[test]
+    fn a_frozen_pv_makes_the_change_it_touches_inconclusive() {
+        let (s, setup) = plateau_run(None);
+        // The transmitter sticks for 20 minutes during the 60 → 64 change.
+        let t = s.time_s().to_vec();
+        let mut pv = s.pv().to_vec();
+        let from = t.partition_point(|&x| x < 10_300.0);
+        let to = t.partition_point(|&x| x < 11_500.0);
+        let stuck = pv[from];
+        pv[from..to].fill(stuck);
+        let s = Series::new(t, s.sp().to_vec(), pv, s.op().to_vec(), None).unwrap();
+        let r = analyze_loop(&s, &setup);
+        let last = r.episodes.last().unwrap();
+        assert_eq!(last.verdict, Verdict::Inconclusive, "{last:#?}");
+        assert!(
+            last.reason.contains("the PV stayed at exactly"),
+            "{}",
+            last.reason
+        );
+        assert_ne!(r.episodes[1].verdict, Verdict::Inconclusive);
+    }
 }

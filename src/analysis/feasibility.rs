@@ -33,29 +33,46 @@ pub fn headroom(u0: f64, dir: f64, op_min: f64, op_max: f64) -> f64 {
     if dir > 0.0 { op_max - u0 } else { u0 - op_min }
 }
 
-/// Minimum settling time t* for a change of size `delta` with OP headroom `h` (≥ 0) and band
-/// fraction `b`.
+/// Minimum settling time t* for a change of size `delta` from steady state, with OP headroom `h`
+/// (≥ 0) and band fraction `b`.
 pub fn min_settling_time(m: &Fopdt, delta: f64, h: f64, b: f64) -> Reach {
+    min_settling_time_from(m, delta.abs(), b * delta.abs(), h)
+}
+
+/// Minimum settling time t* from the plant's actual state: the PV is `distance` from the new
+/// setpoint (≥ 0) and at rest under the operating point whose headroom is `h`; the band's
+/// half-width is `band_abs` (PV units). With R = |K|·h, t* = θ + τ·ln(R / (R − (distance −
+/// band_abs))); 0 when the PV already lies in the band.
+pub fn min_settling_time_from(m: &Fopdt, distance: f64, band_abs: f64, h: f64) -> Reach {
     let reach = m.gain.abs() * h.max(0.0);
-    let mag = delta.abs();
-    if mag > reach || reach <= (1.0 - b) * mag {
+    let to_go = distance - band_abs;
+    if distance > reach || (to_go > 0.0 && reach <= to_go) {
         return Reach::Unreachable { reach };
     }
-    let t_star = m.dead_time_s + m.time_constant_s * (reach / (reach - (1.0 - b) * mag)).ln();
+    if to_go <= 0.0 {
+        return Reach::Reachable { t_star_s: 0.0 };
+    }
+    let t_star = m.dead_time_s + m.time_constant_s * (reach / (reach - to_go)).ln();
     Reach::Reachable { t_star_s: t_star }
 }
 
-/// The OP headroom that would make t* equal `spec_s` for a change `delta`, never less than what
-/// reaching the setpoint at all needs (|Δ|/|K|). `None` when `spec_s` is not longer than the dead
-/// time: no actuator can do it.
+/// The OP headroom that would make t* equal `spec_s` for a change `delta` from steady state,
+/// never less than what reaching the setpoint at all needs (|Δ|/|K|). `None` when `spec_s` is not
+/// longer than the dead time: no actuator can do it.
 pub fn required_headroom(m: &Fopdt, delta: f64, b: f64, spec_s: f64) -> Option<f64> {
+    required_headroom_from(m, delta.abs(), b * delta.abs(), spec_s)
+}
+
+/// [`required_headroom`] from the plant's actual state: the PV `distance` from the new setpoint,
+/// a band of half-width `band_abs`.
+pub fn required_headroom_from(m: &Fopdt, distance: f64, band_abs: f64, spec_s: f64) -> Option<f64> {
     let avail = spec_s - m.dead_time_s;
     if avail <= 0.0 || m.gain == 0.0 {
         return None;
     }
     let e = (avail / m.time_constant_s).exp();
-    let reach = (1.0 - b) * delta.abs() * e / (e - 1.0);
-    Some(reach.max(delta.abs()) / m.gain.abs())
+    let reach = (distance - band_abs).max(0.0) * e / (e - 1.0);
+    Some(reach.max(distance) / m.gain.abs())
 }
 
 /// The largest change (magnitude) that can meet `spec_s` from an operating point with headroom
@@ -162,6 +179,33 @@ mod tests {
         assert_eq!(required_headroom(&PLANT, 1.0, 0.02, 2.0), None);
         // A lax spec still needs enough headroom to reach the setpoint at all.
         assert_eq!(required_headroom(&PLANT, 1.0, 0.02, 1e6), Some(0.5));
+    }
+
+    #[test]
+    fn t_star_from_a_pv_short_of_the_old_setpoint_agrees_with_a_brute_force_simulation() {
+        // The PV sits 0.6 below the new setpoint (it never reached the old one), at rest under the
+        // operating point; the band is ±0.02 of a change of 1. Hold the OP at its limit from t = 0
+        // and integrate on a 0.1 ms grid until the PV enters the band (brute force).
+        let (h, band_abs, distance) = (0.75, 0.02, 0.6);
+        let (dt, mut y, mut t) = (1e-4, 0.0_f64, 0.0);
+        while (y - distance).abs() > band_abs {
+            let u = if t >= PLANT.dead_time_s { h } else { 0.0 };
+            y += dt / PLANT.time_constant_s * (PLANT.gain * u - y);
+            t += dt;
+        }
+        let Reach::Reachable { t_star_s } = min_settling_time_from(&PLANT, distance, band_abs, h)
+        else {
+            panic!("reachable");
+        };
+        assert!((t - t_star_s).abs() < 2e-3, "sim {t} vs {t_star_s}");
+        // Already inside the band: nothing to do.
+        assert_eq!(
+            min_settling_time_from(&PLANT, 0.01, band_abs, h),
+            Reach::Reachable { t_star_s: 0.0 }
+        );
+        // The headroom that makes this t* is found again.
+        let need = required_headroom_from(&PLANT, distance, band_abs, t_star_s).unwrap();
+        assert!((need - h).abs() < 1e-4, "{need}");
     }
 
     #[test]

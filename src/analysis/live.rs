@@ -9,8 +9,9 @@
 //! gap, manual, horizon), and reported early as provisional when it has already missed its spec
 //! while its window is still open.
 
-use super::assess::{self, PoolEntry};
+use super::assess::{self, Beaten, Knowledge, ModelSet, PoolEntry};
 use super::identify::Model;
+use super::quality::{self, Survey};
 use super::segment::{self, WindowEnd};
 use super::verdict::{EpisodeResult, Verdict};
 use super::{LoopSetup, Series};
@@ -178,7 +179,9 @@ pub struct LoopTracker {
     setup: LoopSetup,
     rows: Vec<Row>,
     pool: VecDeque<PoolEntry>,
-    model: Option<Model>,
+    models: Option<ModelSet>,
+    /// Changes so far whose settling beat the model's bound.
+    beaten: Beaten,
     /// Start time of the newest final episode; windows starting at or before it are done.
     final_until: f64,
     /// The open episode's start and the verdict last reported for it.
@@ -202,7 +205,8 @@ impl LoopTracker {
             setup,
             rows: Vec::new(),
             pool: VecDeque::new(),
-            model: None,
+            models: None,
+            beaten: Beaten::default(),
             final_until: f64::NEG_INFINITY,
             provisional: None,
             max_abs_sp: 0.0,
@@ -216,7 +220,7 @@ impl LoopTracker {
     }
 
     pub fn model(&self) -> Option<&Model> {
-        self.model.as_ref()
+        self.models.as_ref().map(|ms| &ms.model)
     }
 
     /// Rows currently buffered (bounded by the evaluation horizon).
@@ -232,8 +236,8 @@ impl LoopTracker {
         if let Some(t) = final_until_s {
             self.final_until = self.final_until.max(t);
         }
-        if self.model.is_none() {
-            self.model = model;
+        if self.models.is_none() {
+            self.models = model.map(ModelSet::alone);
         }
     }
 
@@ -299,6 +303,8 @@ impl LoopTracker {
         let seg = segment::segment(&series, &settings);
         let t = series.time_s();
         let mut keep_from = t.len().saturating_sub(1);
+        // The data-quality survey of the buffered rows, made once per evaluation when needed.
+        let mut survey: Option<Survey> = None;
         for w in &seg.windows {
             let t0 = t[w.start];
             if t0 <= self.final_until {
@@ -315,15 +321,17 @@ impl LoopTracker {
                     }
                     // A model carried over from before a restart is only replaced once a few new
                     // episodes can outvote it.
-                    if self.model.is_none() || self.pool.len() >= MIN_POOL_TO_REPLACE {
+                    if self.models.is_none() || self.pool.len() >= MIN_POOL_TO_REPLACE {
                         let pool = self.pool.make_contiguous();
-                        if let Ok(m) = assess::identify_pool(pool, &self.setup) {
-                            events.push(LiveEvent::Model(m));
-                            self.model = Some(m);
+                        if let Ok(ms) = assess::identify_pool(pool, &self.setup) {
+                            events.push(LiveEvent::Model(ms.model));
+                            self.models = Some(ms);
                         }
                     }
                 }
-                let result = assess::judge(&series, &scored, &self.setup, self.model.as_ref());
+                let survey = survey.get_or_insert_with(|| self.survey(&series));
+                let result = assess::judge(&series, &scored, &self.setup, &self.knowing(survey));
+                self.beaten.record(&result);
                 self.final_until = t0;
                 if self.provisional.is_some_and(|(s, _)| s == t0) {
                     self.provisional = None;
@@ -333,7 +341,9 @@ impl LoopTracker {
                 keep_from = keep_from.min(w.pre_start);
                 let elapsed = t[w.end - 1] - t0;
                 if elapsed >= self.setup.spec.settle_within_s {
-                    let result = assess::judge(&series, &scored, &self.setup, self.model.as_ref());
+                    let survey = survey.get_or_insert_with(|| self.survey(&series));
+                    let result =
+                        assess::judge(&series, &scored, &self.setup, &self.knowing(survey));
                     let already = self
                         .provisional
                         .is_some_and(|(s, v)| s == t0 && v == result.verdict);
@@ -346,6 +356,20 @@ impl LoopTracker {
         }
         self.trim(&series, keep_from);
         events
+    }
+
+    /// The data-quality survey of the buffered rows.
+    fn survey(&self, series: &Series) -> Survey {
+        quality::survey(series, self.setup.op, assess::pv_noise_sd(series.pv()))
+    }
+
+    /// What a change is judged with now.
+    fn knowing<'a>(&'a self, survey: &'a Survey) -> Knowledge<'a> {
+        Knowledge {
+            models: self.models.as_ref(),
+            survey,
+            beaten: self.beaten,
+        }
     }
 
     /// Drops rows no future episode can need: everything before the open window's undisturbed

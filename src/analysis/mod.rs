@@ -3,13 +3,19 @@
 //! (or the pieces it is made of), so live and offline answers cannot drift apart.
 //!
 //! Data flow inside: [`segment`] finds setpoint changes and cuts episode windows → [`metrics`]
-//! scores each response model-free → [`identify`] fits one FOPDT model to the loop's episodes →
-//! [`feasibility`] computes the fastest response the actuator allows → [`verdict`] decides each
-//! episode's verdict from those facts → [`advice`] gives the loop its recommendation ([`tuning`]
-//! supplies PI settings). [`assess`] runs these steps in order.
+//! scores each response model-free → [`identify`] fits the process model to the loop's episodes
+//! (and again to episodes drawn with replacement, for its plausible variants) → [`bound`] reads
+//! where the plant was at each change and computes the fastest response the actuator allows from
+//! there ([`feasibility`]) for the model and each variant → [`quality`] says what in the data
+//! makes a change doubtful or unjudgeable → [`verdict`] decides each episode's verdict from those
+//! facts → [`confidence`] says whether it is clear or marginal, and which step would decide a
+//! marginal one → [`advice`] gives the loop its recommendation from the clear verdicts
+//! ([`tuning`] supplies PI settings). [`assess`] runs these steps in order.
 
 pub mod advice;
 pub mod assess;
+pub mod bound;
+pub mod confidence;
 pub mod controller;
 pub mod feasibility;
 pub mod identify;

@@ -21,10 +21,10 @@
 use super::Series;
 use super::setup::OpRange;
 use super::stats::median_in_place;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// What a finding does to the verdicts it touches.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Effect {
     /// The verdict stands, but its confidence is marginal.
@@ -34,7 +34,7 @@ pub enum Effect {
 }
 
 /// One problem with the data.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "snake_case")]
 pub enum Issue {
     /// The dead time is shorter than two sample periods: the model's dead time, and the bound
@@ -73,8 +73,22 @@ pub enum Issue {
     },
 }
 
+impl Issue {
+    /// Whether the problem is with the PV record itself (and so touches every verdict, even one
+    /// read from the PV alone), rather than with the OP or the model.
+    pub fn about_pv(&self) -> bool {
+        matches!(
+            self,
+            Issue::QuantisedPv { .. }
+                | Issue::FrozenPv { .. }
+                | Issue::ClippedPv { .. }
+                | Issue::IrregularTimestamps { .. }
+        )
+    }
+}
+
 /// A problem and what it does to a verdict.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Finding {
     #[serde(flatten)]
     pub issue: Issue,

@@ -17,6 +17,8 @@
 //!
 //! [`explain`] words the decision for people; it never changes it.
 
+use super::confidence::{Confidence, Experiment};
+use super::quality::Finding;
 use super::segment::{ChangeShape, WindowEnd};
 use super::setup::Spec;
 use serde::{Deserialize, Serialize};
@@ -120,6 +122,47 @@ pub struct EpisodeResult {
     pub verdict: Verdict,
     /// One sentence on why this verdict.
     pub reason: String,
+    /// The PV at the change, read from the samples just before it: where t* starts from (after
+    /// an unreachable change, the saturated plateau rather than `sp_from`). `None` in results
+    /// stored before it was recorded.
+    #[serde(default)]
+    pub start_pv: Option<f64>,
+    /// Whether the PV was still moving at the change.
+    #[serde(default)]
+    pub pv_moving: bool,
+    /// How sure a conclusive verdict is; `None` for an inconclusive one.
+    #[serde(default)]
+    pub confidence: Option<Confidence>,
+    /// Why a verdict is marginal, in words (empty when clear).
+    #[serde(default)]
+    pub confidence_reasons: Vec<String>,
+    /// t* over the model's plausible variants (10th to 90th percentile, s); `None` without a
+    /// model, or when some plausible variant cannot reach the setpoint.
+    #[serde(default)]
+    pub min_settling_time_range_s: Option<[f64; 2]>,
+    /// The actuator's reach over the same variants (PV units).
+    #[serde(default)]
+    pub reach_range: Option<[f64; 2]>,
+    /// The capacity ratio over the same variants.
+    #[serde(default)]
+    pub capacity_ratio_range: Option<[f64; 2]>,
+    /// The change settled faster than the model's bound for it: the model is wrong for this
+    /// change, so no bound is reported and it is never `actuator_limited`.
+    #[serde(default)]
+    pub bound_beaten: bool,
+    /// What in the data makes this change doubtful or unjudgeable.
+    #[serde(default)]
+    pub quality: Vec<Finding>,
+    /// For a marginal verdict the model could decide, the setpoint step that would.
+    #[serde(default)]
+    pub deciding_step: Option<Experiment>,
+}
+
+impl EpisodeResult {
+    /// Whether the verdict is conclusive but marginal.
+    pub fn is_marginal(&self) -> bool {
+        self.confidence == Some(Confidence::Marginal)
+    }
 }
 
 /// Counts of episodes by verdict.
@@ -217,6 +260,11 @@ pub struct Facts {
     pub residual_noise: f64,
     /// What the actuator allows; `None` without a usable process model.
     pub capability: Option<Capability>,
+    /// A data-quality finding about the PV makes the change unjudgeable.
+    pub pv_unfit: bool,
+    /// A data-quality finding about the OP makes the change unjudgeable unless it met the spec
+    /// (a verdict read from the PV alone).
+    pub op_unfit: bool,
 }
 
 /// How a missed change missed.
@@ -247,15 +295,22 @@ pub enum Ground {
     TooSlowAtLimit(Miss, f64),
     /// Missed although the actuator allows settling in t* within the spec.
     RoomToSpare(Miss, f64),
+    /// Missed, but settled faster than the model's bound (`None`: the model said the setpoint
+    /// was beyond reach): the model is wrong for this change.
+    BoundBeaten(Miss, Option<f64>),
+    /// The data around the change cannot be trusted to score it (the finding, in words).
+    DataUnfit,
 }
 
 impl Ground {
     /// The verdict this ground gives.
     pub fn verdict(self) -> Verdict {
         match self {
-            Ground::BandInsideNoise | Ground::CutShort | Ground::NoModel(_) => {
-                Verdict::Inconclusive
-            }
+            Ground::BandInsideNoise
+            | Ground::CutShort
+            | Ground::NoModel(_)
+            | Ground::BoundBeaten(..)
+            | Ground::DataUnfit => Verdict::Inconclusive,
             Ground::Settled { .. } => Verdict::Met,
             Ground::BeyondReach(..) => Verdict::Unreachable,
             Ground::TooSlowAtLimit(..) => Verdict::ActuatorLimited,
@@ -285,6 +340,9 @@ pub fn decide(f: &Facts, spec: &Spec) -> Judgement {
 }
 
 fn ground(f: &Facts, spec: &Spec) -> Ground {
+    if f.pv_unfit {
+        return Ground::DataUnfit;
+    }
     let settled_in_time = f
         .settling_time_s
         .is_some_and(|ts| ts <= spec.settle_within_s);
@@ -310,9 +368,17 @@ fn ground(f: &Facts, spec: &Spec) -> Ground {
             None => Miss::NeverSettled,
         }
     };
+    if f.op_unfit {
+        return Ground::DataUnfit;
+    }
     let Some(c) = f.capability else {
         return Ground::NoModel(miss);
     };
+    if let Some(ts) = f.settling_time_s
+        && c.fastest_s.is_none_or(|t| ts < t)
+    {
+        return Ground::BoundBeaten(miss, c.fastest_s);
+    }
     if f.distance > c.reach || c.fastest_s.is_none() {
         return Ground::BeyondReach(miss, c);
     }
@@ -326,11 +392,13 @@ fn ground(f: &Facts, spec: &Spec) -> Ground {
 
 /// What the explanation quotes besides the facts the verdict was decided from.
 #[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Context {
+pub struct Context<'a> {
     /// The PV noise estimated around the change (σ, before smoothing).
     pub pv_noise_sd: f64,
     /// The operating point: mean OP just before the change.
     pub op_start: f64,
+    /// The data-quality problem that makes the change unjudgeable, in words.
+    pub data_problem: Option<&'a str>,
 }
 
 /// One sentence on why the change got its verdict.
@@ -370,6 +438,19 @@ pub fn explain(j: &Judgement, f: &Facts, spec: &Spec, cx: &Context) -> String {
             "{}; the actuator allows settling in {}",
             miss_phrase(miss, f, spec),
             secs(fastest)
+        ),
+        Ground::BoundBeaten(miss, fastest) => format!(
+            "{}, faster than the process model allows ({}): the model is wrong for this change, \
+             so it cannot tell tuning from actuator",
+            miss_phrase(miss, f, spec),
+            match fastest {
+                Some(t) => format!("its fastest possible settling is {}", secs(t)),
+                None => "it puts the setpoint beyond the actuator's reach".to_string(),
+            }
+        ),
+        Ground::DataUnfit => format!(
+            "the data cannot be trusted to score this change: {}",
+            cx.data_problem.unwrap_or("a data-quality problem")
         ),
     }
 }
@@ -433,6 +514,8 @@ mod tests {
                 reach: 8.0,
                 fastest_s: Some(300.0),
             }),
+            pv_unfit: false,
+            op_unfit: false,
         }
     }
 
@@ -658,10 +741,66 @@ mod tests {
     }
 
     #[test]
+    fn a_change_that_settled_faster_than_its_bound_is_never_actuator_limited() {
+        // Settled late (800 s against 600 s), but t* says 900 s: the bound is proven wrong.
+        let f = Facts {
+            settling_time_s: Some(800.0),
+            capability: with_fastest(900.0),
+            ..facts()
+        };
+        assert_eq!(
+            decide(&f, &spec()).ground,
+            Ground::BoundBeaten(
+                Miss::SettledLate {
+                    settling_time_s: 800.0
+                },
+                Some(900.0)
+            )
+        );
+        assert_eq!(verdict(f), Verdict::Inconclusive);
+        // Settled at all, although the model puts the setpoint beyond reach.
+        let f = Facts {
+            settling_time_s: Some(800.0),
+            capability: Some(Capability {
+                reach: 4.0,
+                fastest_s: None,
+            }),
+            ..facts()
+        };
+        assert_eq!(verdict(f), Verdict::Inconclusive);
+        // Slower than the bound: the bound stands.
+        let f = Facts {
+            settling_time_s: Some(950.0),
+            capability: with_fastest(900.0),
+            ..facts()
+        };
+        assert_eq!(verdict(f), Verdict::ActuatorLimited);
+        // A PV unfit to score: inconclusive whatever else; an unfit OP leaves a met change met.
+        let f = Facts {
+            pv_unfit: true,
+            ..facts()
+        };
+        assert_eq!(verdict(f), Verdict::Inconclusive);
+        let f = Facts {
+            op_unfit: true,
+            ..facts()
+        };
+        assert_eq!(verdict(f), Verdict::Met);
+        let f = Facts {
+            op_unfit: true,
+            settling_time_s: Some(950.0),
+            capability: with_fastest(900.0),
+            ..facts()
+        };
+        assert_eq!(verdict(f), Verdict::Inconclusive);
+    }
+
+    #[test]
     fn the_explanation_quotes_the_facts_the_verdict_read() {
         let cx = Context {
             pv_noise_sd: 0.2,
             op_start: 61.3,
+            data_problem: None,
         };
         let say = |f: Facts| explain(&decide(&f, &spec()), &f, &spec(), &cx);
         assert_eq!(say(facts()), "settled in 400 s (spec 600 s)");
@@ -693,7 +832,17 @@ mod tests {
                 capability: with_fastest(700.0),
                 ..facts()
             }),
-            "overshoot 12.5 % (spec 10.0 %); even with the OP held at its limit the fastest \
+            "overshoot 12.5 % (spec 10.0 %), faster than the process model allows (its fastest \
+             possible settling is 700 s): the model is wrong for this change, so it cannot tell \
+             tuning from actuator"
+        );
+        assert_eq!(
+            say(Facts {
+                settling_time_s: None,
+                capability: with_fastest(700.0),
+                ..facts()
+            }),
+            "never settled within 1800 s; even with the OP held at its limit the fastest \
              settling is 700 s"
         );
         assert_eq!(

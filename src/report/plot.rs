@@ -8,7 +8,6 @@
 
 use super::section::TellingEpisode;
 use super::trend::TrendWeek;
-use crate::analysis::feasibility::{self, Reach};
 use crate::analysis::{OpRange, Spec};
 use crate::units::{fraction_to_pct, pct_to_fraction};
 use plotters::coord::Shift;
@@ -112,21 +111,20 @@ fn fastest_response(
     let delta = e.sp_to - e.sp_from;
     let m = e.model?;
     let b = spec?.band_fraction();
-    let Reach::Reachable { t_star_s: t_star } =
-        feasibility::min_settling_time(&m, delta, e.op_headroom, b)
-    else {
-        return None;
-    };
+    // The curve starts where the plant was at the change, and only a reported bound is drawn (a
+    // bound the change beat is not one).
+    let y0 = e.start_pv.unwrap_or(e.sp_from);
+    let t_star = e.min_settling_time_s?;
     let reach = m.gain.abs() * e.op_headroom;
-    let sign = delta.signum();
+    let sign = (e.sp_to - y0).signum();
     let n = 200;
     let curve = (0..=n)
         .map(|i| {
             let t = x_end * 60.0 * i as f64 / n as f64;
             let y = if t <= m.dead_time_s {
-                e.sp_from
+                y0
             } else if t <= t_star {
-                e.sp_from + sign * reach * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
+                y0 + sign * reach * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
             } else {
                 // Inside the band the OP backs off and the PV closes on the setpoint.
                 e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()

@@ -120,6 +120,8 @@ pub struct LoopSection {
     /// The recommendation's numbers, labelled for people.
     pub advice: Vec<Figure>,
     pub telling: Option<TellingEpisode>,
+    /// The period's marginal verdicts: listed to watch, never alerted or advised on.
+    pub watch: Vec<Watch>,
     pub trend: Vec<TrendWeek>,
     /// Plain sentences about what is missing or odd (no changes, no model, no spec...).
     pub notes: Vec<String>,
@@ -161,6 +163,42 @@ pub struct Figure {
     pub value: String,
 }
 
+/// A marginal verdict to watch, with why it is marginal and the step that would decide it.
+#[derive(Debug, Clone, Serialize)]
+pub struct Watch {
+    /// RFC 3339 in the report's time zone.
+    pub start: String,
+    pub sp_from: f64,
+    pub sp_to: f64,
+    pub verdict: Verdict,
+    /// The verdict as people read it ([`Verdict::label`]).
+    pub verdict_words: &'static str,
+    pub min_settling_time_range_s: Option<[f64; 2]>,
+    /// Why it is marginal, in words.
+    pub reasons: Vec<String>,
+    /// The experiment that would decide it, when the model can say.
+    pub plan: Option<String>,
+}
+
+fn watch_list(week: &[&Episode], tz: &TimeZone) -> Vec<Watch> {
+    week.iter()
+        .filter(|e| e.result.is_marginal())
+        .map(|e| {
+            let r = &e.result;
+            Watch {
+                start: local(e.row.start_ms, tz),
+                sp_from: r.sp_from,
+                sp_to: r.sp_to,
+                verdict: r.verdict,
+                verdict_words: r.verdict.label(),
+                min_settling_time_range_s: r.min_settling_time_range_s,
+                reasons: r.confidence_reasons.clone(),
+                plan: r.deciding_step.as_ref().map(|x| x.plan.clone()),
+            }
+        })
+        .collect()
+}
+
 /// The episode the loop's plot shows, with what the plot needs.
 #[derive(Debug, Clone, Serialize)]
 pub struct TellingEpisode {
@@ -178,6 +216,8 @@ pub struct TellingEpisode {
     pub sp_to: f64,
     pub settling_time_s: Option<f64>,
     pub min_settling_time_s: Option<f64>,
+    /// The PV at the change, where the fastest response starts.
+    pub start_pv: Option<f64>,
     pub overshoot_pct: f64,
     pub saturation_duty: f64,
     pub op_start: f64,
@@ -264,6 +304,7 @@ pub(super) fn build_loop(
         recommendation,
         advice,
         telling,
+        watch: watch_list(&week, tz),
         trend: trend::trend(&episodes, periods, &l.models),
         notes,
         episode_svg: None,
@@ -330,6 +371,7 @@ fn telling_episode(
         sp_to: r.sp_to,
         settling_time_s: r.settling_time_s,
         min_settling_time_s: r.min_settling_time_s,
+        start_pv: r.start_pv,
         overshoot_pct: r.overshoot_pct,
         saturation_duty: r.saturation_duty,
         op_start: r.op_start,

@@ -47,14 +47,16 @@ pub struct ModelRow {
 impl ModelRow {
     /// The model as the analysis core uses it (to resume a loop after a restart).
     pub fn model(&self) -> Model {
-        Model {
-            gain: self.gain,
-            time_constant_s: self.time_constant_s,
-            dead_time_s: self.dead_time_s,
-            fit_r2: self.fit_r2,
-            episodes_used: self.episodes_used as usize,
-            points_used: self.points_used as usize,
-        }
+        Model::first_order(
+            crate::analysis::Fopdt {
+                gain: self.gain,
+                time_constant_s: self.time_constant_s,
+                dead_time_s: self.dead_time_s,
+            },
+            self.fit_r2,
+            self.episodes_used as usize,
+            self.points_used as usize,
+        )
     }
 }
 
@@ -357,14 +359,16 @@ mod tests {
     use super::*;
 
     fn model(gain: f64, fit_r2: f64) -> Model {
-        Model {
-            gain,
-            time_constant_s: 60.0,
-            dead_time_s: 8.0,
+        Model::first_order(
+            crate::analysis::Fopdt {
+                gain,
+                time_constant_s: 60.0,
+                dead_time_s: 8.0,
+            },
             fit_r2,
-            episodes_used: 3,
-            points_used: 900,
-        }
+            3,
+            900,
+        )
     }
 
     #[tokio::test]

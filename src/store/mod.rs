@@ -271,6 +271,16 @@ pub(crate) mod testing {
             capacity_ratio: Some(1.3),
             verdict,
             reason: "the actuator cannot deliver the spec".into(),
+            start_pv: None,
+            pv_moving: false,
+            confidence: None,
+            confidence_reasons: Vec::new(),
+            min_settling_time_range_s: None,
+            reach_range: None,
+            capacity_ratio_range: None,
+            bound_beaten: false,
+            quality: Vec::new(),
+            deciding_step: None,
         }
     }
 

@@ -272,14 +272,16 @@ mod tests {
     #[tokio::test]
     async fn models_before_leaves_out_later_fits() {
         let (_dir, store) = fresh_store().await;
-        let m = Model {
-            gain: 1.0,
-            time_constant_s: 60.0,
-            dead_time_s: 5.0,
-            fit_r2: 0.99,
-            episodes_used: 2,
-            points_used: 100,
-        };
+        let m = Model::first_order(
+            crate::analysis::Fopdt {
+                gain: 1.0,
+                time_constant_s: 60.0,
+                dead_time_s: 5.0,
+            },
+            0.99,
+            2,
+            100,
+        );
         store.insert_model("TIC-101", &m, 500).await.unwrap();
         store.insert_model("TIC-101", &m, 1_500).await.unwrap();
         let before = store.models_before(1_000).await.unwrap();

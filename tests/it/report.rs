@@ -90,18 +90,30 @@ fn episode(
         capacity_ratio: None,
         verdict,
         reason: format!("seeded {}", verdict.as_str()),
+        start_pv: None,
+        pv_moving: false,
+        confidence: None,
+        confidence_reasons: Vec::new(),
+        min_settling_time_range_s: None,
+        reach_range: None,
+        capacity_ratio_range: None,
+        bound_beaten: false,
+        quality: Vec::new(),
+        deciding_step: None,
     }
 }
 
 fn model(gain: f64, tau: f64, theta: f64) -> Model {
-    Model {
-        gain,
-        time_constant_s: tau,
-        dead_time_s: theta,
-        fit_r2: 0.995,
-        episodes_used: 4,
-        points_used: 1_000,
-    }
+    Model::first_order(
+        headroom::analysis::Fopdt {
+            gain,
+            time_constant_s: tau,
+            dead_time_s: theta,
+        },
+        0.995,
+        4,
+        1_000,
+    )
 }
 
 /// Samples of one simulated setpoint change starting at `t0_ms` (10 s apart), for the plot.

@@ -19,6 +19,9 @@
 //! dead time only shifts the answer: the switching times of a delayed process are those of the
 //! undelayed one.
 //!
+//! A plant of one state (first order, or a pure integrator) is answered in closed form without
+//! the search (the bang to the near band edge, then the hold); the search serves the rest.
+//!
 //! For a first-order plant the result equals the closed form of the feasibility module,
 //! t* = θ + τ·ln(R / (R − (1 − b)|Δ|)); tests check that, the double integrator's rest-to-rest
 //! time 2·√(d/a), and every family against a brute-force scan.
@@ -177,6 +180,18 @@ pub fn fastest(q: &Question) -> Fastest {
     } else {
         (q.u_lo, q.u_hi)
     };
+    if let Some(t1) = single_state_bang(q, u_far) {
+        return Fastest::Settles {
+            t_star_s: q.plant.dead_time_s + t1,
+            sequence: Sequence {
+                t1_s: t1,
+                t2_s: 0.0,
+                u_far,
+                u_near,
+                u_hold,
+            },
+        };
+    }
     let sim = Sim::new(q, u_far, u_near, u_hold);
     let mut search = Search {
         t_max: sim.search_span(),
@@ -202,6 +217,26 @@ pub fn fastest(q: &Question) -> Fastest {
             u_hold,
         },
     }
+}
+
+/// For a plant of one state, the bang that ends on the near edge of the band, in closed form:
+/// at full input the output approaches its reach R = |K·u_far| as R·(1 − e^(−t/τ)) (or rises at
+/// |k·u_far| with an integrator), and the hold then keeps it inside, so the fastest settling is
+/// the time to the edge (1 − b)·|Δ| — the closed form of the design for first order. `None` for
+/// larger plants.
+fn single_state_bang(q: &Question, u_far: f64) -> Option<f64> {
+    let p = &q.plant;
+    if p.n != 1 {
+        return None;
+    }
+    let edge = (1.0 - q.band_fraction) * q.delta.abs();
+    let rate = (p.b[0] * p.c[0] * u_far).abs();
+    if p.a[0][0] == 0.0 {
+        return (rate > 0.0).then(|| edge / rate);
+    }
+    let tau = -1.0 / p.a[0][0];
+    let reach = rate * tau;
+    (tau > 0.0 && reach > edge).then(|| tau * (reach / (reach - edge)).ln())
 }
 
 /// The search over (t1, t2): the best settling time found so far and where.
