@@ -254,44 +254,35 @@ impl ModelSet {
     }
 }
 
-/// Identifies the loop's model from a pool of episodes, with its bootstrap variants.
+/// Identifies the loop's model from a pool of episodes (choosing its family), with its bootstrap
+/// variants: the same family fitted again to episodes drawn with replacement.
 pub(crate) fn identify_pool(pool: &[PoolEntry], setup: &LoopSetup) -> Result<ModelSet, Refusal> {
-    let model = identify_entries(pool.iter(), setup)?;
-    // Deterministic draws (the core has no clock): seeded by the pool's size.
-    let mut rng = super::sim::Rng::new(0x5eed ^ pool.len() as u64);
-    let variants = (0..ModelSet::VARIANTS)
-        .filter_map(|_| {
-            let draw: Vec<&PoolEntry> = (0..pool.len())
-                .map(|_| &pool[(rng.uniform() * pool.len() as f64) as usize % pool.len()])
-                .collect();
-            identify_entries(draw.into_iter(), setup).ok()
-        })
-        .collect();
-    Ok(ModelSet { model, variants })
-}
-
-/// Identifies one model from some pool entries.
-fn identify_entries<'a>(
-    pool: impl Iterator<Item = &'a PoolEntry> + Clone,
-    setup: &LoopSetup,
-) -> Result<Model, Refusal> {
-    let mut noises: Vec<f64> = pool.clone().map(|p| p.noise).collect();
+    let mut noises: Vec<f64> = pool.iter().map(|p| p.noise).collect();
     let noise = stats::median_in_place(&mut noises);
     // The PV cannot respond before the dead time: the earliest 10 % crossing of a change well
     // above the noise bounds the dead-time search.
     let max_dead_time = pool
-        .clone()
+        .iter()
         .filter(|p| 0.1 * p.delta.abs() > 4.0 * p.noise)
         .filter_map(|p| p.t10_s)
         .fold(None, |m: Option<f64>, t| Some(m.map_or(t, |m| m.min(t))))
         .map(|t| 1.2 * t);
-    identify::identify(
-        pool.map(|p| &p.segment),
+    let op_range = (setup.op.min, setup.op.max);
+    let segments = || pool.iter().map(|p| &p.segment);
+    let settings = &setup.options.identify;
+    let model = identify::identify(segments(), noise, op_range, max_dead_time, settings)?;
+    // Deterministic draws (the core has no clock): seeded by the pool's size.
+    let variants = identify::replicates(
+        &model,
+        segments(),
         noise,
-        (setup.op.min, setup.op.max),
+        op_range,
         max_dead_time,
-        &setup.options.identify,
-    )
+        settings,
+        ModelSet::VARIANTS,
+        0x5eed ^ pool.len() as u64,
+    );
+    Ok(ModelSet { model, variants })
 }
 
 /// A window with its model-free metrics.
@@ -566,7 +557,7 @@ pub(crate) fn judge(
             }),
         peak_op: m.peak_op,
         min_settling_time_s: b.and_then(|b| b.fastest_s),
-        reach: b.map(|b| b.reach),
+        reach: b.map(|b| b.reach).filter(|r| r.is_finite()),
         required_op_limit: b.and_then(|b| b.required_op_limit),
         capacity_ratio: b.and_then(|b| b.capacity_ratio),
         verdict,
@@ -579,7 +570,10 @@ pub(crate) fn judge(
             .as_ref()
             .filter(|_| !beaten_now)
             .and_then(|(_, sp)| sp.fastest_s),
-        reach_range: point.as_ref().map(|(_, sp)| sp.reach),
+        reach_range: point
+            .as_ref()
+            .map(|(_, sp)| sp.reach)
+            .filter(|r| r.iter().all(|x| x.is_finite())),
         capacity_ratio_range: point.as_ref().and_then(|(_, sp)| sp.capacity_ratio),
         bound_beaten: beaten_now,
         quality,

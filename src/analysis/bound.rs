@@ -13,6 +13,7 @@
 
 use super::feasibility::{self, Reach};
 use super::identify::Model;
+use super::optimal::{self, Fastest, Question};
 use super::setup::OpRange;
 
 /// Where the plant was at a change.
@@ -104,32 +105,135 @@ pub struct Bound {
     pub capacity_ratio: Option<f64>,
 }
 
-/// The bound of `model` for change `c`, against a spec time of `spec_s`.
+/// The bound of `model` for change `c`, against a spec time of `spec_s`. Families that are first
+/// order in the change's direction use the closed form of DESIGN.md ([`feasibility`]); the others
+/// the search of [`optimal`] (in the mapped OP of an OP-dependent gain, where bang–bang in the OP
+/// is bang–bang in the mapped OP, since the map is monotone).
 pub fn bound(model: &Model, c: &Change, op: OpRange, spec_s: f64) -> Bound {
-    let f = model.fopdt();
     let distance = (c.sp_to - c.state.pv).abs();
-    let dir = feasibility::op_direction(f.gain, c.sp_to - c.state.pv);
-    let rest = if f.gain != 0.0 {
-        c.op_start - c.state.slope_per_s * f.time_constant_s / f.gain
+    let rising = c.sp_to >= c.state.pv;
+    let eq = model.fopdt();
+    let dir = feasibility::op_direction(eq.gain, c.sp_to - c.state.pv);
+    // The OP that would hold the PV still where it is (first-order equivalent; for an integrating
+    // process OP − slope/k).
+    let rest = if eq.gain != 0.0 {
+        c.op_start - c.state.slope_per_s * eq.time_constant_s / eq.gain
     } else {
         c.op_start
     };
     let headroom = feasibility::headroom(rest, dir, op.min, op.max);
-    let fastest_s = match feasibility::min_settling_time_from(&f, distance, c.band_abs, headroom) {
-        Reach::Reachable { t_star_s } => Some(t_star_s),
-        Reach::Unreachable { .. } => None,
+    let limit_at = |h: f64| rest + dir * h;
+    let (reach, fastest_s, required_op_limit) = match model.closed_form(rising) {
+        Some(f) => (
+            f.gain.abs() * headroom.max(0.0),
+            match feasibility::min_settling_time_from(&f, distance, c.band_abs, headroom) {
+                Reach::Reachable { t_star_s } => Some(t_star_s),
+                Reach::Unreachable { .. } => None,
+            },
+            feasibility::required_headroom_from(&f, distance, c.band_abs, spec_s).map(limit_at),
+        ),
+        None => {
+            let search = Search {
+                model,
+                rising,
+                delta: c.sp_to - c.state.pv,
+                band_abs: c.band_abs,
+                rest,
+            };
+            let fastest = search.fastest(op.min, op.max);
+            let beyond = fastest.is_none_or(|t| t > spec_s);
+            (
+                search.reach(limit_at(headroom)),
+                fastest,
+                if beyond {
+                    search.required_limit(dir, op, spec_s)
+                } else {
+                    None
+                },
+            )
+        }
     };
-    let required_op_limit = feasibility::required_headroom_from(&f, distance, c.band_abs, spec_s)
-        .map(|need| rest + dir * need);
     Bound {
         dir,
         headroom,
-        reach: f.gain.abs() * headroom.max(0.0),
+        reach,
         fastest_s,
         required_op_limit,
         capacity_ratio: required_op_limit.map(|l| feasibility::capacity_ratio(l, dir, op)),
     }
 }
+
+/// The fastest-settling search for one change on a family without a closed form.
+struct Search<'a> {
+    model: &'a Model,
+    rising: bool,
+    /// Signed distance to go (PV units).
+    delta: f64,
+    band_abs: f64,
+    /// The OP at rest at the change.
+    rest: f64,
+}
+
+impl Search<'_> {
+    /// t* with the OP between `lo` and `hi`.
+    fn fastest(&self, lo: f64, hi: f64) -> Option<f64> {
+        if self.delta.abs() <= self.band_abs {
+            return Some(0.0);
+        }
+        let map = self.model.op_map();
+        let v_rest = map.apply(self.rest);
+        let q = Question {
+            plant: self.model.plant(self.rising),
+            delta: self.delta,
+            band_fraction: self.band_abs / self.delta.abs(),
+            u_lo: (map.apply(lo) - v_rest).min(0.0),
+            u_hi: (map.apply(hi) - v_rest).max(0.0),
+        };
+        match optimal::fastest(&q) {
+            Fastest::Settles { t_star_s, .. } => Some(t_star_s),
+            Fastest::Unreachable => None,
+        }
+    }
+
+    /// The largest distance the PV can be held at with the OP at `limit` (infinite for an
+    /// integrating process).
+    fn reach(&self, limit: f64) -> f64 {
+        let map = self.model.op_map();
+        match self.model.plant(self.rising).static_gain() {
+            Some(k) => (k * (map.apply(limit) - map.apply(self.rest))).abs(),
+            None => f64::INFINITY,
+        }
+    }
+
+    /// The OP limit in direction `dir` that makes t* equal `spec_s`, by bisection (t* falls as
+    /// the limit moves out); `None` when even ten spans out would not do.
+    fn required_limit(&self, dir: f64, op: OpRange, spec_s: f64) -> Option<f64> {
+        let with = |limit: f64| {
+            let (lo, hi) = if dir > 0.0 {
+                (op.min, limit)
+            } else {
+                (limit, op.max)
+            };
+            self.fastest(lo, hi).is_some_and(|t| t <= spec_s)
+        };
+        let (mut near, mut far) = (self.rest, self.rest + dir * 10.0 * op.span());
+        if !with(far) {
+            return None;
+        }
+        for _ in 0..REQUIRED_LIMIT_STEPS {
+            let mid = 0.5 * (near + far);
+            if with(mid) {
+                far = mid;
+            } else {
+                near = mid;
+            }
+        }
+        Some(far)
+    }
+}
+
+/// Bisection steps for a required OP limit: ten spans halved 24 times is a millionth of a span.
+const REQUIRED_LIMIT_STEPS: usize = 24;
 
 /// The spread of a bound over the model's plausible variants.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -170,16 +274,15 @@ fn percentile_range(v: &mut [f64]) -> [f64; 2] {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::analysis::Fopdt;
 
     fn model(gain: f64, tau: f64, theta: f64) -> Model {
-        Model {
+        let f = Fopdt {
             gain,
             time_constant_s: tau,
             dead_time_s: theta,
-            fit_r2: 1.0,
-            episodes_used: 1,
-            points_used: 1,
-        }
+        };
+        Model::first_order(f, 1.0, 1, 1)
     }
 
     fn ramp(n: usize, y0: f64, slope: f64) -> (Vec<f64>, Vec<f64>) {

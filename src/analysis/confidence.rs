@@ -204,7 +204,8 @@ pub struct Plausible {
 /// after the limit is reached (first-order step response), so the step must be at least 63 % of
 /// the largest plausible reach, and no smaller than the change being decided. It is held for the
 /// dead time plus four time constants of the slowest plausible model (within 2 % of the end
-/// value; first-order step response), and at least the spec time.
+/// value; first-order step response), and at least the spec time. A process without a finite
+/// reach (integrating) gets twice the change being decided, this product's choice.
 pub fn deciding_step(
     start: &StartState,
     op_start: f64,
@@ -213,7 +214,11 @@ pub fn deciding_step(
     p: &Plausible,
 ) -> Experiment {
     let dir = if delta >= 0.0 { 1.0 } else { -1.0 };
-    let size = (0.632 * p.reach_hi).max(delta.abs());
+    let size = if p.reach_hi.is_finite() {
+        (0.632 * p.reach_hi).max(delta.abs())
+    } else {
+        2.0 * delta.abs()
+    };
     let hold_s = (p.dead_time_hi_s + 4.0 * p.time_constant_hi_s).max(spec_s);
     let to_sp = start.pv + dir * size;
     let plan = format!(
