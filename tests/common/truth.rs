@@ -15,8 +15,9 @@
 //! A sequence's settling time is the last instant the noise-free PV is outside the band. Each
 //! sequence is simulated only until the PV provably stays inside the band for good
 //! ([`LoopSim::stays_within`]), or until it is outside the band later than the best time found so
-//! far (it cannot win); switch times are scanned on a coarse grid, then the grid is refined around
-//! the best cells down to one simulation step.
+//! far (it cannot win). The first switch time is scanned on a grid refined around the best down to
+//! one simulation step; for each, the brake length on a geometric grid (brakes are often short)
+//! refined the same way.
 
 use headroom::analysis::sim::LoopSim;
 
@@ -38,49 +39,38 @@ pub fn fastest_settling(target: &Target, two_switch: bool, horizon_s: f64) -> Op
     let h = target.start.config().step_s;
     let n1_max = search.useful_bang_steps();
     let mut best = Best::none(search.max_steps);
-    let grid = |lo: usize, hi: usize, n: usize| -> Vec<usize> {
-        (0..n)
-            .map(|i| lo + ((hi - lo) as f64 * i as f64 / (n - 1) as f64).round() as usize)
-            .collect()
+    let try_bang = |n1: usize, best: &mut Best| {
+        best.offer(search.settle(n1, 0, best.steps), n1, 0);
+        if two_switch {
+            search.best_brake(n1, n1_max.max(2), best);
+        }
     };
-    // Bang–hold: t1 on a grid of 48, refined around the best; then both switch times on a grid
-    // of 20 × 20, refined on grids of 11 × 11 around the best.
-    let (mut lo, mut hi) = (0, n1_max);
-    loop {
-        let points = grid(lo, hi, 48.min(hi - lo + 1).max(2));
-        for &n1 in &points {
-            best.offer(search.settle(n1, 0, best.steps), n1, 0);
-        }
-        let spacing = (hi - lo) / 47 + 1;
-        if spacing <= 1 {
-            break;
-        }
-        lo = best.n1.saturating_sub(spacing);
-        hi = (best.n1 + spacing).min(n1_max);
+    // The first switch time on a grid of 32, refined around the best on grids of 12 down to one
+    // step.
+    for &n1 in &grid(0, n1_max, 32) {
+        try_bang(n1, &mut best);
     }
-    if two_switch {
-        let (mut lo1, mut hi1, mut lo2, mut hi2) = (0, n1_max, 1, n1_max.max(2));
-        for round in 0..5 {
-            let n = if round == 0 { 20 } else { 11 };
-            let (g1, g2) = (grid(lo1, hi1, n), grid(lo2, hi2, n));
-            for &n1 in &g1 {
-                for &n2 in &g2 {
-                    best.offer(search.settle(n1, n2, best.steps), n1, n2);
-                }
-            }
-            if best.n2 == 0 {
-                break;
-            }
-            let s1 = (hi1 - lo1) / (n - 1) + 1;
-            let s2 = (hi2 - lo2) / (n - 1) + 1;
-            if s1 <= 1 && s2 <= 1 {
-                break;
-            }
-            (lo1, hi1) = (best.n1.saturating_sub(s1), (best.n1 + s1).min(n1_max));
-            (lo2, hi2) = (best.n2.saturating_sub(s2).max(1), best.n2 + s2);
+    let mut spacing = n1_max / 31 + 1;
+    while spacing > 1 {
+        let (lo, hi) = (
+            best.n1.saturating_sub(spacing),
+            (best.n1 + spacing).min(n1_max),
+        );
+        for &n1 in &grid(lo, hi, 12) {
+            try_bang(n1, &mut best);
         }
+        spacing = (hi - lo) / 11 + 1;
     }
     best.found.then_some(best.steps as f64 * h)
+}
+
+/// `n` points from `lo` to `hi` (inclusive), evenly spread and rounded to whole steps.
+fn grid(lo: usize, hi: usize, n: usize) -> Vec<usize> {
+    let mut out: Vec<usize> = (0..n)
+        .map(|i| lo + ((hi - lo) as f64 * i as f64 / (n - 1) as f64).round() as usize)
+        .collect();
+    out.dedup();
+    out
 }
 
 /// The best sequence so far: its settling time in steps and its switch steps.
@@ -125,6 +115,8 @@ struct Search<'a> {
     /// +1 when the PV must rise, −1 when it must fall.
     dir: f64,
     max_steps: usize,
+    /// The dead time in simulation steps.
+    delay_steps: usize,
 }
 
 impl<'a> Search<'a> {
@@ -151,6 +143,7 @@ impl<'a> Search<'a> {
             hold,
             dir,
             max_steps: (horizon_s / cfg.step_s).round() as usize,
+            delay_steps: (cfg.dynamics.dead_time_s() / cfg.step_s).round() as usize,
         })
     }
 
@@ -170,6 +163,98 @@ impl<'a> Search<'a> {
             sim.advance_open_loop(self.far);
         }
         self.max_steps
+    }
+
+    /// Offers `best` the bang of `n1` steps followed by the best brake: brake lengths on a
+    /// geometric grid from one step to `top` (brakes are often short), then refined around the
+    /// best of them down to one step. Candidates up to a quarter slower than the best so far
+    /// are still timed, so that a basin the grid only grazes gets refined.
+    fn best_brake(&self, n1: usize, top: usize, best: &mut Best) {
+        let slack = |b: &Best| b.steps + b.steps / 4;
+        let mut local = Best::none(self.max_steps);
+        let mut points: Vec<usize> = (0..12)
+            .map(|i| (top as f64).powf(i as f64 / 11.0).round() as usize)
+            .collect();
+        points.dedup();
+        for (i, &n2) in points.iter().enumerate() {
+            let settled = self.settle(n1, n2, slack(best));
+            best.offer(settled, n1, n2);
+            local.offer(settled, n1, i);
+        }
+        // The fastest brake often lands the PV just inside the band's far edge, a valley the grid
+        // can step over: find by bisection the shortest brake after which the PV never passes
+        // the far edge (monotone: braking longer only holds the PV back), and time the brakes
+        // around it.
+        if self.passes_far_edge(n1, 0) && !self.passes_far_edge(n1, top) {
+            let (mut yes, mut no) = (0, top);
+            while no - yes > 1 {
+                let mid = (yes + no) / 2;
+                if self.passes_far_edge(n1, mid) {
+                    yes = mid;
+                } else {
+                    no = mid;
+                }
+            }
+            for n2 in yes.max(1)..=no + 3 {
+                let settled = self.settle(n1, n2, slack(best));
+                best.offer(settled, n1, n2);
+            }
+        }
+        if !local.found {
+            return;
+        }
+        let i = local.n2;
+        let (mut lo, mut hi) = (
+            points[i.saturating_sub(1)],
+            points[(i + 1).min(points.len() - 1)],
+        );
+        loop {
+            let mut round = Best::none(self.max_steps);
+            for &n2 in &grid(lo, hi, 10) {
+                let settled = self.settle(n1, n2, slack(best));
+                best.offer(settled, n1, n2);
+                round.offer(settled, n1, n2);
+            }
+            let spacing = (hi - lo) / 9 + 1;
+            if spacing <= 1 || !round.found {
+                break;
+            }
+            (lo, hi) = (round.n2.saturating_sub(spacing).max(1), round.n2 + spacing);
+        }
+    }
+
+    /// Whether the PV, after `n1` steps at the far limit, `n2` at the near one and then the hold,
+    /// ever passes the band's far edge. Once the dead time has passed under the hold, a PV
+    /// short of the band and moving away from it never comes back past the far edge (each
+    /// family approaches its rest monotonically, a second lag never beyond its first).
+    fn passes_far_edge(&self, n1: usize, n2: usize) -> bool {
+        let mut sim = self.start.clone();
+        let far_edge = if self.dir > 0.0 { self.hi } else { self.lo };
+        let near_edge = if self.dir > 0.0 { self.lo } else { self.hi };
+        let mut prev = sim.pv_true();
+        for k in 0..self.max_steps {
+            let pv = sim.pv_true();
+            if self.dir * (pv - far_edge) > 0.0 {
+                return true;
+            }
+            let flushed = k > n1 + n2 + self.delay_steps;
+            if flushed
+                && (sim.stays_within(self.lo, self.hi)
+                    || (self.dir * (pv - near_edge) < 0.0 && self.dir * (pv - prev) <= 0.0))
+            {
+                return false;
+            }
+            prev = pv;
+            let u = if k < n1 {
+                self.far
+            } else if k < n1 + n2 {
+                self.near
+            } else {
+                self.hold
+            };
+            sim.advance_open_loop(u);
+        }
+        false
     }
 
     /// The settling time in steps of `n1` steps at the far limit, `n2` at the near one, then the

@@ -10,7 +10,7 @@ use headroom::analysis::sim::{
 
 pub(super) const BAND: f64 = 0.02;
 pub(super) const MAX_OVERSHOOT_PCT: f64 = 25.0;
-pub(super) const LOOPS_PER_FAMILY: usize = 20;
+pub(super) const LOOPS_PER_FAMILY: usize = 16;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
 pub(super) enum Family {
@@ -292,7 +292,6 @@ pub(super) fn setpoint_levels(rng: &mut Rng, plant: &PlantSimConfig, spec_s: f64
     out
 }
 
-
 /// The record the analysis sees for `variant`, and how far after the true change time the
 /// analysis may place the change.
 pub(super) fn degraded(
@@ -338,7 +337,7 @@ pub(super) fn degraded(
                     (from, (0.6 * spec_rows).round().max(5.0) as usize)
                 })
                 .collect();
-            let signal = if k.is_multiple_of(2) {
+            let signal = if (k / 2).is_multiple_of(2) {
                 Signal::Pv
             } else {
                 Signal::Op
@@ -359,4 +358,3 @@ pub(super) fn degraded(
         }
     }
 }
-

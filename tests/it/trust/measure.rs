@@ -56,7 +56,14 @@ pub(super) fn study(k: usize, l: &TrustLoop) -> LoopOutcome {
         seen: Vec::new(),
         contradictions: Vec::new(),
     };
-    for variant in VARIANTS {
+    // Each loop is analysed clean and in half the degraded variants (alternating with the loop's
+    // parity), which keeps the run short and every variant on half the loops.
+    let variants = VARIANTS
+        .iter()
+        .enumerate()
+        .filter(|&(i, _)| i == 0 || i % 2 == k % 2)
+        .map(|(_, v)| *v);
+    for variant in variants {
         let (rec, tol) = degraded(l, &noisy, variant, k);
         let report = analyze_loop(&series(&rec, 0.0), &setup);
         for e in &report.episodes {
@@ -228,4 +235,3 @@ pub(super) fn count(f: &mut Figures, s: &Seen) {
         }
     }
 }
-

@@ -174,10 +174,9 @@ pub(super) fn judge(
     }
 }
 
-
 /// A loop of `dynamics` at rest at `pv0` with the OP free in `[op_min, op_max]` (the controller
 /// is never used: the truth search drives the OP itself).
-fn at_rest(dynamics: Dynamics, pv0: f64, op_min: f64, op_max: f64) -> LoopSim {
+fn at_rest(dynamics: Dynamics, pv0: f64, op_min: f64, op_max: f64, step_s: f64) -> LoopSim {
     LoopSim::of_plant(PlantSimConfig {
         dynamics,
         controller: PiController {
@@ -186,7 +185,7 @@ fn at_rest(dynamics: Dynamics, pv0: f64, op_min: f64, op_max: f64) -> LoopSim {
             op_min,
             op_max,
         },
-        step_s: 0.01,
+        step_s,
         noise_sd: 0.0,
         seed: 1,
         initial_sp: pv0,
@@ -205,7 +204,7 @@ fn the_brute_force_truth_matches_the_first_order_closed_form() {
         dead_time_s: 2.0,
         bias: 0.0,
     };
-    let start = at_rest(Dynamics::Lags(p), 1.0, 0.0, 1.0);
+    let start = at_rest(Dynamics::Lags(p), 1.0, 0.0, 1.0, 0.01);
     let target = Target {
         start: &start,
         sp: 1.6,
@@ -232,7 +231,7 @@ fn the_brute_force_truth_matches_the_ramp_of_an_integrating_level() {
         dead_time_s: 4.0,
         balance_op: 40.0,
     };
-    let start = at_rest(Dynamics::Integrating(p), 30.0, 0.0, 100.0);
+    let start = at_rest(Dynamics::Integrating(p), 30.0, 0.0, 100.0, 0.01);
     let target = Target {
         start: &start,
         sp: 40.0,
@@ -289,13 +288,13 @@ fn the_brute_force_truth_agrees_with_the_analysis_search_on_two_state_plants() {
     ];
     for (dynamics, plant, pv0, delta) in cases {
         let u0 = dynamics.holding_op(pv0).unwrap();
-        let start = at_rest(dynamics, pv0, 0.0, 1.0);
+        let start = at_rest(dynamics, pv0, 0.0, 1.0, 0.05);
         let target = Target {
             start: &start,
             sp: pv0 + delta,
             half_band: BAND * delta.abs(),
         };
-        let ours = fastest_settling(&target, true, 2000.0).unwrap();
+        let ours = fastest_settling(&target, true, 400.0).unwrap();
         let Fastest::Settles { t_star_s, .. } = optimal::fastest(&Question {
             plant,
             delta,
@@ -306,9 +305,8 @@ fn the_brute_force_truth_agrees_with_the_analysis_search_on_two_state_plants() {
             panic!("{dynamics:?}: the analysis calls {delta} unreachable");
         };
         assert!(
-            (ours - t_star_s).abs() <= 0.01 * t_star_s + 0.05,
+            (ours - t_star_s).abs() <= 0.01 * t_star_s + 0.1,
             "{dynamics:?} Δ {delta}: brute force {ours} vs search {t_star_s}"
         );
     }
 }
-
