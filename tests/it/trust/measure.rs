@@ -136,6 +136,8 @@ pub(super) struct Figures {
     pub(super) verdicts_exact_first_order: Share,
     pub(super) false_flags_clean: Share,
     pub(super) by_truth: std::collections::BTreeMap<&'static str, usize>,
+    /// The t* figure family by family.
+    pub(super) t_star_by_family: std::collections::BTreeMap<Family, Share>,
     pub(super) misses: Vec<String>,
 }
 
@@ -173,6 +175,7 @@ pub(super) fn count(f: &mut Figures, s: &Seen) {
         let got = s.got.as_ref().and_then(|e| e.min_settling_time_s);
         let ok = got.is_some_and(|g| (g - truth).abs() <= 0.15 * truth);
         f.t_star_ok.add(ok);
+        f.t_star_by_family.entry(s.family).or_default().add(ok);
         if !ok {
             f.misses
                 .push(format!("{label}: t* {got:?} vs true {truth:.1}"));

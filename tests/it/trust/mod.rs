@@ -127,6 +127,9 @@ fn print_table(loops: usize, f: &Figures) {
     for (name, value, target) in rows {
         eprintln!("{name:<66} {value:>22}  {target}");
     }
+    for (family, share) in &f.t_star_by_family {
+        eprintln!("  t* within 15 %, {family:?}: {}", share.show());
+    }
     for m in f.misses.iter().take(60) {
         eprintln!("  {m}");
     }

@@ -5,6 +5,7 @@ use crate::common::truth::{Target, fastest_settling};
 use headroom::analysis::Verdict;
 use headroom::analysis::sim::{
     Dynamics, IntegratingProcess, LoopSim, PiController, PlantSimConfig, Process, SimSample,
+    TwoDirectionProcess,
 };
 
 /// One setpoint change of the noise-free run and what is true of it.
@@ -308,5 +309,30 @@ fn the_brute_force_truth_agrees_with_the_analysis_search_on_two_state_plants() {
             (ours - t_star_s).abs() <= 0.01 * t_star_s + 0.1,
             "{dynamics:?} Δ {delta}: brute force {ours} vs search {t_star_s}"
         );
+    }
+}
+
+#[test]
+fn the_brute_force_truth_of_a_two_direction_plant_uses_each_direction_s_time_constant() {
+    // Each direction is first order, so the closed form of DESIGN.md holds with that direction's
+    // τ: K = 0.5, θ = 10 s, at rest at 40 (OP 40 of 0–100). Up 10: R = 30,
+    // t* = 10 + 100·ln(30/20.2) = 49.55 s; down 10: R = 20, t* = 10 + 400·ln(20/10.2) = 279.3 s.
+    let p = TwoDirectionProcess {
+        gain: 0.5,
+        rise_time_constant_s: 100.0,
+        fall_time_constant_s: 400.0,
+        dead_time_s: 10.0,
+        bias: 20.0,
+    };
+    let start = at_rest(Dynamics::TwoDirection(p), 40.0, 0.0, 100.0, 0.05);
+    for (delta, reach, tau) in [(10.0, 30.0, 100.0), (-10.0, 20.0, 400.0)] {
+        let target = Target {
+            start: &start,
+            sp: 40.0 + delta,
+            half_band: BAND * 10.0,
+        };
+        let want = 10.0 + tau * (reach / (reach - 9.8f64)).ln();
+        let got = fastest_settling(&target, false, 2000.0).unwrap();
+        assert!((got - want).abs() < 0.1, "Δ {delta}: {got} vs {want}");
     }
 }
