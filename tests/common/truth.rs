@@ -223,6 +223,18 @@ impl<'a> Search<'a> {
         }
     }
 
+    /// The OP at step `k` of the sequence: `n1` steps at the far limit, `n2` at the near one,
+    /// then the hold.
+    fn input(&self, k: usize, n1: usize, n2: usize) -> f64 {
+        if k < n1 {
+            self.far
+        } else if k < n1 + n2 {
+            self.near
+        } else {
+            self.hold
+        }
+    }
+
     /// Whether the PV, after `n1` steps at the far limit, `n2` at the near one and then the hold,
     /// ever passes the band's far edge. Once the dead time has passed under the hold, a PV
     /// short of the band and moving away from it never comes back past the far edge (each
@@ -245,14 +257,7 @@ impl<'a> Search<'a> {
                 return false;
             }
             prev = pv;
-            let u = if k < n1 {
-                self.far
-            } else if k < n1 + n2 {
-                self.near
-            } else {
-                self.hold
-            };
-            sim.advance_open_loop(u);
+            sim.advance_open_loop(self.input(k, n1, n2));
         }
         false
     }
@@ -272,14 +277,7 @@ impl<'a> Search<'a> {
             if k > n1 + n2 && sim.stays_within(self.lo, self.hi) {
                 return Some(last_out);
             }
-            let u = if k < n1 {
-                self.far
-            } else if k < n1 + n2 {
-                self.near
-            } else {
-                self.hold
-            };
-            sim.advance_open_loop(u);
+            sim.advance_open_loop(self.input(k, n1, n2));
         }
         None
     }

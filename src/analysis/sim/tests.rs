@@ -1,15 +1,18 @@
 use super::*;
 
+/// Kc = 0 with a huge τI and no limits to speak of: the OP stays where it is put.
+const FREE: PiController = PiController {
+    gain: 0.0,
+    integral_time_s: 1e9,
+    op_min: -1e9,
+    op_max: 1e9,
+};
+
 fn open_loop(process: Process, step_s: f64) -> LoopSim {
     // Kc = 0 with a huge τI leaves the OP where it starts: an open-loop test.
     LoopSim::new(LoopSimConfig {
         process,
-        controller: PiController {
-            gain: 0.0,
-            integral_time_s: 1e9,
-            op_min: -1e9,
-            op_max: 1e9,
-        },
+        controller: FREE,
         step_s,
         noise_sd: 0.0,
         seed: 1,
@@ -120,12 +123,7 @@ fn noise_has_the_requested_spread() {
 fn open_plant(dynamics: Dynamics, pv0: f64, op1: f64, step_s: f64) -> LoopSim {
     let mut sim = LoopSim::of_plant(PlantSimConfig {
         dynamics,
-        controller: PiController {
-            gain: 0.0,
-            integral_time_s: 1e9,
-            op_min: -1e9,
-            op_max: 1e9,
-        },
+        controller: FREE,
         step_s,
         noise_sd: 0.0,
         seed: 1,
