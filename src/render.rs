@@ -49,11 +49,9 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
     match (&report.model, &report.model_refusal) {
         (Some(m), _) => writeln!(
             out,
-            "Process model (first order + dead time): gain {:.4} PV/OP, time constant {:.1} s, \
-             dead time {:.1} s; explains {:.2} % of PV variation ({} changes)",
-            m.gain,
-            m.time_constant_s,
-            m.dead_time_s,
+            "Process model ({}): {}; explains {:.2} % of PV variation ({} changes)",
+            m.kind().label(),
+            m.describe(),
             fraction_to_pct(m.fit_r2),
             m.episodes_used
         )?,

@@ -18,29 +18,12 @@
 use super::bound::{Spread, StartState};
 use super::quality::{Effect, Finding, Issue};
 use super::verdict::Verdict;
-use serde::{Deserialize, Serialize};
+
+pub use super::trust::{Confidence, Experiment};
 
 /// An actuator verdict whose OP sat at its limit for less than this share of the change rests on
 /// an untested limit.
 pub const THIN_SATURATION: f64 = 0.10;
-
-/// How sure a conclusive verdict is.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Confidence {
-    Clear,
-    Marginal,
-}
-
-impl Confidence {
-    /// The confidence as people read it (and as JSON spells it).
-    pub fn label(self) -> &'static str {
-        match self {
-            Confidence::Clear => "clear",
-            Confidence::Marginal => "marginal",
-        }
-    }
-}
 
 /// What the confidence of one verdict is read from.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -170,21 +153,6 @@ pub fn doubts(findings: &[Finding], stake: &Stake) -> Vec<String> {
         })
         .map(|f| f.describe(""))
         .collect()
-}
-
-/// The setpoint step that would decide a marginal verdict.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct Experiment {
-    /// Where the loop should start: the PV and the OP at rest.
-    pub from_pv: f64,
-    pub from_op: f64,
-    /// The setpoint step (PV units, signed) and the setpoint it goes to.
-    pub step: f64,
-    pub to_sp: f64,
-    /// How long to hold the new setpoint before judging (s).
-    pub hold_s: f64,
-    /// The test in one paragraph, for the engineer who plans it.
-    pub plan: String,
 }
 
 /// What the experiment is sized from: the spread of the reach and the slowest plausible dynamics.

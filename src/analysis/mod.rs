@@ -31,6 +31,7 @@ mod series;
 pub mod setup;
 pub mod sim;
 mod stats;
+pub mod trust;
 pub mod tuning;
 pub mod verdict;
 

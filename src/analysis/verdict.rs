@@ -17,10 +17,10 @@
 //!
 //! [`explain`] words the decision for people; it never changes it.
 
-use super::confidence::{Confidence, Experiment};
 use super::quality::Finding;
 use super::segment::{ChangeShape, WindowEnd};
 use super::setup::Spec;
+use super::trust::{Confidence, Experiment};
 use serde::{Deserialize, Serialize};
 
 /// The outcome of one setpoint change.

@@ -1,6 +1,7 @@
 //! Episodes (scored setpoint changes), model history, and the per-loop overview.
 
 use super::{Result, Store};
+use crate::analysis::identify::Family;
 use crate::analysis::{EpisodeResult, Model, Verdict};
 use crate::sample::Signal;
 use serde::Serialize;
@@ -42,12 +43,14 @@ pub struct ModelRow {
     pub fit_r2: f64,
     pub episodes_used: u64,
     pub points_used: u64,
+    /// The family and its own parameters (first order for models stored before families).
+    pub family: Family,
 }
 
 impl ModelRow {
     /// The model as the analysis core uses it (to resume a loop after a restart).
     pub fn model(&self) -> Model {
-        Model::first_order(
+        let first_order = Model::first_order(
             crate::analysis::Fopdt {
                 gain: self.gain,
                 time_constant_s: self.time_constant_s,
@@ -56,7 +59,11 @@ impl ModelRow {
             self.fit_r2,
             self.episodes_used as usize,
             self.points_used as usize,
-        )
+        );
+        Model {
+            family: self.family,
+            ..first_order
+        }
     }
 }
 
@@ -75,8 +82,8 @@ pub struct LoopRow {
 const EPISODE_COLUMNS: &str = "loop_tag, start_ms, end_ms, final, verdict, settling_time_s, \
      overshoot_pct, min_settling_time_s, updated_ms, detail";
 
-const MODEL_COLUMNS: &str = "id, loop_tag, identified_ms, gain, time_constant_s, dead_time_s, \
-     fit_r2, episodes_used, points_used";
+pub(super) const MODEL_COLUMNS: &str = "id, loop_tag, identified_ms, gain, time_constant_s, \
+     dead_time_s, fit_r2, episodes_used, points_used, family";
 
 impl Store {
     /// Writes an episode, replacing the stored row for the same loop and start time, so a
@@ -155,8 +162,8 @@ impl Store {
     ) -> Result<i64> {
         let done = sqlx::query(
             "INSERT INTO models (loop_tag, identified_ms, gain, time_constant_s, dead_time_s,
-                                 fit_r2, episodes_used, points_used)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+                                 fit_r2, episodes_used, points_used, family)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
         )
         .bind(loop_tag)
         .bind(identified_ms)
@@ -166,6 +173,10 @@ impl Store {
         .bind(model.fit_r2)
         .bind(i64::try_from(model.episodes_used).unwrap_or(i64::MAX))
         .bind(i64::try_from(model.points_used).unwrap_or(i64::MAX))
+        .bind(
+            serde_json::to_string(&model.family)
+                .map_err(|e| self.bad_value("storing a model", e))?,
+        )
         .execute(&self.pool)
         .await
         .map_err(self.fail("storing a model"))?;
@@ -346,6 +357,11 @@ impl Store {
             fit_r2: r.try_get("fit_r2").map_err(get)?,
             episodes_used: count("episodes_used")?,
             points_used: count("points_used")?,
+            family: match r.try_get::<Option<String>, _>("family").map_err(get)? {
+                Some(json) => serde_json::from_str(&json)
+                    .map_err(|e| self.bad_value(doing, format!("model family: {e}")))?,
+                None => Family::FirstOrder,
+            },
         })
     }
 }
@@ -467,6 +483,28 @@ mod tests {
         assert_eq!(
             starts(store.episodes(None, Some(3_000)).await.unwrap()),
             [("FIC-205".into(), 3_000), ("TIC-101".into(), 5_000)]
+        );
+    }
+
+    #[tokio::test]
+    async fn a_models_family_and_its_parameters_come_back_as_stored() {
+        let (_dir, store) = fresh_store().await;
+        let m = Model {
+            family: Family::SecondOrder {
+                first_time_constant_s: 50.0,
+                second_time_constant_s: 20.0,
+                process_dead_time_s: 3.0,
+            },
+            ..model(1.5, 0.97)
+        };
+        store.insert_model("TIC-120", &m, 10_000).await.unwrap();
+        let back = store.model_history("TIC-120").await.unwrap();
+        assert_eq!(back[0].family, m.family);
+        assert_eq!(back[0].model(), m);
+        // The report's model history reads the same columns.
+        assert_eq!(
+            store.models_before(20_000).await.unwrap()[0].family,
+            m.family
         );
     }
 

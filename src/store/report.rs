@@ -1,6 +1,7 @@
 //! What the weekly loop-health summary reads (episodes and models of a period, how well each
 //! signal was covered by data) and the summaries kept after they are generated.
 
+use super::episodes::MODEL_COLUMNS;
 use super::{EpisodeRow, ModelRow, Result, Store};
 use crate::sample::Signal;
 use serde::Serialize;
@@ -56,15 +57,15 @@ impl Store {
     /// Every model identified from data before `to_ms`, by loop and then oldest first.
     pub async fn models_before(&self, to_ms: i64) -> Result<Vec<ModelRow>> {
         const DOING: &str = "reading model history";
-        let rows = sqlx::query(
-            "SELECT id, loop_tag, identified_ms, gain, time_constant_s, dead_time_s, fit_r2,
-                    episodes_used, points_used
-             FROM models WHERE identified_ms < ?1 ORDER BY loop_tag, identified_ms, id",
-        )
-        .bind(to_ms)
-        .fetch_all(&self.pool)
-        .await
-        .map_err(self.fail(DOING))?;
+        let sql = format!(
+            "SELECT {MODEL_COLUMNS} FROM models WHERE identified_ms < ?1
+             ORDER BY loop_tag, identified_ms, id"
+        );
+        let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+            .bind(to_ms)
+            .fetch_all(&self.pool)
+            .await
+            .map_err(self.fail(DOING))?;
         rows.iter().map(|r| self.model_row(r, DOING)).collect()
     }
 

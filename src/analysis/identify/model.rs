@@ -1,7 +1,7 @@
 //! What identification returns: a [`Model`] of one [`Family`], with the first-order equivalent
 //! the rest of the product reads, and the held-out scores of the families that were tried.
 
-use serde::{Serialize, Serializer};
+use serde::{Deserialize, Serialize, Serializer};
 
 use super::super::optimal::Plant;
 
@@ -51,7 +51,7 @@ pub struct Model {
 pub const INTEGRATING_HORIZON: f64 = 100.0;
 
 /// A model family with its own parameters (units in the names).
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "family", rename_all = "snake_case")]
 pub enum Family {
     /// K·e^(−θs)/(τs + 1): the first-order fields of [`Model`] are the model.
@@ -109,6 +109,17 @@ impl FamilyKind {
         FamilyKind::OpDependentGain,
         FamilyKind::TwoDirection,
     ];
+
+    /// The family as people read it.
+    pub fn label(self) -> &'static str {
+        match self {
+            FamilyKind::FirstOrder => "first order + dead time",
+            FamilyKind::Integrating => "integrating + dead time",
+            FamilyKind::TwoDirection => "first order + dead time, rising and falling apart",
+            FamilyKind::SecondOrder => "second order + dead time",
+            FamilyKind::OpDependentGain => "first order + dead time, gain varying with OP",
+        }
+    }
 
     pub fn as_str(self) -> &'static str {
         match self {
@@ -192,6 +203,52 @@ impl Model {
             Family::TwoDirection { .. } => FamilyKind::TwoDirection,
             Family::SecondOrder { .. } => FamilyKind::SecondOrder,
             Family::OpDependentGain { .. } => FamilyKind::OpDependentGain,
+        }
+    }
+
+    /// The model's own parameters in words, with units (`PV/OP` for gains).
+    pub fn describe(&self) -> String {
+        let (k, tau, theta) = (self.gain, self.time_constant_s, self.dead_time_s);
+        match self.family {
+            Family::FirstOrder => {
+                format!("gain {k:.4} PV/OP, time constant {tau:.1} s, dead time {theta:.1} s")
+            }
+            Family::Integrating {
+                gain_per_s,
+                lag_s,
+                process_dead_time_s,
+            } => format!(
+                "rate {gain_per_s:.3e} PV/s per OP unit, dead time {process_dead_time_s:.1} s{}",
+                lag_s.map_or(String::new(), |l| format!(", lag {l:.1} s"))
+            ),
+            Family::TwoDirection {
+                falling_gain,
+                falling_time_constant_s,
+                falling_dead_time_s,
+                ..
+            } => format!(
+                "rising: gain {k:.4} PV/OP, time constant {tau:.1} s, dead time {theta:.1} s; \
+                 falling: gain {falling_gain:.4} PV/OP, time constant \
+                 {falling_time_constant_s:.1} s, dead time {falling_dead_time_s:.1} s"
+            ),
+            Family::SecondOrder {
+                first_time_constant_s,
+                second_time_constant_s,
+                process_dead_time_s,
+            } => format!(
+                "gain {k:.4} PV/OP, time constants {first_time_constant_s:.1} s and \
+                 {second_time_constant_s:.1} s, dead time {process_dead_time_s:.1} s"
+            ),
+            Family::OpDependentGain {
+                gain_at_op_min,
+                gain_at_op_max,
+                op_min,
+                op_max,
+                ..
+            } => format!(
+                "gain {gain_at_op_min:.4} PV/OP at OP {op_min} rising to {gain_at_op_max:.4} at \
+                 OP {op_max}, time constant {tau:.1} s, dead time {theta:.1} s"
+            ),
         }
     }
 
