@@ -7,13 +7,18 @@
 //! - `clients`: a QoS 1 publisher and a spy on what the broker delivers;
 //! - `daemon`: `headroom run` as a child process with its workspace, config and store;
 //! - `plant`: simulated loop data as a controller gateway publishes it;
-//! - `sim`: simulated runs as analysis input and as stored samples.
+//! - `sim`: simulated runs as analysis input and as stored samples;
+//! - `degrade`: a recorded run as historians degrade it (coarse, compressed, quantised, frozen,
+//!   clipped);
+//! - `truth`: the fastest settling a simulated plant allows, by brute force on the plant.
 
 pub mod broker;
 pub mod clients;
 pub mod daemon;
+pub mod degrade;
 pub mod plant;
 pub mod sim;
+pub mod truth;
 
 use std::net::{Ipv4Addr, TcpListener};
 use std::path::PathBuf;

@@ -14,6 +14,7 @@ mod example_data;
 mod mode_rule;
 mod reference_python;
 mod scenarios;
+mod trust;
 
 // The daemon against a real Mosquitto (harness in `common`), one module per behaviour.
 mod daemon_broker_restart;

@@ -1,11 +1,18 @@
-//! A small, deterministic loop simulator: a process of one or two first-order lags plus dead time,
-//! under a PI controller whose output saturates at the actuator limits.
+//! A small, deterministic loop simulator: a process of one of the design's model families (one or
+//! two first-order lags, integrating, direction-dependent, through an equal-percentage valve; each
+//! plus dead time, see [`Dynamics`]) under a PI controller whose output saturates at the actuator
+//! limits.
 //!
 //! The analysis uses it to predict how a suggested PI tuning would respond on the identified
 //! model; tests use it to build corpora with a known truth; the demo uses it as the plant. It is
 //! pure (seeded noise, no clock) so the same inputs always give the same samples.
 
 use super::Series;
+use std::collections::VecDeque;
+
+mod dynamics;
+
+pub use dynamics::{Dynamics, IntegratingProcess, TwoDirectionProcess, ValveProcess};
 
 /// A process: `PV = bias + x`, where `x` follows `K·u(t − θ)` through one or two first-order lags.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -95,14 +102,45 @@ pub struct LoopSimConfig {
     pub initial_sp: f64,
 }
 
+/// Everything needed to run one simulated loop of any model family.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PlantSimConfig {
+    pub dynamics: Dynamics,
+    pub controller: PiController,
+    /// Internal integration and control step in seconds.
+    pub step_s: f64,
+    /// Standard deviation of white measurement noise added to the PV the controller sees.
+    pub noise_sd: f64,
+    pub seed: u64,
+    /// Setpoint at which the loop starts, at steady state.
+    pub initial_sp: f64,
+}
+
+impl From<LoopSimConfig> for PlantSimConfig {
+    fn from(c: LoopSimConfig) -> PlantSimConfig {
+        PlantSimConfig {
+            dynamics: Dynamics::Lags(c.process),
+            controller: c.controller,
+            step_s: c.step_s,
+            noise_sd: c.noise_sd,
+            seed: c.seed,
+            initial_sp: c.initial_sp,
+        }
+    }
+}
+
 /// A running simulated loop. Each call to [`LoopSim::advance`] moves time on by one step.
 #[derive(Debug, Clone)]
 pub struct LoopSim {
-    cfg: LoopSimConfig,
+    cfg: PlantSimConfig,
     x1: f64,
     x2: f64,
     /// Past OP values for the dead time, oldest first; length = dead-time steps.
-    delay_line: std::collections::VecDeque<f64>,
+    delay_line: VecDeque<f64>,
+    /// How many OP values in a row, up to the latest, equal the latest.
+    op_held_steps: usize,
+    /// The latest OP value put into the dead time.
+    last_op: f64,
     op: f64,
     prev_error: f64,
     pv_measured: f64,
@@ -128,18 +166,29 @@ impl LoopSim {
     /// Starts the loop at steady state at `initial_sp` (or at the nearest steady state the
     /// actuator range allows).
     pub fn new(cfg: LoopSimConfig) -> LoopSim {
-        let p = cfg.process;
+        LoopSim::of_plant(cfg.into())
+    }
+
+    /// Starts a loop of any model family at steady state at `initial_sp` (or at the nearest
+    /// steady state the actuator range allows; an integrating process rests at its balance OP).
+    pub fn of_plant(cfg: PlantSimConfig) -> LoopSim {
+        let d = cfg.dynamics;
         let c = cfg.controller;
-        let op = ((cfg.initial_sp - p.bias) / p.gain).clamp(c.op_min, c.op_max);
-        let x = p.gain * op;
-        let delay_steps = (p.dead_time_s / cfg.step_s).round() as usize;
+        let op = d
+            .holding_op(cfg.initial_sp)
+            .unwrap_or(c.op_min)
+            .clamp(c.op_min, c.op_max);
+        let (x1, x2) = d.rest_state(op, cfg.initial_sp);
+        let delay_steps = (d.dead_time_s() / cfg.step_s).round() as usize;
         let mut rng = Rng::new(cfg.seed);
-        let pv_measured = p.bias + x + cfg.noise_sd * rng.normal();
+        let pv_measured = d.output(x1, x2) + cfg.noise_sd * rng.normal();
         LoopSim {
             cfg,
-            x1: x,
-            x2: x,
+            x1,
+            x2,
             delay_line: std::iter::repeat_n(op, delay_steps).collect(),
+            op_held_steps: delay_steps,
+            last_op: op,
             op,
             prev_error: cfg.initial_sp - pv_measured,
             pv_measured,
@@ -166,13 +215,12 @@ impl LoopSim {
 
     /// The noise-free PV at the current time.
     pub fn pv_true(&self) -> f64 {
-        let p = self.cfg.process;
-        let x = if p.second_time_constant_s > 0.0 {
-            self.x2
-        } else {
-            self.x1
-        };
-        p.bias + x + self.disturbance
+        self.cfg.dynamics.output(self.x1, self.x2) + self.disturbance
+    }
+
+    /// The loop's configuration.
+    pub fn config(&self) -> &PlantSimConfig {
+        &self.cfg
     }
 
     /// Advances one step with the given setpoint: the controller acts on the current measurement,
@@ -186,32 +234,44 @@ impl LoopSim {
             self.op = (self.op + du).clamp(c.op_min, c.op_max);
             self.prev_error = e;
         }
+        self.step_plant();
+    }
+
+    /// Advances one step in manual: the OP is set to `op` (clamped to the actuator range) and the
+    /// controller does nothing. For open-loop experiments on the plant, such as searching for the
+    /// fastest input sequence from the loop's current state.
+    pub fn advance_open_loop(&mut self, op: f64) {
+        let c = self.cfg.controller;
+        self.op = op.clamp(c.op_min, c.op_max);
+        self.step_plant();
+    }
+
+    /// Whether the noise-free PV stays inside `[lo, hi]` for good if the OP stays where it is:
+    /// `false` while OP values other than the current one are still in the dead time, or while a
+    /// disturbance or a frozen sensor is in play. Exact for every family (see
+    /// [`Dynamics`]'s update), so a search can stop simulating as soon as it holds.
+    pub fn stays_within(&self, lo: f64, hi: f64) -> bool {
+        self.op_held_steps >= self.delay_line.len()
+            && self.disturbance == 0.0
+            && self
+                .cfg
+                .dynamics
+                .stays_within(self.x1, self.x2, self.op, lo, hi)
+    }
+
+    /// The OP goes into the dead time, the process integrates exactly over the step (zero-order
+    /// hold on the delayed OP), and the PV is measured.
+    fn step_plant(&mut self) {
+        let h = self.cfg.step_s;
+        self.op_held_steps = if self.op == self.last_op {
+            self.op_held_steps + 1
+        } else {
+            1
+        };
+        self.last_op = self.op;
         self.delay_line.push_back(self.op);
         let u = self.delay_line.pop_front().unwrap_or(self.op);
-
-        let p = self.cfg.process;
-        let a1 = (-h / p.time_constant_s).exp();
-        let target = p.gain * u;
-        if p.second_time_constant_s > 0.0 {
-            // Exact ZOH update of two lags in series (distinct time constants assumed; equal ones are
-            // nudged apart by a part in a million, far below any effect on the response).
-            let t1 = p.time_constant_s;
-            let mut t2 = p.second_time_constant_s;
-            if ((t1 - t2) / t1).abs() < 1e-6 {
-                t2 *= 1.000_001;
-            }
-            let a2 = (-h / t2).exp();
-            let d1 = self.x1 - target;
-            let d2 = self.x2 - target;
-            // x2 driven by x1: closed form of the cascade over one step.
-            let new_d1 = d1 * a1;
-            let new_d2 = d2 * a2 + d1 * t1 / (t1 - t2) * (a1 - a2);
-            self.x1 = target + new_d1;
-            self.x2 = target + new_d2;
-        } else {
-            self.x1 = target + (self.x1 - target) * a1;
-            self.x2 = self.x1;
-        }
+        (self.x1, self.x2) = self.cfg.dynamics.step(self.x1, self.x2, u, h);
         self.steps += 1;
         if self.sensor_ok {
             self.pv_measured = self.pv_true() + self.cfg.noise_sd * self.rng.normal();
@@ -227,6 +287,19 @@ impl LoopSim {
         duration_s: f64,
         sample_s: f64,
     ) -> Vec<SimSample> {
+        self.run_watched(schedule, duration_s, sample_s, |_, _| {})
+    }
+
+    /// [`LoopSim::run`], calling `at_change(loop, new_sp)` at each setpoint change with the loop
+    /// as it stands at that moment (before the controller sees the new setpoint): the plant's
+    /// true state at the change, for experiments from there.
+    pub fn run_watched(
+        &mut self,
+        schedule: &[(f64, f64)],
+        duration_s: f64,
+        sample_s: f64,
+        mut at_change: impl FnMut(&LoopSim, f64),
+    ) -> Vec<SimSample> {
         let every = ((sample_s / self.cfg.step_s).round() as usize).max(1);
         let steps = (duration_s / self.cfg.step_s).round() as usize;
         let mut sp = self.cfg.initial_sp;
@@ -235,6 +308,9 @@ impl LoopSim {
         for k in 0..=steps {
             let t = self.time_s();
             while next < schedule.len() && schedule[next].0 <= t + 1e-9 {
+                if schedule[next].1 != sp {
+                    at_change(self, schedule[next].1);
+                }
                 sp = schedule[next].1;
                 next += 1;
             }
@@ -309,122 +385,4 @@ impl Rng {
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-
-    fn open_loop(process: Process, step_s: f64) -> LoopSim {
-        // Kc = 0 with a huge τI leaves the OP where it starts: an open-loop test.
-        LoopSim::new(LoopSimConfig {
-            process,
-            controller: PiController {
-                gain: 0.0,
-                integral_time_s: 1e9,
-                op_min: -1e9,
-                op_max: 1e9,
-            },
-            step_s,
-            noise_sd: 0.0,
-            seed: 1,
-            initial_sp: process.bias,
-        })
-    }
-
-    /// A first-order lag, K = 2, τ = 10 s, without dead time or bias; tests vary it.
-    const LAG: Process = Process {
-        gain: 2.0,
-        time_constant_s: 10.0,
-        second_time_constant_s: 0.0,
-        dead_time_s: 0.0,
-        bias: 0.0,
-    };
-
-    /// An open loop with its OP stepped from 0 to 1 at time 0.
-    fn unit_step(process: Process, step_s: f64) -> LoopSim {
-        let mut sim = open_loop(process, step_s);
-        sim.op = 1.0;
-        sim
-    }
-
-    #[test]
-    fn first_order_reaches_63_percent_after_one_time_constant() {
-        // First-order step response y(τ) = 1 − e⁻¹ ≈ 0.632 (standard result for K/(τs+1)).
-        let p = Process {
-            dead_time_s: 3.0,
-            ..LAG
-        };
-        let mut sim = unit_step(p, 0.01);
-        let mut t = 0.0;
-        while t < 13.0 - 1e-9 {
-            sim.advance(0.0);
-            t += 0.01;
-        }
-        let expected = 2.0 * (1.0 - (-1.0f64).exp());
-        assert!((sim.pv_true() - expected).abs() < 1e-3, "{}", sim.pv_true());
-    }
-
-    #[test]
-    fn two_lags_match_the_closed_form_step_response() {
-        // Step response of K/((τ1 s+1)(τ2 s+1)): K[1 − (τ1 e^{−t/τ1} − τ2 e^{−t/τ2})/(τ1 − τ2)].
-        let p = Process {
-            gain: 1.5,
-            time_constant_s: 8.0,
-            second_time_constant_s: 3.0,
-            bias: 20.0,
-            ..LAG
-        };
-        let mut sim = unit_step(p, 0.05);
-        for _ in 0..200 {
-            sim.advance(0.0);
-        }
-        let t = 10.0;
-        let y = 1.5 * (1.0 - (8.0 * (-t / 8.0f64).exp() - 3.0 * (-t / 3.0f64).exp()) / 5.0);
-        assert!(
-            (sim.pv_true() - 20.0 - y).abs() < 1e-6,
-            "{} vs {}",
-            sim.pv_true() - 20.0,
-            y
-        );
-    }
-
-    #[test]
-    fn pi_loop_settles_on_the_setpoint_and_respects_the_actuator_range() {
-        let p = Process {
-            dead_time_s: 2.0,
-            ..LAG
-        };
-        let mut sim = LoopSim::new(LoopSimConfig {
-            process: p,
-            controller: PiController {
-                gain: 1.25,
-                integral_time_s: 10.0,
-                op_min: 0.0,
-                op_max: 0.9,
-            },
-            step_s: 0.01,
-            noise_sd: 0.0,
-            seed: 7,
-            initial_sp: 0.5,
-        });
-        let samples = sim.run(&[(1.0, 1.5)], 120.0, 0.5);
-        assert!(samples.iter().all(|s| (0.0..=0.9).contains(&s.op)));
-        assert!(
-            samples.iter().any(|s| s.op == 0.9),
-            "the large step must saturate"
-        );
-        let last = samples.last().unwrap();
-        assert!((last.pv - 1.5).abs() < 1e-3, "{}", last.pv);
-    }
-
-    #[test]
-    fn noise_has_the_requested_spread() {
-        let mut rng = Rng::new(42);
-        let n = 20_000;
-        let xs: Vec<f64> = (0..n).map(|_| rng.normal()).collect();
-        let mean = xs.iter().sum::<f64>() / n as f64;
-        let var = xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / n as f64;
-        assert!(
-            mean.abs() < 0.03 && (var - 1.0).abs() < 0.05,
-            "{mean} {var}"
-        );
-    }
-}
+mod tests;
