@@ -201,14 +201,27 @@ fn choose(tried: &[(Fitted, bool, Option<f64>)]) -> Option<usize> {
 fn held_out_rms(f: &Fitted, ctx: &Ctx) -> Option<f64> {
     let n = ctx.data.len();
     let folds = FOLDS.min(n);
+    // Folds are dealt within each direction of the PV apart, so every training set keeps about
+    // three quarters of the rising and of the falling episodes (what a family fitted to each
+    // direction apart needs).
+    let mut seen = [0usize; 2];
+    let fold_of: Vec<usize> = ctx
+        .data
+        .iter()
+        .map(|p| {
+            let side = &mut seen[usize::from(p.rising)];
+            *side += 1;
+            (*side - 1) % folds
+        })
+        .collect();
     let (mut sse, mut points) = (0.0, 0usize);
     for k in 0..folds {
         let train: Vec<Prepared> = ctx
             .data
             .iter()
-            .enumerate()
-            .filter(|(i, _)| i % folds != k)
-            .map(|(_, p)| p.clone())
+            .zip(&fold_of)
+            .filter(|(_, fold)| **fold != k)
+            .map(|(p, _)| p.clone())
             .collect();
         let fold = Ctx {
             data: &train,
@@ -216,7 +229,12 @@ fn held_out_rms(f: &Fitted, ctx: &Ctx) -> Option<f64> {
             ..*ctx
         };
         let g = fit(f.kind(), &fold, Some(f))?;
-        for seg in ctx.data.iter().skip(k).step_by(folds) {
+        for (seg, _) in ctx
+            .data
+            .iter()
+            .zip(&fold_of)
+            .filter(|(_, fold)| **fold == k)
+        {
             let (e, sse_e) = g.score(seg);
             sse += sse_e;
             points += e.n;
