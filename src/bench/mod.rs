@@ -111,9 +111,11 @@ fn analysis_part(args: &BenchOptions, dir: &Path, out: &mut dyn Write) -> anyhow
     });
     writeln!(
         out,
-        "week of one loop at 1 Hz ({} samples, {} setpoint changes)",
+        "week of one loop at 1 Hz ({} samples, {} setpoint changes; model family chosen on \
+         held-out changes, {} bootstrap variants for the confidence ranges)",
         series.len(),
-        changes
+        changes,
+        analysis::assess::ModelSet::VARIANTS
     )?;
     row(out, "  series → verdicts", core, WEEK_TARGET_S, "target")?;
     row(
