@@ -376,7 +376,12 @@ fn actuator_words(action: Action, e: &ActuatorEvidence, spec_s: f64, tally: Tall
         spec_s
     );
     let range_txt = e.capacity_ratio_range.map_or(String::new(), |[lo, hi]| {
-        format!(", plausibly {lo:.2}–{hi:.2}×")
+        let (lo, hi) = (format!("{lo:.2}"), format!("{hi:.2}"));
+        if lo == hi {
+            ", which the model's uncertainty moves by less than 0.01×".to_string()
+        } else {
+            format!(", plausibly {lo}–{hi}×")
+        }
     });
     if action == Action::Upgrade {
         return format!(
