@@ -27,6 +27,25 @@ impl AlertKind {
             AlertKind::StaleTag => "stale_tag",
         }
     }
+
+    /// The kind as people read it (`tuning-limited`, …, `stale tag`).
+    pub fn label(self) -> &'static str {
+        match self {
+            AlertKind::Missed(v) => v.label(),
+            AlertKind::StaleTag => "stale tag",
+        }
+    }
+
+    /// The kind from its stored spelling.
+    pub fn parse(stored: &str) -> Option<AlertKind> {
+        if stored == AlertKind::StaleTag.as_str() {
+            return Some(AlertKind::StaleTag);
+        }
+        Verdict::ALL
+            .into_iter()
+            .find(|v| v.as_str() == stored)
+            .map(AlertKind::Missed)
+    }
 }
 
 /// The alert for a scored setpoint change, when its verdict is a miss; `None` otherwise. Seen at
@@ -156,7 +175,17 @@ mod tests {
     fn kinds_keep_their_stored_spellings() {
         let k = AlertKind::Missed(Verdict::ActuatorLimited);
         assert_eq!(k.as_str(), "actuator_limited");
+        assert_eq!(k.label(), "actuator-limited");
         assert_eq!(AlertKind::StaleTag.as_str(), "stale_tag");
+        assert_eq!(AlertKind::StaleTag.label(), "stale tag");
+        for k in Verdict::ALL
+            .map(AlertKind::Missed)
+            .into_iter()
+            .chain([AlertKind::StaleTag])
+        {
+            assert_eq!(AlertKind::parse(k.as_str()), Some(k));
+        }
+        assert_eq!(AlertKind::parse("nonsense"), None);
     }
 
     #[test]

@@ -86,12 +86,12 @@ fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow
     let d = &report.data;
     writeln!(
         out,
-        "Data: {} samples over {}, every {} s (median); PV noise σ ≈ {:.3}; {} data gap(s)",
+        "Data: {} samples over {}, every {} s (median); PV noise σ ≈ {:.3}; {}",
         d.samples,
         human_duration(d.duration_s),
         trim(d.median_sample_s),
         d.pv_noise_sd,
-        d.gaps
+        crate::units::count(d.gaps, "data gap", "data gaps")
     )?;
     for note in load.notes() {
         writeln!(out, "  input: {note}")?;
@@ -106,7 +106,11 @@ fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow
     ];
     for (n, why) in skipped {
         if n > 0 {
-            writeln!(out, "  not scored: {n} setpoint change(s) {why}")?;
+            writeln!(
+                out,
+                "  not scored: {} {why}",
+                crate::units::count(n, "setpoint change", "setpoint changes")
+            )?;
         }
     }
     Ok(())

@@ -55,6 +55,12 @@ pub fn fraction_to_pct(fraction: f64) -> f64 {
     fraction * 100.0
 }
 
+/// A count with its noun in the right number: `count(1, "change", "changes")` is `1 change`,
+/// `count(3, "change", "changes")` is `3 changes`.
+pub fn count(n: usize, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
+}
+
 /// A duration for people: seconds below two minutes, minutes below two hours, hours below two
 /// days, then days, each to one decimal: `45.0 s`, `12.5 min`, `4.0 h`, `3.0 days`.
 pub fn human_duration(seconds: f64) -> String {
@@ -72,6 +78,13 @@ pub fn human_duration(seconds: f64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_count_takes_the_noun_in_its_number() {
+        assert_eq!(count(0, "change", "changes"), "0 changes");
+        assert_eq!(count(1, "change", "changes"), "1 change");
+        assert_eq!(count(2, "series id", "series ids"), "2 series ids");
+    }
 
     #[test]
     fn milliseconds_and_seconds_round_trip() {

@@ -138,9 +138,16 @@ pub fn recommend(
     if !marginal.is_empty() {
         let missed = marginal.iter().filter(|e| e.verdict.is_miss()).count();
         r.summary.push_str(&format!(
-            " {} more change(s) ({missed} of them missed) have a marginal verdict and are not \
-             counted here: they are listed to watch.",
-            marginal.len()
+            " {} more {} ({missed} of them missed) a marginal verdict and {} not counted here: \
+             {} listed to watch.",
+            crate::units::count(marginal.len(), "change", "changes"),
+            if marginal.len() == 1 { "has" } else { "have" },
+            if marginal.len() == 1 { "is" } else { "are" },
+            if marginal.len() == 1 {
+                "it is"
+            } else {
+                "they are"
+            }
         ));
     }
     r.marginal = marginal.len();
@@ -251,8 +258,8 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
         let h = feasibility::headroom(u0, dir, setup.op.min, setup.op.max);
         let largest = feasibility::largest_compliant_step(f, h, b.band, b.spec_s);
         r.summary.push_str(&format!(
-            " Separately, {} change(s) asked more than the actuator can give{}.",
-            b.tally.actuator_misses(),
+            " Separately, {} asked more than the actuator can give{}.",
+            crate::units::count(b.tally.actuator_misses(), "change", "changes"),
             largest.map_or(String::new(), |d| format!(
                 "; from OP {u0:.1}, changes up to {d:.3} can meet the spec"
             ))
@@ -348,9 +355,13 @@ fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     r.actuator = Some(evidence);
     if b.tally.c.tuning_limited > 0 {
         r.summary.push_str(&format!(
-            " Separately, {} change(s) missed although the actuator had room: retuning would help \
-             those.",
-            b.tally.c.tuning_limited
+            " Separately, {} missed although the actuator had room: retuning would help {}.",
+            crate::units::count(b.tally.c.tuning_limited, "change", "changes"),
+            if b.tally.c.tuning_limited == 1 {
+                "it"
+            } else {
+                "those"
+            }
         ));
     }
     r

@@ -94,8 +94,8 @@ fn model_doubts(e: &Evidence) -> Vec<String> {
     }
     if actuator && e.beaten > 0 {
         why.push(format!(
-            "{} earlier change(s) in this direction settled faster than the model's bound",
-            e.beaten
+            "{} in this direction settled faster than the model's bound",
+            crate::units::count(e.beaten, "earlier change", "earlier changes")
         ));
     }
     why

@@ -81,10 +81,10 @@ pub async fn report(args: &ReportArgs, out: &mut dyn Write) -> Result<(), Failur
             }
             writeln!(
                 out,
-                "{}: {} loop(s), {} setpoint change(s); generated in {:.0} ms",
+                "{}: {}, {}; generated in {:.0} ms",
                 period.label,
-                report.loops.len(),
-                report.plant.changes,
+                crate::units::count(report.loops.len(), "loop", "loops"),
+                crate::units::count(report.plant.changes, "setpoint change", "setpoint changes"),
                 took.as_secs_f64() * 1000.0
             )?;
         }

@@ -139,9 +139,9 @@ fn write_device(
     match modbus::device_plan(loops, name, d) {
         Ok(p) => writeln!(
             o,
-            "  {} signal(s) read in {} request(s) per poll, read function codes only",
-            p.placements.len(),
-            p.requests.len()
+            "  {} read in {} per poll, read function codes only",
+            crate::units::count(p.placements.len(), "signal", "signals"),
+            crate::units::count(p.requests.len(), "request", "requests")
         ),
         Err(e) => writeln!(o, "  cannot plan the requests: {e}"),
     }

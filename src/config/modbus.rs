@@ -328,7 +328,7 @@ mod tests {
             "{text}"
         );
         assert!(
-            text.contains("4 signal(s) read in 3 request(s) per poll"),
+            text.contains("4 signals read in 3 requests per poll"),
             "{text}"
         );
         assert!(

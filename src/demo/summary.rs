@@ -4,6 +4,7 @@
 //! computed from the simulator's own knowledge of the plant.
 
 use super::plant::{Link, LoopDef};
+use crate::alerts::AlertKind;
 use crate::analysis::advice::{Recommendation, recommend};
 use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
@@ -288,9 +289,11 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     let raised: Vec<String> = loops
         .iter()
         .flat_map(|l| {
-            l.alerts
-                .iter()
-                .map(move |(k, n)| format!("{} {k} ×{n}", l.tag))
+            l.alerts.iter().map(move |(k, n)| {
+                // People read the kind's display spelling; an unknown stored kind as stored.
+                let kind = AlertKind::parse(k).map_or_else(|| k.clone(), |k| k.label().into());
+                format!("{} {kind} ×{n}", l.tag)
+            })
         })
         .collect();
     writeln!(out)?;
@@ -309,8 +312,14 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     if unreadable > 0 {
         writeln!(
             out,
-            "({} stored episode(s) could not be read back and are left out.)",
-            thousands(unreadable as u64)
+            "({} stored {} could not be read back and {} left out.)",
+            thousands(unreadable as u64),
+            if unreadable == 1 {
+                "episode"
+            } else {
+                "episodes"
+            },
+            if unreadable == 1 { "is" } else { "are" }
         )?;
     }
     files_and_next_steps(&facts.files, out)

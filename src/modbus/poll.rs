@@ -59,7 +59,11 @@ impl PollOutcome {
 impl fmt::Display for PollOutcome {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            PollOutcome::Ok(v) => write!(f, "{} request(s) answered", v.len()),
+            PollOutcome::Ok(v) => write!(
+                f,
+                "{} answered",
+                crate::units::count(v.len(), "request", "requests")
+            ),
             PollOutcome::Timeout { index, request } => {
                 write!(f, "request {index} ({request}): no answer in time")
             }
@@ -83,7 +87,8 @@ impl fmt::Display for PollOutcome {
                 got,
             } => write!(
                 f,
-                "request {index} ({request}): {got} value(s) in the reply",
+                "request {index} ({request}): {} in the reply",
+                crate::units::count(*got, "value", "values")
             ),
         }
     }

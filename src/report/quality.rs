@@ -4,6 +4,7 @@
 use super::period::{Period, local};
 use crate::sample::Signal;
 use crate::store::{AlertRow, SeriesCoverage};
+use crate::units::count;
 use jiff::tz::TimeZone;
 
 /// The data-quality line when no configuration was given.
@@ -11,9 +12,15 @@ pub(super) const NO_CONFIG: &str = "No configuration was given: the loops' specs
 are unknown, so settling times stand without their spec and no recommendation is made. Run with \
 --config.";
 
+/// "was" for one, "were" for more.
+fn were(n: usize) -> &'static str {
+    if n == 1 { "was" } else { "were" }
+}
+
 /// Stored changes this version could not read back.
 pub(super) fn unreadable(tag: &str, n: usize) -> String {
-    format!("{tag}: {n} stored change(s) could not be read by this version and were left out")
+    let (changes, were) = (count(n, "stored change", "stored changes"), were(n));
+    format!("{tag}: {changes} could not be read by this version and {were} left out")
 }
 
 /// A loop the store knows but the configuration does not.
@@ -37,8 +44,8 @@ pub(super) fn coverage_findings(
             "no samples in this period".to_string()
         } else if c.gaps > 0 {
             format!(
-                "{} gap(s) longer than {}, {} in all (longest {})",
-                c.gaps,
+                "{} longer than {}, {} in all (longest {})",
+                count(usize::try_from(c.gaps).unwrap_or(usize::MAX), "gap", "gaps"),
                 duration_words(c.gap_threshold_ms),
                 duration_words(c.gap_ms),
                 duration_words(c.longest_gap_ms)
@@ -78,12 +85,16 @@ pub(super) fn stale_tags(alerts: &[AlertRow], period: &Period, tz: &TimeZone) ->
                 .strip_prefix(&format!("{}: ", a.loop_tag))
                 .unwrap_or(&a.message);
             format!(
-                "{}: stale tag — {} (from {} to {}, {} time(s))",
+                "{}: stale tag — {} (from {} to {}, {})",
                 a.loop_tag,
                 message,
                 local(a.first_seen_ms, tz),
                 local(a.last_seen_ms, tz),
-                a.count
+                count(
+                    usize::try_from(a.count).unwrap_or(usize::MAX),
+                    "time",
+                    "times"
+                )
             )
         })
         .collect()
@@ -128,17 +139,22 @@ pub(super) fn loop_notes(f: &LoopFacts) -> Vec<String> {
         });
     }
     if f.provisional > 0 {
+        let n = f.provisional;
         notes.push(format!(
-            "{} change(s) were still being watched when this summary was made and are not \
-             counted.",
-            f.provisional
+            "{} {} still being watched when this summary was made and {} not counted.",
+            count(n, "change", "changes"),
+            were(n),
+            if n == 1 { "is" } else { "are" }
         ));
     }
     if f.inconclusive > 0 {
+        let n = f.inconclusive;
         notes.push(format!(
-            "{} change(s) were inconclusive (window cut short, inside the noise, or no model) \
-             and are not judged.",
-            f.inconclusive
+            "{} {} inconclusive (window cut short, inside the noise, or no model) and {} not \
+             judged.",
+            count(n, "change", "changes"),
+            were(n),
+            if n == 1 { "is" } else { "are" }
         ));
     }
     notes
@@ -193,7 +209,7 @@ mod tests {
         assert_eq!(
             lines,
             [
-                "TIC-1 SP, PV: 2 gap(s) longer than 30 s, 10 min in all (longest 5 min)",
+                "TIC-1 SP, PV: 2 gaps longer than 30 s, 10 min in all (longest 5 min)",
                 "TIC-1 OP: no samples in this period"
             ]
         );

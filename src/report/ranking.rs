@@ -55,11 +55,14 @@ fn rank_reason(l: &LoopSection) -> String {
     let misses = s.judged - s.counts.met;
     match l.status {
         Status::NoChanges => "no setpoint changes this period".into(),
-        _ if s.judged == 0 => format!("{} change(s), none could be judged", s.changes),
+        _ if s.judged == 0 => format!(
+            "{}, none could be judged",
+            crate::units::count(s.changes, "change", "changes")
+        ),
         _ => {
             let mut why = format!(
-                "{misses} of {} judged change(s) missed the spec ({:.0} %)",
-                s.judged,
+                "{misses} of {} missed the spec ({:.0} %)",
+                crate::units::count(s.judged, "judged change", "judged changes"),
                 100.0 * misses as f64 / s.judged as f64
             );
             let parts = s.counts.occurring(&[

@@ -162,8 +162,13 @@ impl Store {
             if lines == ["ok"] {
                 lines.clear();
             }
+            let ids = crate::units::count(
+                usize::try_from(orphans).unwrap_or(usize::MAX),
+                "series id",
+                "series ids",
+            );
             lines.push(format!(
-                "samples refer to {orphans} series id(s) missing from the series table"
+                "samples refer to {ids} missing from the series table"
             ));
         }
         Ok(lines.join("\n"))
@@ -393,7 +398,7 @@ mod tests {
             .await
             .unwrap();
         let report = store.integrity_check().await.unwrap();
-        assert!(report.contains("1 series id(s) missing"), "{report}");
+        assert!(report.contains("1 series id missing"), "{report}");
     }
 
     #[tokio::test]

@@ -472,7 +472,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     assert!(quality.contains("LIC-301: stale tag"), "{quality}");
     // The level loop's 30-minute silence (threshold 10 × 10 s).
     assert!(
-        quality.contains("LIC-301 OP, PV, SP: 1 gap(s) longer than 100 s, 30 min in all"),
+        quality.contains("LIC-301 OP, PV, SP: 1 gap longer than 100 s, 30 min in all"),
         "{quality}"
     );
 

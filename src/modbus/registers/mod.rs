@@ -355,8 +355,12 @@ pub fn decode(words: &[u16], data_type: DataType, order: Order) -> f64 {
     assert_eq!(
         words.len(),
         usize::from(data_type.register_count()),
-        "{data_type} takes {} register(s)",
-        data_type.register_count()
+        "{data_type} takes {}",
+        crate::units::count(
+            usize::from(data_type.register_count()),
+            "register",
+            "registers"
+        )
     );
     let bits = natural_bits(words, order);
     match data_type {

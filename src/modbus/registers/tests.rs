@@ -140,7 +140,7 @@ fn encode_round_trips_and_refuses_what_does_not_fit() {
 }
 
 #[test]
-#[should_panic(expected = "f32 takes 2 register(s)")]
+#[should_panic(expected = "f32 takes 2 registers")]
 fn decode_rejects_wrong_length() {
     decode(&[0x42F6], DataType::F32, Order::Abcd);
 }
