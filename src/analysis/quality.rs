@@ -127,10 +127,15 @@ impl Finding {
             Issue::QuantisedPv { step, band } => format!(
                 "the PV moves in steps of {step}{pv}, against a settling band of ±{band:.4}{pv}"
             ),
-            Issue::CoarseOp { ratio } => format!(
+            Issue::CoarseOp { ratio } if ratio.is_finite() => format!(
                 "the OP is logged more coarsely than the PV (one OP change per {ratio:.0} PV \
                  changes)"
             ),
+            Issue::CoarseOp { .. } => {
+                "the OP never changed in the record while the PV did: it is not logged, or not \
+                 logged where the loop acts"
+                    .to_string()
+            }
             Issue::FrozenPv {
                 start_s,
                 end_s,
@@ -599,5 +604,18 @@ mod tests {
             Some(Effect::Downgrade)
         );
         assert!(survey.findings(0, s.len(), BAND, Some(4.0)).is_empty());
+    }
+
+    #[test]
+    fn an_op_that_never_changed_is_described_without_an_infinite_ratio() {
+        let f = Finding {
+            issue: Issue::CoarseOp {
+                ratio: f64::INFINITY,
+            },
+            effect: Effect::Downgrade,
+        };
+        let words = f.describe("");
+        assert!(words.contains("never changed"), "{words}");
+        assert!(!words.contains("inf"), "{words}");
     }
 }

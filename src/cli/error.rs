@@ -102,8 +102,8 @@ pub enum Usage {
     NoConfigFile,
     #[error("several formats need --out DIR (one file each)")]
     SeveralFormatsNeedOut,
-    #[error("the folder {} does not exist", .0.display())]
-    NoFolder(PathBuf),
+    #[error("{} is there but is not a folder", .0.display())]
+    NotAFolder(PathBuf),
     #[error("no open alert with id {0}")]
     NoOpenAlert(i64),
     #[error(

@@ -37,7 +37,8 @@ pub struct ReportArgs {
     /// html, md or json; several with commas (they need --out). Default: html.
     #[arg(long, value_delimiter = ',', value_parser = names_parser(Format::ALL.map(Format::as_str), Format::parse), value_name = "FORMAT")]
     pub format: Vec<Format>,
-    /// Write `loop-health-<period>.<format>` files into this folder instead of printing.
+    /// Write `loop-health-<period>.<format>` files into this folder (made if missing) instead of
+    /// printing.
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
 }
@@ -113,10 +114,12 @@ fn formats(args: &ReportArgs) -> Result<Vec<Format>, Usage> {
     if formats.len() > 1 && args.out.is_none() {
         return Err(Usage::SeveralFormatsNeedOut);
     }
+    // A missing folder is made when the files are written; a file in its place is a mistake.
     if let Some(dir) = &args.out
+        && dir.exists()
         && !dir.is_dir()
     {
-        return Err(Usage::NoFolder(dir.clone()));
+        return Err(Usage::NotAFolder(dir.clone()));
     }
     Ok(formats)
 }

@@ -271,6 +271,11 @@ pub fn write_files(
     formats: &[Format],
     folder: &Path,
 ) -> Result<Vec<(PathBuf, String)>, ReportError> {
+    // The folder is made when missing, with its parents, as `mkdir -p` would.
+    std::fs::create_dir_all(folder).map_err(|source| ReportError::Write {
+        path: folder.to_path_buf(),
+        source,
+    })?;
     let mut out = Vec::new();
     for &f in formats {
         let text = render(report, f)?;

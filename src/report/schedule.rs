@@ -90,12 +90,7 @@ pub async fn generate_once(
 ) -> Result<Vec<PathBuf>, ReportError> {
     let now = Timestamp::now();
     let report = gather(store, Some(config), period, now).await?;
-    let folder = schedule.folder.clone();
-    std::fs::create_dir_all(&folder).map_err(|source| ReportError::Write {
-        path: folder.clone(),
-        source,
-    })?;
-    let written = write_files(&report, period, &schedule.formats, &folder)?;
+    let written = write_files(&report, period, &schedule.formats, &schedule.folder)?;
     for ((_, text), f) in written.iter().zip(&schedule.formats) {
         store
             .keep_report(

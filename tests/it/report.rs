@@ -313,10 +313,11 @@ fn report(args: &[&str]) -> (i32, String, String) {
     run_headroom_text(&[&["report"], args].concat())
 }
 
-/// Writes the W48 summary in all three formats; returns the folder.
+/// Writes the W48 summary in all three formats into a folder that does not exist yet (the
+/// command makes it, with its parents); returns the folder.
 fn write_all(f: &Fixture) -> PathBuf {
-    let out = f.dir.path().join("out");
-    std::fs::create_dir_all(&out).unwrap();
+    let out = f.dir.path().join("out").join("weekly");
+    assert!(!out.exists());
     let (code, stdout, stderr) = report(&[
         "--config",
         f.config.to_str().unwrap(),
@@ -685,4 +686,10 @@ async fn mistakes_on_the_command_line_are_usage_errors() {
     let (code, _, err) = report(&["--week", "2026-W48"]);
     assert_eq!(code, 2);
     assert!(err.contains("--db FILE or --config FILE"), "{err}");
+    // A file where the output folder should be.
+    let file = f.dir.path().join("a-file");
+    std::fs::write(&file, "").unwrap();
+    let (code, _, err) = report(&["--db", db, "--out", file.to_str().unwrap()]);
+    assert_eq!(code, 2);
+    assert!(err.contains("is not a folder"), "{err}");
 }
