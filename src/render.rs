@@ -19,6 +19,8 @@ pub fn json(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
         }
     }
     v["input"] = serde_json::to_value(load)?;
+    v["schema_version"] = crate::summary_format::SCHEMA_VERSION.into();
+    v["version"] = crate::summary_format::PRODUCT_VERSION.into();
     serde_json::to_writer_pretty(&mut *out, &v)?;
     writeln!(out)?;
     Ok(())

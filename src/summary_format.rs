@@ -2,6 +2,13 @@
 //! line, the configuration's `[report] formats`, the scheduler and the file names. Depends on
 //! nothing else in the crate, so any layer can name a format.
 
+/// The version of the JSON documents people's programs read (`analyze --json`, the summary's
+/// JSON): raised when a field changes meaning or goes away, not when one is added.
+pub const SCHEMA_VERSION: u32 = 2;
+
+/// The product's version, carried by every JSON document beside [`SCHEMA_VERSION`].
+pub const PRODUCT_VERSION: &str = env!("CARGO_PKG_VERSION");
+
 /// A summary format.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Format {

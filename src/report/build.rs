@@ -46,6 +46,9 @@ pub struct WeeklyReport {
     pub loops: Vec<LoopSection>,
     pub caution: &'static str,
     pub definitions: Vec<Definition>,
+    /// The JSON document's version and the product's.
+    pub schema_version: u32,
+    pub version: &'static str,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -148,6 +151,8 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
         loops,
         caution: crate::analysis::CAUTION,
         definitions: DEFINITIONS.to_vec(),
+        schema_version: crate::summary_format::SCHEMA_VERSION,
+        version: crate::summary_format::PRODUCT_VERSION,
     }
 }
 
