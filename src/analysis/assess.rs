@@ -487,10 +487,7 @@ pub(crate) fn judge(
     };
     let judgement = verdict::decide(&facts, &setup.spec);
     let verdict = judgement.verdict();
-    let beaten_now = point.as_ref().is_some_and(|(b, _)| {
-        m.settling_time_s
-            .is_some_and(|ts| b.fastest_s.is_none_or(|t| ts < t))
-    });
+    let beaten_now = facts.beats_bound();
     let unfit_words = match judgement.ground {
         verdict::Ground::DataUnfit => pv_unfit.or(op_unfit).map(|f| f.describe("")),
         _ => None,

@@ -267,6 +267,17 @@ pub struct Facts {
     pub op_unfit: bool,
 }
 
+impl Facts {
+    /// Whether the change settled faster than the model's bound for it (or settled at all when
+    /// the model puts the setpoint beyond reach): the model is wrong for this change.
+    pub fn beats_bound(&self) -> bool {
+        match (self.settling_time_s, self.capability) {
+            (Some(ts), Some(c)) => c.fastest_s.is_none_or(|t| ts < t),
+            _ => false,
+        }
+    }
+}
+
 /// How a missed change missed.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Miss {
@@ -374,9 +385,7 @@ fn ground(f: &Facts, spec: &Spec) -> Ground {
     let Some(c) = f.capability else {
         return Ground::NoModel(miss);
     };
-    if let Some(ts) = f.settling_time_s
-        && c.fastest_s.is_none_or(|t| ts < t)
-    {
+    if f.beats_bound() {
         return Ground::BoundBeaten(miss, c.fastest_s);
     }
     if f.distance > c.reach || c.fastest_s.is_none() {
