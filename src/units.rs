@@ -1,5 +1,6 @@
 //! Unit conversions used across the product, defined once: epoch milliseconds ↔ seconds,
-//! RFC 3339 text of a time, percent ↔ fraction, and a duration for people. Pure, no clock.
+//! RFC 3339 text of a time, percent ↔ fraction, and numbers, quantities and durations for
+//! people. Pure, no clock.
 
 /// Milliseconds in one second.
 pub const MS_PER_S: f64 = 1000.0;
@@ -64,7 +65,9 @@ pub fn count(n: usize, one: &str, many: &str) -> String {
 /// A duration for people: seconds below two minutes, minutes below two hours, hours below two
 /// days, then days, each to one decimal: `45.0 s`, `12.5 min`, `4.0 h`, `3.0 days`.
 pub fn human_duration(seconds: f64) -> String {
-    if seconds >= 2.0 * 86_400.0 {
+    if !seconds.is_finite() {
+        "not defined".to_owned()
+    } else if seconds >= 2.0 * 86_400.0 {
         format!("{:.1} days", seconds / 86_400.0)
     } else if seconds >= 2.0 * 3600.0 {
         format!("{:.1} h", seconds / 3600.0)
@@ -72,6 +75,57 @@ pub fn human_duration(seconds: f64) -> String {
         format!("{:.1} min", seconds / 60.0)
     } else {
         format!("{seconds:.1} s")
+    }
+}
+
+/// Significant figures a person reads by default: enough to tell a setting or a reading apart,
+/// few enough not to pretend a precision the analysis does not have (common practice).
+pub const DISPLAY_DIGITS: usize = 3;
+
+/// A number for people to `digits` significant figures, in plain decimal notation (never an
+/// exponent), with trailing zeros after the point kept to show the precision: `sig(106.49, 3)`
+/// is `106`, `sig(0.012345, 3)` is `0.0123`, `sig(9.0, 3)` is `9.00`. A number that is not
+/// finite reads `not defined`, so no `NaN` or `inf` reaches a person.
+pub fn sig(x: f64, digits: usize) -> String {
+    if !x.is_finite() {
+        return "not defined".to_owned();
+    }
+    if x == 0.0 {
+        return format!("{:.*}", digits.saturating_sub(1), 0.0);
+    }
+    let magnitude = x.abs().log10().floor() as i64;
+    let decimals = (digits as i64 - 1 - magnitude).max(0) as usize;
+    let text = format!("{x:.decimals$}");
+    // Rounding may carry into a new digit (9.996 → 10.00): one decimal fewer then.
+    let rounded: f64 = text.parse().unwrap_or(x);
+    if decimals > 0 && rounded.abs().log10().floor() as i64 > magnitude {
+        return format!("{x:.*}", decimals - 1);
+    }
+    text
+}
+
+/// A quantity for people: the number to [`DISPLAY_DIGITS`] significant figures, a space, its
+/// unit (a space before every unit, `%` included, as SI writes them); no unit when the unit is
+/// empty: `quantity(75.04, "°C")` is `75.0 °C`.
+pub fn quantity(x: f64, unit: &str) -> String {
+    with_unit(sig(x, DISPLAY_DIGITS), unit)
+}
+
+/// A change for people, with its sign: `signed_quantity(9.0, "°C")` is `+9.00 °C`.
+pub fn signed_quantity(x: f64, unit: &str) -> String {
+    let text = sig(x, DISPLAY_DIGITS);
+    if x.is_finite() && x > 0.0 {
+        with_unit(format!("+{text}"), unit)
+    } else {
+        with_unit(text, unit)
+    }
+}
+
+fn with_unit(number: String, unit: &str) -> String {
+    if unit.is_empty() || number == "not defined" {
+        number
+    } else {
+        format!("{number} {unit}")
     }
 }
 
@@ -121,11 +175,31 @@ mod tests {
         assert_eq!(human_duration(750.0), "12.5 min");
         assert_eq!(human_duration(14_400.0), "4.0 h");
         assert_eq!(human_duration(3.0 * 86_400.0), "3.0 days");
+        assert_eq!(human_duration(f64::INFINITY), "not defined");
     }
 
     #[test]
     fn percent_and_fraction() {
         assert_eq!(pct_to_fraction(2.0), 0.02);
         assert_eq!(fraction_to_pct(0.5), 50.0);
+    }
+
+    #[test]
+    fn numbers_read_to_significant_figures_without_nan() {
+        assert_eq!(sig(106.49, 3), "106");
+        assert_eq!(sig(0.012345, 3), "0.0123");
+        assert_eq!(sig(9.0, 3), "9.00");
+        assert_eq!(sig(-2.345, 2), "-2.3");
+        assert_eq!(sig(9.996, 3), "10.0");
+        assert_eq!(sig(99_960.0, 3), "99960");
+        assert_eq!(sig(0.0, 3), "0.00");
+        assert_eq!(sig(f64::NAN, 3), "not defined");
+        assert_eq!(sig(f64::INFINITY, 3), "not defined");
+        assert_eq!(quantity(75.04, "°C"), "75.0 °C");
+        assert_eq!(quantity(12.5, "%"), "12.5 %");
+        assert_eq!(quantity(3.0, ""), "3.00");
+        assert_eq!(signed_quantity(9.0, "°C"), "+9.00 °C");
+        assert_eq!(signed_quantity(-0.5, "bar"), "-0.500 bar");
+        assert_eq!(quantity(f64::NEG_INFINITY, "%"), "not defined");
     }
 }
