@@ -208,8 +208,6 @@ struct Basis<'a> {
     setup: &'a LoopSetup,
     sample_s: f64,
     tally: Tally,
-    /// The spec's band as a fraction of the change.
-    band: f64,
     spec_s: f64,
 }
 
@@ -220,7 +218,6 @@ impl<'a> Basis<'a> {
             setup,
             sample_s,
             tally,
-            band: setup.spec.band_fraction(),
             spec_s: setup.spec.settle_within_s,
         }
     }
@@ -243,7 +240,15 @@ fn typical(episodes: &[EpisodeResult], pick: impl Fn(Verdict) -> bool) -> (f64, 
 fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     let (f, setup) = (&b.f, b.setup);
     let (step, u0) = typical(episodes, |v| v == Verdict::TuningLimited);
-    let pi = tuning::suggest(f, step, u0, setup.op, b.band, b.sample_s, b.spec_s);
+    let pi = tuning::suggest(
+        f,
+        step,
+        u0,
+        setup.op,
+        setup.spec.band_fraction(step),
+        b.sample_s,
+        b.spec_s,
+    );
     let mut r = Recommendation::new(Action::Retune, retune_words(&pi, step, b.spec_s, b.tally));
     r.retune = Some(pi);
     if b.tally.actuator_misses() > 0 {
@@ -256,7 +261,7 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
         let step = signed_median(big.iter().map(|e| e.sp_to - e.sp_from));
         let dir = feasibility::op_direction(f.gain, step);
         let h = feasibility::headroom(u0, dir, setup.op.min, setup.op.max);
-        let largest = feasibility::largest_compliant_step(f, h, b.band, b.spec_s);
+        let largest = feasibility::largest_compliant_step(f, h, &setup.spec);
         r.summary.push_str(&format!(
             " Separately, {} asked more than the actuator can give{}.",
             crate::units::count(b.tally.actuator_misses(), "change", "changes"),
@@ -297,26 +302,26 @@ fn retune_words(pi: &PiSuggestion, step: f64, spec_s: f64, tally: Tally) -> Stri
 /// change today's actuator meets the spec for, and the OP limit that would meet it.
 fn actuator_evidence(typical_step: f64, typical_u0: f64, b: &Basis) -> ActuatorEvidence {
     let (f, op) = (&b.f, b.setup.op);
+    let band = b.setup.spec.band_fraction(typical_step);
     let dir = feasibility::op_direction(f.gain, typical_step);
     let h = feasibility::headroom(typical_u0, dir, op.min, op.max);
-    let fastest = match feasibility::min_settling_time(f, typical_step, h, b.band) {
+    let fastest = match feasibility::min_settling_time(f, typical_step, h, band) {
         Reach::Reachable { t_star_s } => Some(t_star_s),
         Reach::Unreachable { .. } => None,
     };
     let tight =
         tuning::tau_c_for_headroom(f, typical_step, f64::INFINITY, b.sample_s).max(f.dead_time_s);
     let (kc, ti) = tuning::simc_pi(f, tight);
-    let practical = fastest.and_then(|_| {
-        tuning::predict(f, kc, ti, typical_step, typical_u0, op, b.band, b.sample_s).0
-    });
-    let required_h = feasibility::required_headroom(f, typical_step, b.band, b.spec_s);
+    let practical = fastest
+        .and_then(|_| tuning::predict(f, kc, ti, typical_step, typical_u0, op, band, b.sample_s).0);
+    let required_h = feasibility::required_headroom(f, typical_step, band, b.spec_s);
     let required_limit = required_h.map(|rh| typical_u0 + dir * rh);
     ActuatorEvidence {
         typical_step,
         typical_op_start: typical_u0,
         fastest_settling_time_s: fastest,
         practical_settling_time_s: practical,
-        largest_compliant_step: feasibility::largest_compliant_step(f, h, b.band, b.spec_s),
+        largest_compliant_step: feasibility::largest_compliant_step(f, h, &b.setup.spec),
         required_op_limit: required_limit,
         capacity_ratio: required_limit.map(|l| feasibility::capacity_ratio(l, dir, op)),
         capacity_ratio_range: None,

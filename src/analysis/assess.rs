@@ -179,7 +179,7 @@ fn typical_band(episodes: &[EpisodeResult], setup: &LoopSetup) -> f64 {
         .iter()
         .map(|e| (e.sp_to - e.sp_from).abs())
         .collect();
-    setup.spec.band_fraction() * stats::median_in_place(&mut steps)
+    setup.spec.band_abs(stats::median_in_place(&mut steps))
 }
 
 /// Median interval between samples, 0 for fewer than two samples.
@@ -305,7 +305,7 @@ pub(crate) fn score_window(
     w: &EpisodeWindow,
     setup: &LoopSetup,
 ) -> Option<Scored> {
-    let band = setup.spec.band_fraction();
+    let band = setup.spec.band_fraction(w.delta());
     let margin = crate::units::pct_to_fraction(setup.options.saturation_margin_pct);
     let r = w.start..w.end;
     let noise_from = w.pre_start.max(w.start.saturating_sub(50));
@@ -440,7 +440,7 @@ pub(crate) fn judge(
     let delta = w.delta();
     let t0 = t[w.start];
     let spec_s = setup.spec.settle_within_s;
-    let band_abs = setup.spec.band_fraction() * delta.abs();
+    let band_abs = setup.spec.band_abs(delta);
     let state = StartState::read(t, series.pv(), w.pre_start, w.start);
     let change = Change {
         state,

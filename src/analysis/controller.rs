@@ -23,6 +23,7 @@
 //! with e = SP − PV a positive-gain process needs reverse action (the OP rises when the PV falls
 //! below the setpoint), a negative-gain process direct action.
 
+use super::setup::{OpRange, Problem, Setting};
 use serde::{Deserialize, Serialize};
 
 /// The canonical settings: ideal form, Kc in OP units per PV unit (signed like the process
@@ -35,19 +36,21 @@ pub struct Ideal {
 }
 
 /// The algorithm's form.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Form {
+    #[default]
     Ideal,
     Parallel,
     Series,
 }
 
 /// How the controller takes its gain.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum GainUnit {
     /// OP units per PV unit.
+    #[default]
     OutputPerPv,
     /// % of OP span per % of PV span (dimensionless).
     PercentPerPercent,
@@ -56,18 +59,20 @@ pub enum GainUnit {
 }
 
 /// How the controller takes its integral action.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum IntegralUnit {
+    #[default]
     Seconds,
     Minutes,
     RepeatsPerMinute,
 }
 
 /// How the controller takes its derivative action.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum DerivativeUnit {
+    #[default]
     Seconds,
     Minutes,
 }
@@ -137,6 +142,127 @@ pub struct Written {
     /// Td (time), or Kd for the parallel form; `None` without derivative action.
     pub derivative: Option<f64>,
     pub action: Action,
+}
+
+/// A loop's controller as described in its config (`[loops.<tag>.controller]`) or by the
+/// `analyze` flags: how it takes its settings, the PV range that gives % of span its meaning,
+/// and, when known, the settings it runs with today, in its own units. Each field defaults to
+/// the canonical convention (ideal form, OP units per PV unit, seconds).
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ControllerSetup {
+    #[serde(default)]
+    pub form: Form,
+    #[serde(default)]
+    pub gain_unit: GainUnit,
+    #[serde(default)]
+    pub integral_unit: IntegralUnit,
+    #[serde(default)]
+    pub derivative_unit: DerivativeUnit,
+    /// The PV's measuring range [low, high] in PV units, needed for % of span and for a
+    /// proportional band (the OP span is the loop's OP range).
+    pub pv_range: Option<[f64; 2]>,
+    /// Today's action, if the controller's configuration is known; checked against the action
+    /// the identified process needs.
+    pub action: Option<Action>,
+    /// Today's gain in `gain_unit` (a magnitude).
+    pub gain: Option<f64>,
+    /// Today's integral setting in `integral_unit`; absent for no integral action.
+    pub integral: Option<f64>,
+    /// Today's derivative setting in `derivative_unit`; absent for no derivative action.
+    pub derivative: Option<f64>,
+}
+
+impl ControllerSetup {
+    pub fn convention(&self) -> Convention {
+        Convention {
+            form: self.form,
+            gain: self.gain_unit,
+            integral: self.integral_unit,
+            derivative: self.derivative_unit,
+        }
+    }
+
+    /// The spans % of span is read against, when the PV range is given.
+    pub fn spans(&self, op: OpRange) -> Option<Spans> {
+        self.pv_range.map(|[lo, hi]| Spans {
+            pv_span: hi - lo,
+            op_span: op.span(),
+        })
+    }
+
+    /// Today's settings in the canonical form, when they are given; without a configured action
+    /// they are read with the action a process of gain `process_gain` needs.
+    pub fn current(
+        &self,
+        op: OpRange,
+        process_gain: f64,
+    ) -> Option<Result<Ideal, ConversionError>> {
+        let gain = self.gain?;
+        let written = Written {
+            convention: self.convention(),
+            gain,
+            integral: self.integral,
+            derivative: self.derivative.filter(|d| *d > 0.0),
+            action: self
+                .action
+                .unwrap_or_else(|| Action::for_process_gain(process_gain)),
+        };
+        Some(read(&written, self.spans(op)))
+    }
+
+    /// Every problem with the description's numbers.
+    pub fn problems(&self) -> Vec<Problem> {
+        let mut out = Vec::new();
+        match self.pv_range {
+            Some([lo, hi]) if !(lo.is_finite() && hi.is_finite() && lo < hi) => {
+                out.push(Problem::new(
+                    Setting::PvRange,
+                    "must be [low, high] with low below high",
+                    hi - lo,
+                ))
+            }
+            None if self.gain_unit != GainUnit::OutputPerPv => out.push(Problem::missing(
+                Setting::PvRange,
+                "is needed for a gain in % of span or a proportional band",
+            )),
+            _ => {}
+        }
+        if let Some(g) = self.gain
+            && !(g.is_finite() && g > 0.0)
+        {
+            out.push(Problem::new(
+                Setting::ControllerGain,
+                "must be a positive number (the action gives the sign)",
+                g,
+            ));
+        }
+        if let Some(i) = self.integral
+            && !(i.is_finite() && i > 0.0)
+        {
+            out.push(Problem::new(
+                Setting::ControllerIntegral,
+                "must be a positive number (leave it out for no integral action)",
+                i,
+            ));
+        }
+        if let Some(d) = self.derivative
+            && !(d.is_finite() && d >= 0.0)
+        {
+            out.push(Problem::new(
+                Setting::ControllerDerivative,
+                "must be 0 or more",
+                d,
+            ));
+        }
+        if self.gain.is_none() && (self.integral.is_some() || self.derivative.is_some()) {
+            out.push(Problem::missing(
+                Setting::ControllerGain,
+                "is needed with today's integral or derivative setting",
+            ));
+        }
+        out
+    }
 }
 
 /// Why settings cannot be written in a convention.

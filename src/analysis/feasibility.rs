@@ -12,7 +12,7 @@
 //! settle on it.
 
 use super::identify::Fopdt;
-use super::setup::OpRange;
+use super::setup::{OpRange, Spec};
 
 /// The fastest possible response to one setpoint change.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -75,16 +75,21 @@ pub fn required_headroom_from(m: &Fopdt, distance: f64, band_abs: f64, spec_s: f
     Some(reach.max(distance) / m.gain.abs())
 }
 
-/// The largest change (magnitude) that can meet `spec_s` from an operating point with headroom
-/// `h`: the change whose t* equals the spec time, capped at the reach. `None` when the spec time
-/// is not longer than the dead time.
-pub fn largest_compliant_step(m: &Fopdt, h: f64, b: f64, spec_s: f64) -> Option<f64> {
-    let avail = spec_s - m.dead_time_s;
+/// The largest change (magnitude) that can meet the spec's time from an operating point with
+/// headroom `h`: the change whose t* equals the spec time, capped at the reach. With the band a
+/// fraction b of the change, (1 − b)·|Δ| ≤ R·(1 − e^(−(T−θ)/τ)); with an absolute band B,
+/// |Δ| − B ≤ R·(1 − e^(−(T−θ)/τ)). `None` when the spec time is not longer than the dead time.
+pub fn largest_compliant_step(m: &Fopdt, h: f64, spec: &Spec) -> Option<f64> {
+    let avail = spec.settle_within_s - m.dead_time_s;
     if avail <= 0.0 {
         return None;
     }
     let reach = m.gain.abs() * h.max(0.0);
-    let by_time = reach * (1.0 - (-avail / m.time_constant_s).exp()) / (1.0 - b);
+    let moved = reach * (1.0 - (-avail / m.time_constant_s).exp());
+    let by_time = match spec.settle_band {
+        Some(band) => moved + band,
+        None => moved / (1.0 - spec.band_fraction(1.0)),
+    };
     Some(by_time.min(reach))
 }
 
@@ -210,8 +215,20 @@ mod tests {
 
     #[test]
     fn largest_compliant_step_inverts_t_star() {
-        let d = largest_compliant_step(&PLANT, 0.75, 0.02, 12.5939).unwrap();
+        let d = largest_compliant_step(&PLANT, 0.75, &Spec::within(12.5939)).unwrap();
         assert!((d - 1.0).abs() < 1e-4, "{d}");
+        // With an absolute band of 0.02 the same unit step is the largest (B = 0.02·|Δ| there).
+        let spec = Spec {
+            settle_band: Some(0.02),
+            ..Spec::within(12.5939)
+        };
+        let d = largest_compliant_step(&PLANT, 0.75, &spec).unwrap();
+        assert!((d - 1.0).abs() < 1e-4, "{d}");
+        let t = match min_settling_time_from(&PLANT, d, 0.02, 0.75) {
+            Reach::Reachable { t_star_s } => t_star_s,
+            Reach::Unreachable { .. } => panic!("reachable"),
+        };
+        assert!((t - 12.5939).abs() < 1e-3, "{t}");
     }
 
     #[test]

@@ -399,6 +399,9 @@ mod tests {
 
     fn setup() -> LoopSetup {
         LoopSetup {
+            units: crate::analysis::Units::default(),
+            controller: None,
+            actuator: None,
             tag: "TIC-1".into(),
             op: OpRange {
                 min: 0.0,
@@ -406,6 +409,7 @@ mod tests {
             },
             spec: Spec {
                 settle_band_pct: 2.0,
+                settle_band: None,
                 settle_within_s: 600.0,
                 max_overshoot_pct: Some(15.0),
             },

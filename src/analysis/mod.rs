@@ -39,7 +39,9 @@ pub use assess::{EpisodeResult, LoopReport, Recommendation, Verdict, analyze_loo
 pub use identify::{Fopdt, Model, Refusal};
 pub use mode::AutoValues;
 pub use series::{Series, SeriesError};
-pub use setup::{AnalysisOptions, LoopSetup, OpRange, Problem, Setting, Spec};
+pub use setup::{
+    ActuatorRating, AnalysisOptions, LoopSetup, OpRange, Problem, Setting, Spec, Units,
+};
 
 /// The caution every recommendation carries.
 pub const CAUTION: &str = "Advisory only: retuning, changing a spec and upgrading a utility are \

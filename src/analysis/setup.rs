@@ -3,6 +3,7 @@
 //! the command line and the demo build a [`LoopSetup`] and check it here; each edge names a
 //! refused [`Setting`] in its own spelling (a TOML key, a command-line flag).
 
+use super::controller::ControllerSetup;
 use super::identify;
 use serde::{Deserialize, Serialize};
 
@@ -14,6 +15,10 @@ pub struct Spec {
     /// Half-width of the settling band as a percentage of |Δ| (2 % by default).
     #[serde(default = "default_settle_band_pct")]
     pub settle_band_pct: f64,
+    /// Half-width of the settling band in PV units (e.g. ±0.5 °C); when given it replaces
+    /// `settle_band_pct`.
+    #[serde(default)]
+    pub settle_band: Option<f64>,
     /// The PV must be inside the band for good within this many seconds of the change.
     pub settle_within_s: f64,
     /// Largest allowed overshoot as a percentage of |Δ|; `None` when the spec sets none.
@@ -28,14 +33,38 @@ impl Spec {
     pub fn within(settle_within_s: f64) -> Spec {
         Spec {
             settle_band_pct: Spec::DEFAULT_SETTLE_BAND_PCT,
+            settle_band: None,
             settle_within_s,
             max_overshoot_pct: None,
         }
     }
 
-    /// The band as a fraction of |Δ| (0.02 for 2 %).
-    pub fn band_fraction(&self) -> f64 {
-        crate::units::pct_to_fraction(self.settle_band_pct)
+    /// The band's half-width in PV units for a change of `delta`: `settle_band` when the spec
+    /// gives one, else `settle_band_pct` of |Δ|.
+    pub fn band_abs(&self, delta: f64) -> f64 {
+        self.settle_band
+            .unwrap_or_else(|| crate::units::pct_to_fraction(self.settle_band_pct) * delta.abs())
+    }
+
+    /// The band for a change of `delta` as a fraction of |Δ| (0.02 for 2 %); at least 1 when an
+    /// absolute band is wider than the change (the change is then settled from the start).
+    pub fn band_fraction(&self, delta: f64) -> f64 {
+        match self.settle_band {
+            Some(b) if delta != 0.0 => b / delta.abs(),
+            Some(_) => 1.0,
+            None => crate::units::pct_to_fraction(self.settle_band_pct),
+        }
+    }
+
+    /// The band as the spec states it, for people: `±0.5 °C` or `±2 % of the change`.
+    pub fn band_words(&self, pv_unit: &str) -> String {
+        match self.settle_band {
+            Some(b) => format!("±{}", crate::units::quantity(b, pv_unit)),
+            None => format!(
+                "±{} of the change",
+                crate::units::quantity(self.settle_band_pct, "%")
+            ),
+        }
     }
 
     /// Every problem with the spec's numbers, in the order of its fields.
@@ -46,6 +75,15 @@ impl Spec {
                 Setting::SettleBandPct,
                 "must be above 0 and below 100 %",
                 self.settle_band_pct,
+            ));
+        }
+        if let Some(b) = self.settle_band
+            && !(b.is_finite() && b > 0.0)
+        {
+            out.push(Problem::new(
+                Setting::SettleBand,
+                "must be a positive number of PV units",
+                b,
             ));
         }
         if !(self.settle_within_s.is_finite() && self.settle_within_s > 0.0) {
@@ -117,7 +155,7 @@ impl OpRange {
             out.push(Problem {
                 setting: Setting::OpMin,
                 requirement: "must be below the upper OP limit",
-                got: self.min,
+                got: Some(self.min),
                 other: Some((Setting::OpMax, self.max)),
             });
         }
@@ -228,6 +266,54 @@ impl Default for AnalysisOptions {
     }
 }
 
+/// The engineering units people read a loop's numbers in (display only: the analysis works in
+/// whatever units the data comes in).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Units {
+    /// The PV's unit, e.g. `°C`; empty when not known.
+    pub pv: String,
+    /// The OP's unit, `%` unless the loop says otherwise.
+    pub op: String,
+}
+
+impl Default for Units {
+    fn default() -> Self {
+        Units {
+            pv: String::new(),
+            op: Units::DEFAULT_OP.to_owned(),
+        }
+    }
+}
+
+impl Units {
+    /// The OP's unit when none is given: % of output (common practice).
+    pub const DEFAULT_OP: &'static str = "%";
+}
+
+/// The actuator's rating at the full OP range (from the lower to the upper OP limit), in a
+/// physical unit of its own: a heater's kW, a valve's Cv, a pump's flow. Capacity advice is
+/// then also given in that unit, assuming the actuator's effect is linear in its OP.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ActuatorRating {
+    pub rating: f64,
+    pub unit: String,
+}
+
+impl ActuatorRating {
+    fn problems(&self) -> Vec<Problem> {
+        if self.rating.is_finite() && self.rating > 0.0 {
+            Vec::new()
+        } else {
+            vec![Problem::new(
+                Setting::ActuatorRating,
+                "must be a positive number",
+                self.rating,
+            )]
+        }
+    }
+}
+
 /// Everything the analysis needs to know about a loop besides its data.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LoopSetup {
@@ -236,16 +322,23 @@ pub struct LoopSetup {
     pub op: OpRange,
     pub spec: Spec,
     pub options: AnalysisOptions,
+    pub units: Units,
+    /// The controller, when described: its form, units and today's settings.
+    pub controller: Option<ControllerSetup>,
+    pub actuator: Option<ActuatorRating>,
 }
 
 impl LoopSetup {
-    /// A setup with the default OP range and options.
+    /// A setup with the default OP range, options and units, and no controller described.
     pub fn new(tag: impl Into<String>, spec: Spec) -> LoopSetup {
         LoopSetup {
             tag: tag.into(),
             op: OpRange::DEFAULT,
             spec,
             options: AnalysisOptions::default(),
+            units: Units::default(),
+            controller: None,
+            actuator: None,
         }
     }
 
@@ -259,6 +352,12 @@ impl LoopSetup {
         let mut out = self.op.problems();
         out.extend(self.spec.problems());
         out.extend(self.options.problems());
+        if let Some(c) = &self.controller {
+            out.extend(c.problems());
+        }
+        if let Some(a) = &self.actuator {
+            out.extend(a.problems());
+        }
         out
     }
 
@@ -276,6 +375,7 @@ impl LoopSetup {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Setting {
     SettleBandPct,
+    SettleBand,
     SettleWithinS,
     MaxOvershootPct,
     OpMin,
@@ -285,6 +385,11 @@ pub enum Setting {
     MaxGapS,
     ExpectedPeriodS,
     UpgradeRatioLimit,
+    PvRange,
+    ControllerGain,
+    ControllerIntegral,
+    ControllerDerivative,
+    ActuatorRating,
 }
 
 impl Setting {
@@ -292,6 +397,7 @@ impl Setting {
     pub fn key(self) -> &'static str {
         match self {
             Setting::SettleBandPct => "settle_band_pct",
+            Setting::SettleBand => "settle_band",
             Setting::SettleWithinS => "settle_within_s",
             Setting::MaxOvershootPct => "max_overshoot_pct",
             Setting::OpMin => "op_min",
@@ -301,6 +407,11 @@ impl Setting {
             Setting::MaxGapS => "max_gap_s",
             Setting::ExpectedPeriodS => "expected_period_s",
             Setting::UpgradeRatioLimit => "upgrade_ratio_limit",
+            Setting::PvRange => "pv_range",
+            Setting::ControllerGain => "gain",
+            Setting::ControllerIntegral => "integral",
+            Setting::ControllerDerivative => "derivative",
+            Setting::ActuatorRating => "rating",
         }
     }
 }
@@ -312,16 +423,27 @@ impl Setting {
 pub struct Problem {
     pub setting: Setting,
     pub requirement: &'static str,
-    pub got: f64,
+    /// The value given; `None` when the setting is missing.
+    pub got: Option<f64>,
     pub other: Option<(Setting, f64)>,
 }
 
 impl Problem {
-    fn new(setting: Setting, requirement: &'static str, got: f64) -> Problem {
+    pub(crate) fn new(setting: Setting, requirement: &'static str, got: f64) -> Problem {
         Problem {
             setting,
             requirement,
-            got,
+            got: Some(got),
+            other: None,
+        }
+    }
+
+    /// A setting that is needed but not given.
+    pub(crate) fn missing(setting: Setting, requirement: &'static str) -> Problem {
+        Problem {
+            setting,
+            requirement,
+            got: None,
             other: None,
         }
     }
@@ -333,16 +455,14 @@ impl Problem {
             Some((other, value)) => format!(
                 "{} ({}) must be below {} ({})",
                 name(self.setting),
-                self.got,
+                self.got.unwrap_or(f64::NAN),
                 name(other),
                 value
             ),
-            None => format!(
-                "{} {} (got {})",
-                name(self.setting),
-                self.requirement,
-                self.got
-            ),
+            None => match self.got {
+                Some(got) => format!("{} {} (got {got})", name(self.setting), self.requirement),
+                None => format!("{} {}", name(self.setting), self.requirement),
+            },
         }
     }
 }
@@ -358,13 +478,15 @@ mod tests {
     #[test]
     fn a_default_setup_passes() {
         assert_eq!(setup().validate(), Ok(()));
-        assert_eq!(setup().spec.band_fraction(), 0.02);
+        assert_eq!(setup().spec.band_fraction(5.0), 0.02);
+        assert_eq!(setup().spec.band_abs(-5.0), 0.1);
     }
 
     #[test]
     fn each_bad_number_is_named_by_its_setting() {
         type Spoil = fn(&mut LoopSetup);
-        let cases: [(Spoil, Setting); 9] = [
+        let cases: [(Spoil, Setting); 10] = [
+            (|s| s.spec.settle_band = Some(0.0), Setting::SettleBand),
             (|s| s.spec.settle_band_pct = 0.0, Setting::SettleBandPct),
             (|s| s.spec.settle_band_pct = 100.0, Setting::SettleBandPct),
             (
@@ -387,6 +509,18 @@ mod tests {
             let problem = s.validate().expect_err("refused");
             assert_eq!(problem.setting, setting, "{problem}");
         }
+    }
+
+    #[test]
+    fn an_absolute_band_replaces_the_percentage() {
+        let mut spec = Spec::within(60.0);
+        spec.settle_band = Some(0.5);
+        assert_eq!(spec.band_abs(10.0), 0.5);
+        assert_eq!(spec.band_abs(-2.0), 0.5);
+        assert_eq!(spec.band_fraction(-2.0), 0.25);
+        assert_eq!(spec.band_fraction(0.0), 1.0);
+        assert_eq!(spec.band_words("°C"), "±0.500 °C");
+        assert_eq!(Spec::within(60.0).band_words("°C"), "±2.00 % of the change");
     }
 
     #[test]

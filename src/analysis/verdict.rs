@@ -503,6 +503,7 @@ mod tests {
     fn spec() -> Spec {
         Spec {
             settle_band_pct: 2.0,
+            settle_band: None,
             settle_within_s: 600.0,
             max_overshoot_pct: Some(10.0),
         }

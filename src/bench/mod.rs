@@ -327,6 +327,9 @@ fn ours_per_episode(dir: &Path, repeat: usize) -> anyhow::Result<f64> {
                 .with_context(|| format!("manifest entry without {k}"))
         };
         let setup = LoopSetup {
+            units: crate::analysis::Units::default(),
+            controller: None,
+            actuator: None,
             tag: "bench".into(),
             op: OpRange {
                 min: num("op_min")?,
@@ -334,6 +337,7 @@ fn ours_per_episode(dir: &Path, repeat: usize) -> anyhow::Result<f64> {
             },
             spec: Spec {
                 settle_band_pct: num("settle_band_pct")?,
+                settle_band: None,
                 settle_within_s: num("settle_within_s")?,
                 max_overshoot_pct: None,
             },

@@ -1,5 +1,6 @@
 //! `headroom analyze`: one loop's CSV export, analysed offline.
 
+use super::controller_flags::LoopFlags;
 use super::{Failure, Usage};
 use crate::analysis::{self, AutoValues, LoopSetup, Spec};
 use crate::config::Config;
@@ -68,6 +69,8 @@ pub struct AnalyzeArgs {
     /// Name to show for the loop (default: the --loop tag or the file name).
     #[arg(long, value_name = "TAG")]
     pub tag: Option<String>,
+    #[command(flatten)]
+    pub describe: LoopFlags,
 }
 
 impl AnalyzeArgs {
@@ -129,6 +132,7 @@ impl AnalyzeArgs {
         if let Some(t) = &self.tag {
             setup.tag = t.clone();
         }
+        self.describe.apply(&mut setup);
         setup.validate().map_err(Failure::Setting)?;
         Ok((setup, csv))
     }

@@ -131,6 +131,12 @@ pub fn analyze_flag(setting: Setting) -> &'static str {
         Setting::OpMax => "--op-max",
         Setting::SpDeadband => "--sp-deadband",
         Setting::MaxGapS => "--max-gap-s",
+        Setting::SettleBand => "--settle-band",
+        Setting::PvRange => "--pv-range",
+        Setting::ControllerGain => "--current-gain",
+        Setting::ControllerIntegral => "--current-integral",
+        Setting::ControllerDerivative => "--current-derivative",
+        Setting::ActuatorRating => "--actuator-rating",
         other => other.key(),
     }
 }

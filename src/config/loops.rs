@@ -6,7 +6,10 @@
 use super::error::Checker;
 use super::raw::{AnalysisConfig, RawLoop, RawSource};
 use super::source::{Context, ModeSource, Source};
-use crate::analysis::{self, AnalysisOptions, LoopSetup, OpRange, Setting, Spec};
+use crate::analysis::controller::ControllerSetup;
+use crate::analysis::{
+    self, ActuatorRating, AnalysisOptions, LoopSetup, OpRange, Setting, Spec, Units,
+};
 use crate::sample::Signal;
 use std::time::Duration;
 
@@ -33,6 +36,10 @@ pub struct LoopConfig {
     pub pv: Option<Source>,
     pub op: Option<Source>,
     pub mode: Option<ModeSource>,
+    /// The controller's form, units and today's settings, when described.
+    pub controller: Option<ControllerSetup>,
+    /// The actuator's rating at its full OP range, when given.
+    pub actuator: Option<ActuatorRating>,
 }
 
 impl LoopConfig {
@@ -71,39 +78,41 @@ impl LoopConfig {
 
     /// Turns the loop's section into an analysis setup, checking the spec's values.
     pub fn setup(&self, tag: &str) -> Result<LoopSetup, analysis::Problem> {
-        let op = OpRange {
-            min: self.op_min,
-            max: self.op_max,
-        };
-        let setup = setup_as_written(tag, op, self.spec, &self.analysis, self.expected_period_s);
+        let setup = self.setup_as_written(tag);
         setup.validate()?;
         Ok(setup)
     }
 }
 
-/// A loop's analysis setup as written, before the core's validation.
-fn setup_as_written(
-    tag: &str,
-    op: OpRange,
-    spec: Spec,
-    analysis: &AnalysisConfig,
-    expected_period_s: Option<f64>,
-) -> LoopSetup {
-    let mut options = AnalysisOptions {
-        sp_deadband: analysis.sp_deadband,
-        sp_hold_s: analysis.sp_hold_s,
-        max_gap_s: analysis.max_gap_s,
-        expected_period_s,
-        ..AnalysisOptions::default()
-    };
-    if let Some(r) = analysis.upgrade_ratio_limit {
-        options.upgrade_ratio_limit = r;
-    }
-    LoopSetup {
-        tag: tag.to_owned(),
-        op,
-        spec,
-        options,
+impl LoopConfig {
+    /// The loop's analysis setup as written, before the core's validation.
+    fn setup_as_written(&self, tag: &str) -> LoopSetup {
+        let a = &self.analysis;
+        let mut options = AnalysisOptions {
+            sp_deadband: a.sp_deadband,
+            sp_hold_s: a.sp_hold_s,
+            max_gap_s: a.max_gap_s,
+            expected_period_s: self.expected_period_s,
+            ..AnalysisOptions::default()
+        };
+        if let Some(r) = a.upgrade_ratio_limit {
+            options.upgrade_ratio_limit = r;
+        }
+        LoopSetup {
+            tag: tag.to_owned(),
+            op: OpRange {
+                min: self.op_min,
+                max: self.op_max,
+            },
+            spec: self.spec,
+            options,
+            units: Units {
+                pv: self.pv_unit.clone(),
+                op: self.op_unit.clone(),
+            },
+            controller: self.controller,
+            actuator: self.actuator.clone(),
+        }
     }
 }
 
@@ -111,7 +120,15 @@ fn setup_as_written(
 /// it is written there. An inverted range is reported at `op_max`, the end usually mistyped.
 fn setting_keys<'a>(tag: &'a str, p: &analysis::Problem) -> Vec<&'a str> {
     let section = match p.setting {
-        Setting::SettleBandPct | Setting::SettleWithinS | Setting::MaxOvershootPct => Some("spec"),
+        Setting::SettleBandPct
+        | Setting::SettleBand
+        | Setting::SettleWithinS
+        | Setting::MaxOvershootPct => Some("spec"),
+        Setting::PvRange
+        | Setting::ControllerGain
+        | Setting::ControllerIntegral
+        | Setting::ControllerDerivative => Some("controller"),
+        Setting::ActuatorRating => Some("actuator"),
         Setting::SpDeadband | Setting::SpHoldS | Setting::MaxGapS | Setting::UpgradeRatioLimit => {
             Some("analysis")
         }
@@ -141,14 +158,6 @@ impl Checker<'_> {
         if let Some(m) = tag_problem(tag) {
             self.problem(&["loops", tag], m);
         }
-        let op = OpRange {
-            min: raw.op_min,
-            max: raw.op_max,
-        };
-        let written = setup_as_written(tag, op, raw.spec, &raw.analysis, raw.expected_period_s);
-        for p in written.problems() {
-            self.problem(&setting_keys(tag, &p), p.to_string());
-        }
         let stale_after_periods = raw
             .stale_after_periods
             .unwrap_or(LoopConfig::DEFAULT_STALE_AFTER_PERIODS);
@@ -170,7 +179,7 @@ impl Checker<'_> {
             }),
         };
         self.watched_loop(tag, &signals, raw.expected_period_s);
-        LoopConfig {
+        let l = LoopConfig {
             description: raw.description,
             pv_unit: raw.pv_unit,
             op_unit: raw.op_unit,
@@ -184,7 +193,13 @@ impl Checker<'_> {
             pv: signals.pv,
             op: signals.op,
             mode: signals.mode,
+            controller: raw.controller,
+            actuator: raw.actuator,
+        };
+        for p in l.setup_as_written(tag).problems() {
+            self.problem(&setting_keys(tag, &p), p.to_string());
         }
+        l
     }
 
     /// A loop with any source is watched, and then needs all of sp, pv and op, and a period.
@@ -267,6 +282,64 @@ mod tests {
         let err = refusal_in(&bad, "p.toml");
         assert!(err.contains("settle_within_s"), "{err}");
         assert!(err.starts_with("p.toml:7:"), "{err}");
+    }
+
+    const DESCRIBED: &str = r#"
+[loops.TIC-101.controller]
+form = "series"
+gain_unit = "proportional_band"
+integral_unit = "minutes"
+pv_range = [0.0, 150.0]
+action = "reverse"
+gain = 80.0
+integral = 4.0
+[loops.TIC-101.actuator]
+rating = 12.0
+unit = "kW"
+"#;
+
+    #[test]
+    fn the_controller_and_the_actuator_are_read_into_the_setup() {
+        use crate::analysis::controller::{Form, GainUnit, IntegralUnit};
+        let cfg = crate::config::Config::parse(&format!("{GOOD}{DESCRIBED}"), "p.toml".as_ref())
+            .expect("valid");
+        let setup = cfg.loops["TIC-101"].setup("TIC-101").unwrap();
+        let c = setup.controller.expect("described");
+        assert_eq!(
+            (c.form, c.gain_unit, c.integral_unit, c.gain, c.integral),
+            (
+                Form::Series,
+                GainUnit::ProportionalBand,
+                IntegralUnit::Minutes,
+                Some(80.0),
+                Some(4.0)
+            )
+        );
+        let a = setup.actuator.expect("rated");
+        assert_eq!((a.rating, a.unit.as_str()), (12.0, "kW"));
+        assert_eq!(setup.units.op, "%");
+    }
+
+    #[test]
+    fn a_band_in_percent_of_span_without_the_pv_range_is_refused_at_its_key() {
+        let bad = format!("{GOOD}{DESCRIBED}").replace("pv_range = [0.0, 150.0]\n", "");
+        let err = refusal_in(&bad, "p.toml");
+        assert!(
+            err.contains("loops.TIC-101.controller.pv_range: pv_range is needed"),
+            "{err}"
+        );
+        let bad = format!("{GOOD}{DESCRIBED}").replace("gain = 80.0", "gain = -80.0");
+        let err = refusal_in(&bad, "p.toml");
+        assert!(
+            err.contains("controller.gain: gain must be a positive"),
+            "{err}"
+        );
+        let bad = format!("{GOOD}{DESCRIBED}").replace("form = \"series\"", "form = \"serial\"");
+        let err = refusal_in(&bad, "p.toml");
+        assert!(
+            err.contains("unknown variant") && err.contains("series"),
+            "{err}"
+        );
     }
 
     #[test]

@@ -2,7 +2,8 @@
 //! and unknown-key errors at their line before any validation runs. Everything here is unchecked;
 //! the [`super::Checker`] turns it into the public settings.
 
-use crate::analysis::Spec;
+use crate::analysis::controller::ControllerSetup;
+use crate::analysis::{ActuatorRating, Spec};
 use crate::modbus::registers::{DataType, Order, Table};
 use serde::Deserialize;
 use serde::de::IgnoredAny;
@@ -67,6 +68,9 @@ pub(super) struct RawLoop {
     pub pv: Option<RawSource>,
     pub op: Option<RawSource>,
     pub mode: Option<RawSource>,
+    /// The core's own types, read as they are and checked with the rest of the setup.
+    pub controller: Option<ControllerSetup>,
+    pub actuator: Option<ActuatorRating>,
 }
 
 fn default_op_unit() -> String {

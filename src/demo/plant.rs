@@ -635,6 +635,12 @@ mod tests {
 
     fn setup(d: &LoopDef) -> LoopSetup {
         LoopSetup {
+            units: crate::analysis::Units {
+                pv: d.pv_unit.into(),
+                op: crate::analysis::Units::DEFAULT_OP.into(),
+            },
+            controller: None,
+            actuator: None,
             tag: d.tag.into(),
             op: OpRange {
                 min: d.op_min(),
@@ -642,6 +648,7 @@ mod tests {
             },
             spec: Spec {
                 settle_band_pct: d.settle_band_pct,
+                settle_band: None,
                 settle_within_s: d.settle_within_s,
                 max_overshoot_pct: d.max_overshoot_pct,
             },

@@ -110,7 +110,7 @@ fn fastest_response(
 ) -> Option<(f64, Vec<(f64, f64)>)> {
     let delta = e.sp_to - e.sp_from;
     let m = e.model?;
-    let b = spec?.band_fraction();
+    let b = spec?.band_fraction(e.sp_to - e.sp_from);
     // The curve starts where the plant was at the change, and only a reported bound is drawn (a
     // bound the change beat is not one).
     let y0 = e.start_pv.unwrap_or(e.sp_from);
@@ -160,7 +160,7 @@ fn draw_pv_panel(
     pv_unit: &str,
     xs: std::ops::Range<f64>,
 ) -> DrawResult {
-    let band = spec.map(|sp| sp.band_fraction() * (e.sp_to - e.sp_from).abs());
+    let band = spec.map(|sp| sp.band_abs(e.sp_to - e.sp_from));
     let (lo, hi) = pv_axis(e, band, &p);
     let pv_label = if pv_unit.is_empty() {
         "SP, PV".to_string()

@@ -11,6 +11,9 @@ pub use headroom::analysis::sim::series;
 /// The setup of a simulated loop: its controller's OP range, `spec` and the default options.
 pub fn setup(tag: &str, controller: &PiController, spec: Spec) -> LoopSetup {
     LoopSetup {
+        units: headroom::analysis::Units::default(),
+        controller: None,
+        actuator: None,
         tag: tag.into(),
         op: OpRange {
             min: controller.op_min,

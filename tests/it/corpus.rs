@@ -103,6 +103,7 @@ fn random_loop(rng: &mut Rng) -> CorpusLoop {
         schedule,
         spec: Spec {
             settle_band_pct: 2.0,
+            settle_band: None,
             settle_within_s: spec_s,
             max_overshoot_pct: Some(25.0),
         },

@@ -23,6 +23,9 @@ async fn filled_store(path: &std::path::Path) -> (Store, i64) {
     let report = analyze_loop(
         &series,
         &LoopSetup {
+            units: headroom::analysis::Units::default(),
+            controller: None,
+            actuator: None,
             tag: "TIC-9".into(),
             op: OpRange {
                 min: 0.0,
@@ -30,6 +33,7 @@ async fn filled_store(path: &std::path::Path) -> (Store, i64) {
             },
             spec: Spec {
                 settle_band_pct: 2.0,
+                settle_band: None,
                 settle_within_s: 900.0,
                 max_overshoot_pct: None,
             },

@@ -51,6 +51,7 @@ fn vessel(kc: f64, ti: f64, op_max: f64, schedule: Vec<(f64, f64)>) -> Scenario 
         schedule,
         spec: Spec {
             settle_band_pct: 2.0,
+            settle_band: None,
             settle_within_s: 600.0,
             max_overshoot_pct: Some(10.0),
         },

@@ -244,6 +244,7 @@ pub(super) fn random_loop(family: Family, rng: &mut Rng) -> TrustLoop {
         schedule,
         spec: Spec {
             settle_band_pct: 100.0 * BAND,
+            settle_band: None,
             settle_within_s: spec_s,
             // Level loops commonly carry no overshoot limit (averaging level control; common
             // practice), and a PI on an integrating process overshoots a setpoint step.
