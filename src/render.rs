@@ -3,7 +3,7 @@
 
 use crate::analysis::assess::{LoopReport, Verdict};
 use crate::csvload::LoadReport;
-use crate::units::{fraction_to_pct, human_duration};
+use crate::units::{fraction_to_pct, human_duration, quantity};
 use std::io::Write;
 
 /// JSON: the loop report with the field names the design fixes, plus how the file was read.
@@ -34,72 +34,113 @@ fn absolute(origin: jiff::Timestamp, offset_s: f64) -> String {
 }
 
 fn opt_s(v: Option<f64>) -> String {
-    v.map_or("—".into(), |x| format!("{x:.0} s"))
+    v.map_or("—".into(), human_duration)
 }
 
 /// Text: a header with the spec and the data, one row per episode, then model, tally,
-/// recommendation and the caution.
+/// recommendation and the caution. Paragraphs wrap at the terminal's width (80 columns when
+/// the output is not a terminal).
 pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
-    header(report, load, out)?;
+    let width = textwrap::termwidth();
+    header(report, load, width, out)?;
     writeln!(out)?;
     if report.episodes.is_empty() {
         writeln!(out, "No setpoint changes found in the data.")?;
     } else {
-        episode_table(report, load, out)?;
+        episode_table(report, load, width, out)?;
     }
     writeln!(out)?;
     match (&report.model, &report.model_refusal) {
-        (Some(m), _) => writeln!(
+        (Some(m), _) => para(
             out,
-            "Process model ({}): {}; explains {:.2} % of PV variation ({} changes)",
-            m.kind().label(),
-            m.describe(),
-            fraction_to_pct(m.fit_r2),
-            m.episodes_used
+            width,
+            "",
+            &format!(
+                "Process model ({}): {}; explains {:.2} % of PV variation ({} changes)",
+                m.kind().label(),
+                m.describe(&report.units),
+                fraction_to_pct(m.fit_r2),
+                m.episodes_used
+            ),
         )?,
-        (None, Some(why)) => writeln!(out, "Process model: none — {why}")?,
+        (None, Some(why)) => para(out, width, "", &format!("Process model: none — {why}"))?,
         (None, None) => writeln!(out, "Process model: none")?,
     }
     writeln!(out, "Verdicts: {}", report.counts.tally())?;
     let r = &report.recommendation;
     writeln!(out)?;
     writeln!(out, "Recommendation: {}", r.action.label())?;
-    writeln!(out, "  {}", r.summary)?;
-    writeln!(out, "  {}", r.caution)?;
+    para(out, width, "  ", &r.summary)?;
+    for line in crate::analysis::advice::settings_lines(r, &report.units) {
+        para(out, width, "  ", &line)?;
+    }
+    for c in &r.cautions {
+        para(out, width, "  ", &format!("Check: {c}"))?;
+    }
+    para(out, width, "  ", r.caution)?;
+    Ok(())
+}
+
+/// A paragraph wrapped at `width`, each line indented by `indent`.
+fn para(out: &mut dyn Write, width: usize, indent: &str, text: &str) -> anyhow::Result<()> {
+    let options = textwrap::Options::new(width.max(40))
+        .initial_indent(indent)
+        .subsequent_indent(indent);
+    for line in textwrap::wrap(text, options) {
+        writeln!(out, "{line}")?;
+    }
     Ok(())
 }
 
 /// The spec, the data and how the file was read, and the changes that were not scored.
-fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
-    let spec = &report.spec;
-    let overshoot = spec
-        .max_overshoot_pct
-        .map_or(String::new(), |o| format!(", overshoot at most {o} %"));
-    writeln!(
+fn header(
+    report: &LoopReport,
+    load: &LoadReport,
+    width: usize,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
+    let (spec, u) = (&report.spec, &report.units);
+    let overshoot = spec.max_overshoot_pct.map_or(String::new(), |o| {
+        format!(", overshoot at most {}", quantity(o, "%"))
+    });
+    para(
         out,
-        "Loop {}   spec: within ±{} % of each change in {} s{}   OP range {} … {}",
-        report.tag,
-        spec.settle_band_pct,
-        spec.settle_within_s,
-        overshoot,
-        report.op_range.min,
-        report.op_range.max
+        width,
+        "",
+        &format!(
+            "Loop {}   spec: within {} in {}{}   OP range {} to {}",
+            report.tag,
+            spec.band_words(&u.pv),
+            human_duration(spec.settle_within_s),
+            overshoot,
+            quantity(report.op_range.min, &u.op),
+            quantity(report.op_range.max, &u.op)
+        ),
     )?;
     let d = &report.data;
-    writeln!(
+    para(
         out,
-        "Data: {} samples over {}, every {} s (median); PV noise σ ≈ {:.3}; {}",
-        d.samples,
-        human_duration(d.duration_s),
-        trim(d.median_sample_s),
-        d.pv_noise_sd,
-        crate::units::count(d.gaps, "data gap", "data gaps")
+        width,
+        "",
+        &format!(
+            "Data: {} samples over {}, every {} (median); PV noise σ ≈ {}; {}",
+            d.samples,
+            human_duration(d.duration_s),
+            human_duration(d.median_sample_s),
+            quantity(d.pv_noise_sd, &u.pv),
+            crate::units::count(d.gaps, "data gap", "data gaps")
+        ),
     )?;
     for note in load.notes() {
-        writeln!(out, "  input: {note}")?;
+        para(out, width, "  ", &format!("input: {note}"))?;
     }
     for f in &d.quality.findings {
-        writeln!(out, "  data quality: {}", f.describe(""))?;
+        para(
+            out,
+            width,
+            "  ",
+            &format!("data quality: {}", f.describe(&u.pv)),
+        )?;
     }
     let skipped = [
         (d.changes_in_manual, "in manual"),
@@ -123,12 +164,19 @@ fn header(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow
 fn episode_table(
     report: &LoopReport,
     load: &LoadReport,
+    width: usize,
     out: &mut dyn Write,
 ) -> anyhow::Result<()> {
+    let pv_unit = &report.units.pv;
+    let sp_head = if pv_unit.is_empty() {
+        "SP from → to".to_string()
+    } else {
+        format!("SP from → to ({pv_unit})")
+    };
     let header = [
         "#",
         "start",
-        "SP from → to",
+        sp_head.as_str(),
         "settled",
         "overshoot",
         "OP sat.",
@@ -150,7 +198,7 @@ fn episode_table(
                 start,
                 format!("{} → {}", trim(e.sp_from), trim(e.sp_to)),
                 opt_s(e.settling_time_s),
-                format!("{:.1} %", e.overshoot_pct),
+                quantity(e.overshoot_pct, "%"),
                 format!("{:.0} %", fraction_to_pct(e.saturation_duty)),
                 opt_s(e.min_settling_time_s),
                 e.verdict.label().to_string(),
@@ -179,20 +227,20 @@ fn episode_table(
         .iter()
         .enumerate()
         .filter(|(_, e)| e.verdict == Verdict::Inconclusive)
-        .map(|(i, e)| format!("  #{}: {}", i + 1, e.reason))
+        .map(|(i, e)| format!("#{}: {}", i + 1, e.reason))
         .collect();
     if !odd.is_empty() {
         writeln!(out, "Inconclusive:")?;
         for l in odd {
-            writeln!(out, "{l}")?;
+            para(out, width, "  ", &l)?;
         }
     }
-    watch_list(report, out)
+    watch_list(report, width, out)
 }
 
 /// The marginal verdicts, to watch: why each is marginal, its t* range, and the step that would
 /// decide it.
-fn watch_list(report: &LoopReport, out: &mut dyn Write) -> anyhow::Result<()> {
+fn watch_list(report: &LoopReport, width: usize, out: &mut dyn Write) -> anyhow::Result<()> {
     let marginal: Vec<(usize, &crate::analysis::EpisodeResult)> = report
         .episodes
         .iter()
@@ -210,17 +258,25 @@ fn watch_list(report: &LoopReport, out: &mut dyn Write) -> anyhow::Result<()> {
         let range = e
             .min_settling_time_range_s
             .map_or(String::new(), |[lo, hi]| {
-                format!(" (fastest possible settling {lo:.0}–{hi:.0} s)")
+                format!(
+                    " (fastest possible settling {} to {})",
+                    human_duration(lo),
+                    human_duration(hi)
+                )
             });
-        writeln!(
+        para(
             out,
-            "  #{}: {}{range} — {}",
-            i + 1,
-            e.verdict.label(),
-            e.confidence_reasons.join("; ")
+            width,
+            "  ",
+            &format!(
+                "#{}: {}{range} — {}",
+                i + 1,
+                e.verdict.label(),
+                e.confidence_reasons.join("; ")
+            ),
         )?;
         if let Some(x) = &e.deciding_step {
-            writeln!(out, "      to decide it: {}", x.plan)?;
+            para(out, width, "      ", &format!("to decide it: {}", x.plan))?;
         }
     }
     Ok(())

@@ -91,7 +91,7 @@ pub fn sig(x: f64, digits: usize) -> String {
         return "not defined".to_owned();
     }
     if x == 0.0 {
-        return format!("{:.*}", digits.saturating_sub(1), 0.0);
+        return "0".to_owned();
     }
     let magnitude = x.abs().log10().floor() as i64;
     let decimals = (digits as i64 - 1 - magnitude).max(0) as usize;
@@ -192,7 +192,7 @@ mod tests {
         assert_eq!(sig(-2.345, 2), "-2.3");
         assert_eq!(sig(9.996, 3), "10.0");
         assert_eq!(sig(99_960.0, 3), "99960");
-        assert_eq!(sig(0.0, 3), "0.00");
+        assert_eq!(sig(0.0, 3), "0");
         assert_eq!(sig(f64::NAN, 3), "not defined");
         assert_eq!(sig(f64::INFINITY, 3), "not defined");
         assert_eq!(quantity(75.04, "°C"), "75.0 °C");

@@ -5,13 +5,14 @@
 
 use super::bound::{self, Bound, Change, StartState};
 use super::confidence::{self, Confidence, Evidence, Stake};
+use super::controller::ControllerSetup;
 use super::feasibility;
 use super::identify::{self, IdSegment, Model, Refusal};
 use super::metrics::{self, OpRange, Response};
 use super::quality::{self, Effect, Finding, Survey};
 use super::segment::{self, EpisodeWindow, SegmentSettings};
 use super::verdict::{self, Capability, Context, Facts};
-use super::{LoopSetup, Series, Spec, stats};
+use super::{LoopSetup, Series, Spec, Units, stats};
 use serde::Serialize;
 
 pub use super::advice::{Action, ActuatorEvidence, Recommendation, recommend};
@@ -60,6 +61,10 @@ pub struct LoopReport {
     pub model_refusal: Option<String>,
     pub spec: Spec,
     pub op_range: OpRange,
+    /// The units people read the loop's numbers in.
+    pub units: Units,
+    /// The controller as described, when it is.
+    pub controller: Option<ControllerSetup>,
     pub data: DataSummary,
     pub counts: VerdictCounts,
     pub episodes: Vec<EpisodeResult>,
@@ -89,6 +94,8 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         model_refusal: a.model.as_ref().err().map(Refusal::to_string),
         spec: setup.spec,
         op_range: setup.op,
+        units: setup.units.clone(),
+        controller: setup.controller,
         data: a.data,
         counts: VerdictCounts::of(&a.episodes),
         episodes: a.episodes,
@@ -518,6 +525,7 @@ pub(crate) fn judge(
                 w.sp_to - state.pv,
                 spec_s,
                 &ms.plausible(sp.reach[1]),
+                &setup.units,
             ))
         }
         _ => None,

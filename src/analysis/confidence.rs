@@ -17,7 +17,9 @@
 
 use super::bound::{Spread, StartState};
 use super::quality::{Effect, Finding, Issue};
+use super::setup::Units;
 use super::verdict::Verdict;
+use crate::units::{human_duration, quantity};
 
 pub use super::trust::{Confidence, Experiment};
 
@@ -180,6 +182,7 @@ pub fn deciding_step(
     delta: f64,
     spec_s: f64,
     p: &Plausible,
+    units: &Units,
 ) -> Experiment {
     let dir = if delta >= 0.0 { 1.0 } else { -1.0 };
     let size = if p.reach_hi.is_finite() {
@@ -190,14 +193,17 @@ pub fn deciding_step(
     let hold_s = (p.dead_time_hi_s + 4.0 * p.time_constant_hi_s).max(spec_s);
     let to_sp = start.pv + dir * size;
     let plan = format!(
-        "With the loop at rest at PV {:.4} (OP {op_start:.1}), step the setpoint {} by {size:.4} to \
-         {to_sp:.4} and hold it for {hold_s:.0} s. The controller should drive the OP to its \
-         limit for at least {:.0} s; if it does not, the test is no better than today's data — a \
-         step of the OP to its limit in manual for that long, under the site's procedures, \
-         decides it instead.",
-        start.pv,
+        "With the loop at rest at PV {} (OP {}), step the setpoint {} by {} to {} and hold it \
+         for {}. The controller should drive the OP to its limit for at least {}; if it does \
+         not, the test is no better than today's data — a step of the OP to its limit in manual \
+         for that long, under the site's procedures, decides it instead.",
+        quantity(start.pv, &units.pv),
+        quantity(op_start, &units.op),
         if dir > 0.0 { "up" } else { "down" },
-        p.time_constant_hi_s,
+        quantity(size, &units.pv),
+        quantity(to_sp, &units.pv),
+        human_duration(hold_s),
+        human_duration(p.time_constant_hi_s),
     );
     Experiment {
         from_pv: start.pv,
@@ -336,19 +342,24 @@ mod tests {
             time_constant_hi_s: 300.0,
             dead_time_hi_s: 20.0,
         };
-        let x = deciding_step(&start, 40.0, 5.0, 900.0, &p);
+        let units = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
+        let x = deciding_step(&start, 40.0, 5.0, 900.0, &p, &units);
         assert!(
             (x.step - 12.64).abs() < 1e-9 && (x.to_sp - 62.64).abs() < 1e-9,
             "{x:?}"
         );
         assert_eq!(x.hold_s, 1220.0);
         assert!(
-            x.plan.contains("step the setpoint up by 12.6400"),
+            x.plan
+                .contains("step the setpoint up by 12.6 °C to 62.6 °C and hold it for 20.3 min"),
             "{}",
             x.plan
         );
         // A change larger than that is itself the step; downwards keeps its sign.
-        let x = deciding_step(&start, 40.0, -15.0, 900.0, &p);
+        let x = deciding_step(&start, 40.0, -15.0, 900.0, &p, &units);
         assert_eq!(x.step, -15.0);
     }
 }

@@ -1,6 +1,8 @@
 //! What identification returns: a [`Model`] of one [`Family`], with the first-order equivalent
 //! the rest of the product reads, and the held-out scores of the families that were tried.
 
+use super::super::setup::Units;
+use crate::units::{DISPLAY_DIGITS, human_duration, quantity, sig};
 use serde::{Deserialize, Serialize, Serializer};
 
 use super::super::optimal::Plant;
@@ -206,20 +208,30 @@ impl Model {
         }
     }
 
-    /// The model's own parameters in words, with units (`PV/OP` for gains).
-    pub fn describe(&self) -> String {
+    /// The model's own parameters in words, with units: gains in PV units per OP unit, times as
+    /// s, min or h as fits.
+    pub fn describe(&self, units: &Units) -> String {
         let (k, tau, theta) = (self.gain, self.time_constant_s, self.dead_time_s);
+        let pv = if units.pv.is_empty() { "PV" } else { &units.pv };
+        let per = format!("{pv}/{}", units.op);
+        let g = |x: f64| format!("{} {per}", sig(x, DISPLAY_DIGITS));
+        let t = human_duration;
         match self.family {
-            Family::FirstOrder => {
-                format!("gain {k:.4} PV/OP, time constant {tau:.1} s, dead time {theta:.1} s")
-            }
+            Family::FirstOrder => format!(
+                "gain {}, time constant {}, dead time {}",
+                g(k),
+                t(tau),
+                t(theta)
+            ),
             Family::Integrating {
                 gain_per_s,
                 lag_s,
                 process_dead_time_s,
             } => format!(
-                "rate {gain_per_s:.3e} PV/s per OP unit, dead time {process_dead_time_s:.1} s{}",
-                lag_s.map_or(String::new(), |l| format!(", lag {l:.1} s"))
+                "rate {} {per} per minute, dead time {}{}",
+                sig(gain_per_s * 60.0, DISPLAY_DIGITS),
+                t(process_dead_time_s),
+                lag_s.map_or(String::new(), |l| format!(", lag {}", t(l)))
             ),
             Family::TwoDirection {
                 falling_gain,
@@ -227,17 +239,25 @@ impl Model {
                 falling_dead_time_s,
                 ..
             } => format!(
-                "rising: gain {k:.4} PV/OP, time constant {tau:.1} s, dead time {theta:.1} s; \
-                 falling: gain {falling_gain:.4} PV/OP, time constant \
-                 {falling_time_constant_s:.1} s, dead time {falling_dead_time_s:.1} s"
+                "rising: gain {}, time constant {}, dead time {}; falling: gain {}, time \
+                 constant {}, dead time {}",
+                g(k),
+                t(tau),
+                t(theta),
+                g(falling_gain),
+                t(falling_time_constant_s),
+                t(falling_dead_time_s)
             ),
             Family::SecondOrder {
                 first_time_constant_s,
                 second_time_constant_s,
                 process_dead_time_s,
             } => format!(
-                "gain {k:.4} PV/OP, time constants {first_time_constant_s:.1} s and \
-                 {second_time_constant_s:.1} s, dead time {process_dead_time_s:.1} s"
+                "gain {}, time constants {} and {}, dead time {}",
+                g(k),
+                t(first_time_constant_s),
+                t(second_time_constant_s),
+                t(process_dead_time_s)
             ),
             Family::OpDependentGain {
                 gain_at_op_min,
@@ -246,8 +266,13 @@ impl Model {
                 op_max,
                 ..
             } => format!(
-                "gain {gain_at_op_min:.4} PV/OP at OP {op_min} rising to {gain_at_op_max:.4} at \
-                 OP {op_max}, time constant {tau:.1} s, dead time {theta:.1} s"
+                "gain {} at OP {} rising to {} at OP {}, time constant {}, dead time {}",
+                g(gain_at_op_min),
+                quantity(op_min, &units.op),
+                g(gain_at_op_max),
+                quantity(op_max, &units.op),
+                t(tau),
+                t(theta)
             ),
         }
     }

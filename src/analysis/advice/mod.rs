@@ -9,9 +9,12 @@
 //! - otherwise the actuator: upgrade when the capacity needed is at most the loop's
 //!   `upgrade_ratio_limit` times today's, else renegotiate the spec, with the numbers for both.
 
+mod actuator;
+
+pub use actuator::{ActuatorEvidence, Direction, actuator_action};
+
 use super::CAUTION;
-use super::feasibility::{self, Reach};
-use super::identify::{Fopdt, Model};
+use super::identify::{FamilyKind, Fopdt, Model};
 use super::setup::LoopSetup;
 use super::stats;
 use super::tuning::{self, PiSuggestion};
@@ -45,26 +48,6 @@ impl Action {
     }
 }
 
-/// Numbers behind an actuator-side recommendation.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct ActuatorEvidence {
-    /// The typical change of the episodes that missed for actuator reasons (signed).
-    pub typical_step: f64,
-    pub typical_op_start: f64,
-    /// t* for the typical change: no tuning can settle faster.
-    pub fastest_settling_time_s: Option<f64>,
-    /// What a PI tuned by SIMC (τc = θ) achieves on the model with today's OP limits.
-    pub practical_settling_time_s: Option<f64>,
-    /// The largest change that can meet today's spec from the typical operating point.
-    pub largest_compliant_step: Option<f64>,
-    /// The OP limit needed for the typical change to meet the spec.
-    pub required_op_limit: Option<f64>,
-    pub capacity_ratio: Option<f64>,
-    /// The capacity ratio the model's uncertainty allows (medians of the actuator-limited
-    /// changes' ranges).
-    pub capacity_ratio_range: Option<[f64; 2]>,
-}
-
 /// The loop's recommendation.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Recommendation {
@@ -72,7 +55,12 @@ pub struct Recommendation {
     /// One or two sentences with the numbers.
     pub summary: String,
     pub retune: Option<PiSuggestion>,
+    /// The actuator's numbers for the direction that decides the action.
     pub actuator: Option<ActuatorEvidence>,
+    /// The actuator's numbers for each direction of change with actuator-side misses.
+    pub per_direction: Vec<ActuatorEvidence>,
+    /// What to check before acting on the numbers (beside the general caution).
+    pub cautions: Vec<String>,
     /// Conclusive changes left out because their verdict is marginal.
     pub marginal: usize,
     pub caution: &'static str,
@@ -85,6 +73,8 @@ impl Recommendation {
             summary,
             retune: None,
             actuator: None,
+            per_direction: Vec::new(),
+            cautions: Vec::new(),
             marginal: 0,
             caution: CAUTION,
         }
@@ -205,6 +195,7 @@ impl Tally {
 /// What a retune or an actuator recommendation is worked out from.
 struct Basis<'a> {
     f: Fopdt,
+    kind: FamilyKind,
     setup: &'a LoopSetup,
     sample_s: f64,
     tally: Tally,
@@ -215,6 +206,7 @@ impl<'a> Basis<'a> {
     fn new(m: &Model, setup: &'a LoopSetup, sample_s: f64, tally: Tally) -> Basis<'a> {
         Basis {
             f: m.fopdt(),
+            kind: m.kind(),
             setup,
             sample_s,
             tally,
@@ -252,22 +244,31 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     let mut r = Recommendation::new(Action::Retune, retune_words(&pi, step, b.spec_s, b.tally));
     r.retune = Some(pi);
     if b.tally.actuator_misses() > 0 {
-        // The minority of misses that retuning cannot fix, with the step size that would.
-        let big: Vec<&EpisodeResult> = episodes
-            .iter()
-            .filter(|e| e.verdict.is_actuator_miss())
+        // The minority of misses that retuning cannot fix, with the step sizes that would.
+        r.per_direction = [Direction::Up, Direction::Down]
+            .into_iter()
+            .filter_map(|d| actuator::evidence(episodes, d, b))
             .collect();
-        let u0 = median(big.iter().map(|e| e.op_start));
-        let step = signed_median(big.iter().map(|e| e.sp_to - e.sp_from));
-        let dir = feasibility::op_direction(f.gain, step);
-        let h = feasibility::headroom(u0, dir, setup.op.min, setup.op.max);
-        let largest = feasibility::largest_compliant_step(f, h, &setup.spec);
+        let sizes: Vec<String> = r
+            .per_direction
+            .iter()
+            .filter_map(|e| {
+                Some(format!(
+                    "{} up to {} from OP {}",
+                    e.direction.changes(),
+                    crate::units::quantity(e.largest_compliant_step?, &setup.units.pv),
+                    crate::units::quantity(e.typical_op_start, &setup.units.op)
+                ))
+            })
+            .collect();
         r.summary.push_str(&format!(
             " Separately, {} asked more than the actuator can give{}.",
             crate::units::count(b.tally.actuator_misses(), "change", "changes"),
-            largest.map_or(String::new(), |d| format!(
-                "; from OP {u0:.1}, changes up to {d:.3} can meet the spec"
-            ))
+            if sizes.is_empty() {
+                String::new()
+            } else {
+                format!("; {} can meet the spec", sizes.join(" and "))
+            }
         ));
     }
     r
@@ -298,66 +299,30 @@ fn retune_words(pi: &PiSuggestion, step: f64, spec_s: f64, tally: Tally) -> Stri
     )
 }
 
-/// The numbers for the typical actuator-side change: t*, what a tight PI achieves, the largest
-/// change today's actuator meets the spec for, and the OP limit that would meet it.
-fn actuator_evidence(typical_step: f64, typical_u0: f64, b: &Basis) -> ActuatorEvidence {
-    let (f, op) = (&b.f, b.setup.op);
-    let band = b.setup.spec.band_fraction(typical_step);
-    let dir = feasibility::op_direction(f.gain, typical_step);
-    let h = feasibility::headroom(typical_u0, dir, op.min, op.max);
-    let fastest = match feasibility::min_settling_time(f, typical_step, h, band) {
-        Reach::Reachable { t_star_s } => Some(t_star_s),
-        Reach::Unreachable { .. } => None,
-    };
-    let tight =
-        tuning::tau_c_for_headroom(f, typical_step, f64::INFINITY, b.sample_s).max(f.dead_time_s);
-    let (kc, ti) = tuning::simc_pi(f, tight);
-    let practical = fastest
-        .and_then(|_| tuning::predict(f, kc, ti, typical_step, typical_u0, op, band, b.sample_s).0);
-    let required_h = feasibility::required_headroom(f, typical_step, band, b.spec_s);
-    let required_limit = required_h.map(|rh| typical_u0 + dir * rh);
-    ActuatorEvidence {
-        typical_step,
-        typical_op_start: typical_u0,
-        fastest_settling_time_s: fastest,
-        practical_settling_time_s: practical,
-        largest_compliant_step: feasibility::largest_compliant_step(f, h, &b.setup.spec),
-        required_op_limit: required_limit,
-        capacity_ratio: required_limit.map(|l| feasibility::capacity_ratio(l, dir, op)),
-        capacity_ratio_range: None,
-    }
-}
-
-/// Upgrade when the capacity a spec-meeting actuator needs is at most `ratio_limit` times
-/// today's; otherwise renegotiate the spec.
-pub fn actuator_action(e: &ActuatorEvidence, ratio_limit: f64) -> Action {
-    if e.capacity_ratio.is_some_and(|r| r <= ratio_limit) {
-        Action::Upgrade
-    } else {
-        Action::Renegotiate
-    }
-}
-
 fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
-    let (step, u0) = typical(episodes, Verdict::is_actuator_miss);
-    let mut evidence = actuator_evidence(step, u0, b);
-    // The typical change's capacity ratio, spread as the actuator-limited changes' own ratios
-    // spread over the model's plausible variants (medians of their relative range ends).
-    let spreads: Vec<(f64, f64)> = episodes
-        .iter()
-        .filter(|e| e.verdict.is_actuator_miss())
-        .filter_map(|e| Some((e.capacity_ratio_range?, e.capacity_ratio?)))
-        .filter(|(_, point)| *point > 0.0)
-        .map(|([lo, hi], point)| (lo / point, hi / point))
+    let per_direction: Vec<ActuatorEvidence> = [Direction::Up, Direction::Down]
+        .into_iter()
+        .filter_map(|d| actuator::evidence(episodes, d, b))
         .collect();
-    if let (false, Some(point)) = (spreads.is_empty(), evidence.capacity_ratio) {
-        let lo = median(spreads.iter().map(|s| s.0)).min(1.0);
-        let hi = median(spreads.iter().map(|s| s.1)).max(1.0);
-        evidence.capacity_ratio_range = Some([point * lo, point * hi]);
-    }
-    let action = actuator_action(&evidence, b.setup.options.upgrade_ratio_limit);
-    let mut r = Recommendation::new(action, actuator_words(action, &evidence, b.spec_s, b.tally));
-    r.actuator = Some(evidence);
+    // The direction with more misses decides (rises on a tie: heating up is the usual limit).
+    let Some(main) = per_direction
+        .iter()
+        .max_by_key(|e| (e.misses, e.direction == Direction::Up))
+        .cloned()
+    else {
+        return Recommendation::new(
+            Action::Undecided,
+            "No actuator-side miss to advise on.".into(),
+        );
+    };
+    let action = actuator::actuator_action(&main, b.setup.options.upgrade_ratio_limit);
+    let mut r = Recommendation::new(
+        action,
+        actuator::words(action, &main, &per_direction, b, b.tally),
+    );
+    r.cautions = actuator::cautions(&main, b);
+    r.actuator = Some(main);
+    r.per_direction = per_direction;
     if b.tally.c.tuning_limited > 0 {
         r.summary.push_str(&format!(
             " Separately, {} missed although the actuator had room: retuning would help {}.",
@@ -372,54 +337,21 @@ fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     r
 }
 
-fn actuator_words(action: Action, e: &ActuatorEvidence, spec_s: f64, tally: Tally) -> String {
-    let fastest_txt = e
-        .fastest_settling_time_s
-        .map_or("it cannot be reached at all".to_string(), |s| {
-            format!("the fastest possible settling is {s:.0} s")
-        });
-    let largest_txt = e
-        .largest_compliant_step
-        .map_or("no step".to_string(), |d| format!("steps up to {d:.3}"));
-    let head = format!(
-        "{} of {} conclusive changes missed the spec because of the actuator. For a typical \
-         {:+.3} change from OP {:.1}, {} (spec {:.0} s).",
-        tally.actuator_misses(),
-        tally.conclusive,
-        e.typical_step,
-        e.typical_op_start,
-        fastest_txt,
-        spec_s
-    );
-    let range_txt = e.capacity_ratio_range.map_or(String::new(), |[lo, hi]| {
-        let (lo, hi) = (format!("{lo:.2}"), format!("{hi:.2}"));
-        if lo == hi {
-            ", which the model's uncertainty moves by less than 0.01×".to_string()
-        } else {
-            format!(", plausibly {lo}–{hi}×")
-        }
-    });
-    if action == Action::Upgrade {
-        return format!(
-            "{head} Meeting it needs an OP limit of {:.1} ({:.2}× today's capacity{range_txt}); \
-             alternatively, today's actuator meets the spec for {largest_txt}.",
-            e.required_op_limit.unwrap_or(f64::NAN),
-            e.capacity_ratio.unwrap_or(f64::NAN)
-        );
-    }
-    let capacity_txt = match (e.required_op_limit, e.capacity_ratio) {
-        (Some(l), Some(k)) => {
-            format!("an upgrade would need an OP limit of {l:.1} ({k:.2}× today's capacity)")
-        }
-        _ => "no actuator can meet it, the spec time is within the dead time".to_string(),
+/// The recommendation's settings as people type them, one line each (empty without a retune).
+pub fn settings_lines(r: &Recommendation, units: &super::Units) -> Vec<String> {
+    let Some(pi) = &r.retune else {
+        return Vec::new();
     };
-    format!(
-        "{head} Renegotiate: today's actuator meets the spec for {largest_txt}, or allow about \
-         {} for typical changes; {capacity_txt}.",
-        e.practical_settling_time_s
-            .or(e.fastest_settling_time_s)
-            .map_or("more time".to_string(), |s| format!("{s:.0} s")),
-    )
+    let per = if units.pv.is_empty() {
+        format!("{} per PV unit", units.op)
+    } else {
+        format!("{}/{}", units.op, units.pv)
+    };
+    vec![format!(
+        "Suggested PI (ideal form): Kc {} {per}, Ti {}.",
+        crate::units::sig(pi.gain.abs(), crate::units::DISPLAY_DIGITS),
+        crate::units::human_duration(pi.integral_time_s)
+    )]
 }
 
 fn median(values: impl Iterator<Item = f64>) -> f64 {
@@ -464,14 +396,20 @@ mod tests {
     #[test]
     fn an_upgrade_within_the_ratio_limit_is_advised_else_renegotiation() {
         let e = |ratio: Option<f64>| ActuatorEvidence {
+            direction: Direction::Up,
+            misses: 3,
             typical_step: 5.0,
             typical_op_start: 80.0,
             fastest_settling_time_s: Some(900.0),
             practical_settling_time_s: Some(1100.0),
+            observed_settling_time_s: None,
+            achievable_settling_time_s: Some(1100.0),
             largest_compliant_step: Some(3.0),
             required_op_limit: ratio.map(|r| 100.0 * r),
             capacity_ratio: ratio,
             capacity_ratio_range: None,
+            required_rating: None,
+            rating_unit: None,
         };
         assert_eq!(actuator_action(&e(Some(1.5)), 1.5), Action::Upgrade);
         assert_eq!(actuator_action(&e(Some(1.51)), 1.5), Action::Renegotiate);
