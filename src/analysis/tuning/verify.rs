@@ -106,13 +106,14 @@ pub(super) fn step_response(
     let plant = SimPlant::of(model, target);
     let scale =
         plant.time_scale_s + closed_loop_time_s(model, ideal) + finite(ideal.integral_time_s);
-    // A thousand steps across the slowest time scale keep the discretisation error near 0.1 %
-    // of the change, far below what the model's own accuracy allows; twelve time scales see
-    // the response through.
+    // Ten thousand steps across the slowest time scale: the discrete controller's half-step
+    // of extra delay then moves an aggressive loop's overshoot by well under 0.1 point and its
+    // settling by under a sample (checked against a continuous reference in
+    // tests/reference/tuning_check.py); twelve time scales see the response through.
     // The step divides the sample interval, so the response is recorded on the loop's own
     // sample times (every few samples when that would make half a million of them).
     let sample_s = sample_s.max(1e-6);
-    let substeps = (sample_s / (scale / 1000.0).max(1e-4)).ceil().max(1.0);
+    let substeps = (sample_s / (scale / 10000.0).max(1e-4)).ceil().max(1.0);
     let step_s = sample_s / substeps;
     let duration = 12.0 * scale;
     let record_s = sample_s * (duration / 500_000.0 / sample_s).ceil().max(1.0);
