@@ -63,9 +63,11 @@ impl LoopSimConfig {
     }
 }
 
-/// A PI controller in velocity form acting on the error `SP − PV`, with the output clamped to
-/// the actuator range. The velocity form stops integrating while the output is clamped, which is
-/// the usual anti-windup of industrial controllers (common practice).
+/// A PI controller acting on the error `SP − PV`, with the output clamped to the actuator range.
+/// By default it runs in velocity form, which stops integrating while the output is clamped;
+/// [`LoopSim::with_clamping_anti_windup`] switches it to the positional form with conditional
+/// integration instead (both are usual anti-windup schemes of industrial controllers, common
+/// practice; they agree whenever the output is not clamped).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct PiController {
     /// Proportional gain Kc, OP units per PV unit. Its sign must match the process gain's sign.
@@ -151,6 +153,8 @@ pub struct LoopSim {
     pub disturbance: f64,
     /// When `false` the PV measurement freezes (a stale sensor) and the controller holds its output.
     pub sensor_ok: bool,
+    /// The integral part of the positional law (OP units, with the bias), when it is in use.
+    integral: Option<f64>,
 }
 
 /// One recorded sample.
@@ -196,7 +200,17 @@ impl LoopSim {
             steps: 0,
             disturbance: 0.0,
             sensor_ok: true,
+            integral: None,
         }
+    }
+
+    /// The same loop with the controller in positional form and clamping anti-windup: the
+    /// integral is frozen while the output is clamped and the error drives it further into the
+    /// clamp (conditional integration; Åström & Hägglund, *Advanced PID Control*, 2006, §3.5 —
+    /// from memory). Bumpless: the integral starts where it holds today's output.
+    pub fn with_clamping_anti_windup(mut self) -> LoopSim {
+        self.integral = Some(self.op - self.cfg.controller.gain * self.prev_error);
+        self
     }
 
     pub fn time_s(&self) -> f64 {
@@ -230,8 +244,21 @@ impl LoopSim {
         let h = self.cfg.step_s;
         if self.sensor_ok {
             let e = sp - self.pv_measured;
-            let du = c.gain * ((e - self.prev_error) + h / c.integral_time_s * e);
-            self.op = (self.op + du).clamp(c.op_min, c.op_max);
+            let di = c.gain * h / c.integral_time_s * e;
+            self.op = match self.integral.as_mut() {
+                None => {
+                    let du = c.gain * (e - self.prev_error) + di;
+                    (self.op + du).clamp(c.op_min, c.op_max)
+                }
+                Some(integral) => {
+                    let trial = c.gain * e + *integral + di;
+                    let deeper = (trial > c.op_max && di > 0.0) || (trial < c.op_min && di < 0.0);
+                    if !deeper {
+                        *integral += di;
+                    }
+                    (c.gain * e + *integral).clamp(c.op_min, c.op_max)
+                }
+            };
             self.prev_error = e;
         }
         self.step_plant();

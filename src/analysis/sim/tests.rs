@@ -329,3 +329,60 @@ fn a_watched_run_shows_the_loop_as_it_stands_at_each_change() {
         .unwrap();
     assert_eq!(at.op, seen[1].2);
 }
+
+fn saturating_loop() -> LoopSim {
+    LoopSim::new(LoopSimConfig {
+        process: Process {
+            dead_time_s: 2.0,
+            ..LAG
+        },
+        controller: PiController {
+            gain: 1.25,
+            integral_time_s: 10.0,
+            op_min: 0.0,
+            op_max: 0.9,
+        },
+        step_s: 0.01,
+        noise_sd: 0.0,
+        seed: 7,
+        initial_sp: 0.5,
+    })
+}
+
+#[test]
+fn both_controller_laws_agree_while_the_output_is_not_clamped() {
+    let small = |sim: LoopSim| {
+        let mut sim = sim;
+        sim.run(&[(1.0, 0.6)], 60.0, 0.5)
+    };
+    let velocity = small(saturating_loop());
+    let clamping = small(saturating_loop().with_clamping_anti_windup());
+    assert!(velocity.iter().all(|s| s.op < 0.9));
+    for (a, b) in velocity.iter().zip(&clamping) {
+        assert!((a.pv - b.pv).abs() < 1e-9 && (a.op - b.op).abs() < 1e-9);
+    }
+}
+
+#[test]
+fn clamping_anti_windup_freezes_the_integral_while_the_error_drives_into_the_clamp() {
+    let mut sim = saturating_loop().with_clamping_anti_windup();
+    let (mut frozen_steps, mut clamped_steps) = (0, 0);
+    for _ in 0..12_000 {
+        let before = sim.integral.unwrap();
+        sim.advance(1.5);
+        let e = 1.5 - sim.pv();
+        if sim.op() == 0.9 {
+            clamped_steps += 1;
+            // Driven further into the clamp: the integral must not move.
+            if e > 0.0 && sim.integral.unwrap() == before {
+                frozen_steps += 1;
+            }
+        }
+    }
+    assert!(clamped_steps > 100, "the large step must saturate");
+    assert!(
+        frozen_steps + 1 >= clamped_steps,
+        "{frozen_steps} of {clamped_steps}"
+    );
+    assert!((sim.pv_true() - 1.5).abs() < 1e-3, "{}", sim.pv_true());
+}
