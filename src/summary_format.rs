@@ -23,7 +23,10 @@ pub const PRODUCT_VERSION: &str = env!("CARGO_PKG_VERSION");
 /// changes the hash. SHA-256 is the hash of FIPS 180-4. One loop's hash is what `analyze --json`
 /// for that loop carries; a summary carries the hash of all its loops and each loop's own.
 pub fn settings_hash<'a>(setups: impl IntoIterator<Item = &'a LoopSetup>) -> String {
-    format!("sha256:{}", sha256_hex(canonical_settings(setups).as_bytes()))
+    format!(
+        "sha256:{}",
+        sha256_hex(canonical_settings(setups).as_bytes())
+    )
 }
 
 /// The canonical text [`settings_hash`] hashes.
@@ -183,8 +186,14 @@ mod tests {
     #[test]
     fn the_canonical_text_sorts_keys_and_loops() {
         let text = canonical_settings([&setup("B", 60.0), &setup("A", 60.0)]);
-        assert!(text.starts_with("[{\"op\":{\"max\":100.0,\"min\":0.0},\"options\":{"), "{text}");
-        assert!(text.find("\"tag\":\"A\"") < text.find("\"tag\":\"B\""), "{text}");
+        assert!(
+            text.starts_with("[{\"op\":{\"max\":100.0,\"min\":0.0},\"options\":{"),
+            "{text}"
+        );
+        assert!(
+            text.find("\"tag\":\"A\"") < text.find("\"tag\":\"B\""),
+            "{text}"
+        );
         assert!(!text.contains(' '), "{text}");
     }
 }

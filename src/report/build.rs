@@ -5,10 +5,10 @@
 //! [`super::trend`] for the numbers of each week), [`super::ranking`] orders the loops and
 //! [`super::quality`] words what is missing or odd.
 
+use super::evidence::Sources;
 use super::period::{Period, local, rfc3339_zoned};
 use super::quality;
 use super::ranking::{self, RankRow};
-use super::evidence::Sources;
 use super::section::{self, LoopSection, Status};
 use crate::store::{AlertRow, AlertState};
 use jiff::Timestamp;
@@ -144,8 +144,11 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             )
         })
         .collect();
-    let setups: Vec<&crate::analysis::LoopSetup> =
-        inputs.loops.iter().filter_map(|l| l.setup.as_ref()).collect();
+    let setups: Vec<&crate::analysis::LoopSetup> = inputs
+        .loops
+        .iter()
+        .filter_map(|l| l.setup.as_ref())
+        .collect();
     data_quality.extend(quality::stale_tags(&inputs.alerts, period, &tz));
     let ranking = ranking::rank(&mut loops);
     let changes = loops.iter().map(|l| l.stats.changes).sum();
@@ -180,7 +183,12 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             met,
             need_action,
             meeting_spec,
-            tiles: tiles(loops.len(), need_action, meeting_spec, (changes, judged, met)),
+            tiles: tiles(
+                loops.len(),
+                need_action,
+                meeting_spec,
+                (changes, judged, met),
+            ),
             ranking,
             open_alerts: open_alerts(&inputs.alerts, period),
             data_quality,
@@ -209,7 +217,15 @@ fn tiles(
             value: of(need_action, loops),
             words: format!(
                 "{} action",
-                verb(loops, "loop needs", if need_action == 1 { "loops needs" } else { "loops need" })
+                verb(
+                    loops,
+                    "loop needs",
+                    if need_action == 1 {
+                        "loops needs"
+                    } else {
+                        "loops need"
+                    }
+                )
             ),
         },
         Tile {

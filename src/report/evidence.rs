@@ -127,7 +127,10 @@ pub(super) fn worst_misses(
             (score, words, *e)
         })
         .collect();
-    misses.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.2.row.start_ms.cmp(&b.2.row.start_ms)));
+    misses.sort_by(|a, b| {
+        b.0.total_cmp(&a.0)
+            .then(a.2.row.start_ms.cmp(&b.2.row.start_ms))
+    });
     misses
         .into_iter()
         .take(WORST_MISSES)
@@ -144,7 +147,11 @@ pub(super) fn worst_misses(
 }
 
 /// The period's unreachable changes, oldest first.
-pub(super) fn unreachable(week: &[&Episode], pv_unit: &str, tz: &TimeZone) -> Vec<UnreachableChange> {
+pub(super) fn unreachable(
+    week: &[&Episode],
+    pv_unit: &str,
+    tz: &TimeZone,
+) -> Vec<UnreachableChange> {
     week.iter()
         .filter(|e| e.result.verdict == Verdict::Unreachable)
         .map(|e| {
@@ -213,7 +220,12 @@ fn data_commands(
     let mut analyze: Vec<String> = vec!["headroom".into(), "analyze".into(), file];
     match (&sources.config_file, setup) {
         (Some(config), _) => {
-            analyze.extend(["--config".into(), config.clone(), "--loop".into(), tag.into()]);
+            analyze.extend([
+                "--config".into(),
+                config.clone(),
+                "--loop".into(),
+                tag.into(),
+            ]);
         }
         (None, Some(s)) => {
             let mut flag = |name: &str, v: Option<f64>| {
@@ -262,7 +274,10 @@ mod tests {
 
     #[test]
     fn shell_words_are_quoted_only_when_needed() {
-        assert_eq!(shell_word("/tmp/plant/headroom.db"), "/tmp/plant/headroom.db");
+        assert_eq!(
+            shell_word("/tmp/plant/headroom.db"),
+            "/tmp/plant/headroom.db"
+        );
         assert_eq!(shell_word("2026-11-23T08:00:00Z"), "2026-11-23T08:00:00Z");
         assert_eq!(shell_word("my plant.db"), "'my plant.db'");
         assert_eq!(shell_word("it's"), r"'it'\''s'");

@@ -84,7 +84,14 @@ pub fn episode_svg(
         let (upper, lower) = root.split_vertically(270);
         draw_pv_panel(&upper, e, spec, pv, units.pv, (x_start..x_end, per))?;
         let axis = format!("{unit} after the setpoint change");
-        draw_op_panel(&lower, op, margin_pct, op_pts, units.op, (x_start..x_end, &axis))
+        draw_op_panel(
+            &lower,
+            op,
+            margin_pct,
+            op_pts,
+            units.op,
+            (x_start..x_end, &axis),
+        )
     })
 }
 
@@ -247,14 +254,20 @@ fn draw_pv_panel(
                 4,
                 BAND_COLOUR.stroke_width(2),
             ))?
-            .label(format!("spec time ({})", human_duration(sp.settle_within_s)))
+            .label(format!(
+                "spec time ({})",
+                human_duration(sp.settle_within_s)
+            ))
             .legend(line_key(BAND_COLOUR.stroke_width(2)));
     }
     line(&mut chart, p.sp, SP_COLOUR.stroke_width(1), "SP")?;
     line(&mut chart, p.pv, PV_COLOUR.stroke_width(2), "PV")?;
     if let Some(f) = p.fastest {
         let label = match f.t_star_s {
-            Some(t) => format!("fastest possible, OP at its limit (t* = {})", human_duration(t)),
+            Some(t) => format!(
+                "fastest possible, OP at its limit (t* = {})",
+                human_duration(t)
+            ),
             None => format!(
                 "OP held at its limit: levels off at {}, short of the SP (unreachable, no t*)",
                 quantity(f.plateau, pv_unit)

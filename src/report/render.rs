@@ -102,9 +102,14 @@ fn environment(trim_blocks: bool) -> Result<Environment<'static>, minijinja::Err
     env.add_filter("qty", |v: Option<f64>, unit: Option<String>| -> String {
         v.map_or("—".into(), |x| quantity(x, unit.as_deref().unwrap_or("")))
     });
-    env.add_filter("signed_qty", |v: Option<f64>, unit: Option<String>| -> String {
-        v.map_or("—".into(), |x| signed_quantity(x, unit.as_deref().unwrap_or("")))
-    });
+    env.add_filter(
+        "signed_qty",
+        |v: Option<f64>, unit: Option<String>| -> String {
+            v.map_or("—".into(), |x| {
+                signed_quantity(x, unit.as_deref().unwrap_or(""))
+            })
+        },
+    );
     env.add_filter("share", |v: Option<f64>| -> String {
         v.map_or("—".into(), |s| quantity(fraction_to_pct(s), "%"))
     });

@@ -518,7 +518,10 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> V
                 pi.expected_settling_time_s
                     .map_or("does not settle".into(), human_duration),
             ),
-            ("Expected overshoot", quantity(pi.expected_overshoot_pct, "%")),
+            (
+                "Expected overshoot",
+                quantity(pi.expected_overshoot_pct, "%"),
+            ),
         ]);
         if !pi.initial_move_fits_headroom {
             out.push((
@@ -539,8 +542,10 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> V
             ),
             (
                 "Fastest possible settling t*",
-                a.fastest_settling_time_s
-                    .map_or("none: unreachable with today's OP limit".into(), human_duration),
+                a.fastest_settling_time_s.map_or(
+                    "none: unreachable with today's OP limit".into(),
+                    human_duration,
+                ),
             ),
             (
                 "Settling achievable for the typical change (SIMC PI, τc = θ)",
@@ -562,7 +567,10 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> V
             (
                 "Capacity needed, as a ratio of today's",
                 a.capacity_ratio.map_or("not known".into(), |k| {
-                    format!("{} times", crate::units::sig(k, crate::units::DISPLAY_DIGITS))
+                    format!(
+                        "{} times",
+                        crate::units::sig(k, crate::units::DISPLAY_DIGITS)
+                    )
                 }),
             ),
         ]);
