@@ -170,7 +170,7 @@ impl Default for OpRange {
 }
 
 /// Tuning knobs of the analysis; every `None` is derived from the data.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct AnalysisOptions {
     /// SP moves no larger than this (SP units) are jitter. Default: 0.1 % of the largest |SP|.
     pub sp_deadband: Option<f64>,
@@ -315,7 +315,7 @@ impl ActuatorRating {
 }
 
 /// Everything the analysis needs to know about a loop besides its data.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct LoopSetup {
     /// The loop's tag, e.g. `TIC-101`.
     pub tag: String,

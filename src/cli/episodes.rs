@@ -3,8 +3,12 @@
 use super::Failure;
 use super::store::{StoreArgs, open_read_only, write_json};
 use super::time::parse_time;
-use crate::units::rfc3339;
+use crate::config::Config;
+use crate::report::evidence::change_words;
+use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION, settings_hash};
+use crate::units::{human_duration, quantity, rfc3339};
 use clap::Args;
+use std::collections::BTreeMap;
 use std::io::Write;
 
 #[derive(Debug, Args)]
@@ -17,18 +21,49 @@ pub struct EpisodesArgs {
     /// Only changes from this time on: RFC 3339, or an age such as 90m, 24h, 7d.
     #[arg(long, value_name = "TIME")]
     pub since: Option<String>,
+    /// Only changes that started before this time (not included): RFC 3339, or an age.
+    #[arg(long, value_name = "TIME")]
+    pub until: Option<String>,
+}
+
+/// What the configuration says about a loop, when `--config` gave one: its unit and the hash of
+/// its settings.
+struct LoopFacts {
+    pv_unit: String,
+    settings_hash: Option<String>,
+}
+
+fn loop_facts(args: &StoreArgs) -> Result<BTreeMap<String, LoopFacts>, Failure> {
+    let Some(path) = &args.config else {
+        return Ok(BTreeMap::new());
+    };
+    let config = Config::load(path)?;
+    Ok(config
+        .loops
+        .iter()
+        .map(|(tag, l)| {
+            let facts = LoopFacts {
+                pv_unit: l.pv_unit.clone(),
+                settings_hash: l.setup(tag).ok().map(|s| settings_hash([&s])),
+            };
+            (tag.clone(), facts)
+        })
+        .collect())
 }
 
 pub async fn episodes(args: &EpisodesArgs, out: &mut dyn Write) -> Result<(), Failure> {
-    let since = args
-        .since
-        .as_deref()
-        .map(|s| parse_time("--since", s))
-        .transpose()?;
+    let time = |flag, given: &Option<String>| given.as_deref().map(|s| parse_time(flag, s));
+    let since = time("--since", &args.since).transpose()?;
+    let until = time("--until", &args.until).transpose()?;
+    let facts = loop_facts(&args.store)?;
     let store = open_read_only(&args.store).await?;
-    let rows = store.episodes(args.loop_tag.as_deref(), since).await?;
+    let mut rows = store.episodes(args.loop_tag.as_deref(), since).await?;
+    rows.retain(|r| until.is_none_or(|u| r.start_ms < u));
     if args.store.json {
-        // The same fields as `analyze --json` per episode, plus loop, absolute start and state.
+        // The same fields as `analyze --json` per episode, plus loop, absolute start, state, and
+        // what every JSON document carries: the schema and product versions and the hash of the
+        // loop's settings in the configuration given (`null` without one; the store does not
+        // record the settings an episode was scored with).
         let list: Vec<serde_json::Value> = rows
             .iter()
             .map(|r| {
@@ -36,6 +71,12 @@ pub async fn episodes(args: &EpisodesArgs, out: &mut dyn Write) -> Result<(), Fa
                 v["loop"] = r.loop_tag.clone().into();
                 v["start_time"] = rfc3339(r.start_ms).into();
                 v["final"] = r.is_final.into();
+                v["schema_version"] = SCHEMA_VERSION.into();
+                v["version"] = PRODUCT_VERSION.into();
+                v["settings_hash"] = facts
+                    .get(&r.loop_tag)
+                    .and_then(|f| f.settings_hash.clone())
+                    .into();
                 v
             })
             .collect();
@@ -47,25 +88,27 @@ pub async fn episodes(args: &EpisodesArgs, out: &mut dyn Write) -> Result<(), Fa
     }
     writeln!(
         out,
-        "{:<12} {:<24} {:>18} {:>9} {:>9} {:>9}  verdict",
+        "{:<12} {:<24} {:>20} {:>10} {:>9} {:>10}  verdict",
         "loop", "start", "SP from → to", "settled", "overshoot", "fastest"
     )?;
     for r in rows {
         let d = &r.detail;
-        let secs = |k: &str| {
-            d[k].as_f64()
-                .map_or("—".to_string(), |x| format!("{x:.0} s"))
+        let duration = |k: &str| d[k].as_f64().map_or("—".to_string(), human_duration);
+        let unit = facts.get(&r.loop_tag).map_or("", |f| f.pv_unit.as_str());
+        let change = match (d["sp_from"].as_f64(), d["sp_to"].as_f64()) {
+            (Some(a), Some(b)) => change_words(a, b, unit),
+            _ => "—".to_string(),
         };
         writeln!(
             out,
-            "{:<12} {:<24} {:>18} {:>9} {:>8.1}% {:>9}  {}{}",
+            "{:<12} {:<24} {:>20} {:>10} {:>9} {:>10}  {}{}",
             r.loop_tag,
             rfc3339(r.start_ms),
-            format!("{} → {}", d["sp_from"], d["sp_to"]),
-            secs("settling_time_s"),
-            r.overshoot_pct,
-            secs("min_settling_time_s"),
-            r.verdict.as_str(),
+            change,
+            duration("settling_time_s"),
+            quantity(r.overshoot_pct, "%"),
+            duration("min_settling_time_s"),
+            r.verdict.label(),
             if r.is_final { "" } else { " (open)" }
         )?;
     }

@@ -66,9 +66,15 @@ pub async fn report(args: &ReportArgs, out: &mut dyn Write) -> Result<(), Failur
         _ => default_period(&store, &tz, now).await?,
     };
     let started = Instant::now();
-    let report = gather(&store, config.as_ref(), &period, now)
-        .await
-        .with_context(|| format!("cannot summarise {}", period.label))?;
+    let report = gather(
+        &store,
+        config.as_ref(),
+        args.config.as_deref(),
+        &period,
+        now,
+    )
+    .await
+    .with_context(|| format!("cannot summarise {}", period.label))?;
     match &args.out {
         None => {
             let text = render(&report, formats[0]).map_err(ReportError::from)?;

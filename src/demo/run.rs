@@ -658,8 +658,14 @@ async fn write_report(
             .context("the plant's clock left the calendar")
     };
     let period = Period::range(&at(from_ms)?, &at(to_ms)?, &tz)?;
-    let report =
-        crate::report::gather(store, Some(config), &period, jiff::Timestamp::now()).await?;
+    let report = crate::report::gather(
+        store,
+        Some(config),
+        Some(&files.config),
+        &period,
+        jiff::Timestamp::now(),
+    )
+    .await?;
     let dir = files.store.parent().unwrap_or(Path::new("."));
     let written = crate::report::write_files(&report, &period, &Format::ALL, dir)?;
     Ok(written.into_iter().map(|(p, _)| p).collect())

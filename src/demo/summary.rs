@@ -10,7 +10,7 @@ use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
 use crate::store::Store;
-use crate::units::fraction_to_pct;
+use crate::units::{DISPLAY_DIGITS, count, human_duration, sig};
 use anyhow::Context;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -137,20 +137,23 @@ fn link_word(l: Link) -> &'static str {
     }
 }
 
-fn seconds(s: Option<f64>) -> String {
+/// A typical settling time: a dash when there is none, `never` when most never settled.
+fn settling(s: Option<f64>) -> String {
     match s {
         None => "—".into(),
         Some(x) if !x.is_finite() => "never".into(),
-        Some(x) => format!("{x:.0} s"),
+        Some(x) => human_duration(x),
     }
 }
 
-fn wall(d: Duration) -> String {
-    let s = d.as_secs_f64();
-    if s < 60.0 {
-        format!("{s:.1} s")
+/// `3 of 4`: the judged changes that met the spec, out of the judged ones (a share would hide
+/// how few there were).
+fn met_of_judged(c: &VerdictCounts) -> String {
+    let judged = c.met + c.tuning_limited + c.actuator_limited + c.unreachable;
+    if judged == 0 {
+        "—".into()
     } else {
-        format!("{} min {:02.0} s", (s / 60.0).floor(), s % 60.0)
+        format!("{} of {judged}", c.met)
     }
 }
 
@@ -204,20 +207,19 @@ fn table(loops: &[LoopSummary], out: &mut dyn Write) -> std::io::Result<()> {
         .fold(36, usize::max);
     writeln!(
         out,
-        "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} advice",
+        "{:<8} {:<6} {:>7} {:>8}  {:>9} {:>9}  {:<misses_w$} advice",
         "loop", "via", "changes", "met", "settling", "spec", "misses"
     )?;
     for l in loops {
         writeln!(
             out,
-            "{:<8} {:<6} {:>7} {:>5}  {:>9} {:>7}  {:<misses_w$} {}",
+            "{:<8} {:<6} {:>7} {:>8}  {:>9} {:>9}  {:<misses_w$} {}",
             l.tag,
             link_word(l.link),
             l.episodes.len(),
-            l.met_share()
-                .map_or("—".into(), |m| format!("{:.0} %", fraction_to_pct(m))),
-            seconds(l.typical_settling_s()),
-            format!("{:.0} s", l.settle_within_s),
+            met_of_judged(&l.counts),
+            settling(l.typical_settling_s()),
+            human_duration(l.settle_within_s),
             misses(&l.counts),
             l.recommendation.action.label(),
         )?;
@@ -256,10 +258,10 @@ fn files_and_next_steps(files: &FilePaths, out: &mut dyn Write) -> std::io::Resu
 pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> std::io::Result<()> {
     writeln!(
         out,
-        "\nHeron Reach pilot plant: {:.1} days of plant time in {} ({:.0}× real time){}",
-        facts.simulated_s / 86_400.0,
-        wall(facts.wall),
-        facts.speed,
+        "\nHeron Reach pilot plant: {} of plant time in {} ({} times real time){}",
+        human_duration(facts.simulated_s),
+        human_duration(facts.wall.as_secs_f64()),
+        sig(facts.speed, DISPLAY_DIGITS),
         if facts.interrupted {
             ", interrupted"
         } else {
@@ -270,7 +272,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     table(loops, out)?;
     writeln!(
         out,
-        "(changes: setpoint changes scored; met: share of the conclusive ones that met the spec; \
+        "(changes: setpoint changes scored; met: of the conclusive ones, how many met the spec; \
          settling: typical, vs the spec's limit)"
     )?;
     writeln!(out, "\nRecommendations")?;
@@ -292,7 +294,11 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             l.alerts.iter().map(move |(k, n)| {
                 // People read the kind's display spelling; an unknown stored kind as stored.
                 let kind = AlertKind::parse(k).map_or_else(|| k.clone(), |k| k.label().into());
-                format!("{} {kind} ×{n}", l.tag)
+                format!(
+                    "{} {kind} ({})",
+                    l.tag,
+                    count(*n as usize, "alert", "alerts")
+                )
             })
         })
         .collect();
@@ -312,13 +318,8 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     if unreadable > 0 {
         writeln!(
             out,
-            "({} stored {} could not be read back and {} left out.)",
-            thousands(unreadable as u64),
-            if unreadable == 1 {
-                "episode"
-            } else {
-                "episodes"
-            },
+            "({} could not be read back and {} left out.)",
+            count(unreadable, "stored episode", "stored episodes"),
             if unreadable == 1 { "is" } else { "are" }
         )?;
     }
@@ -364,5 +365,20 @@ mod tests {
             "1 tuning-limited, 7 actuator-limited, 1 unreachable"
         );
         assert_eq!(misses(&VerdictCounts::default()), "—");
+    }
+
+    #[test]
+    fn met_reads_as_a_count_out_of_the_judged_changes() {
+        let c = VerdictCounts {
+            met: 3,
+            tuning_limited: 1,
+            actuator_limited: 0,
+            unreachable: 0,
+            inconclusive: 5,
+        };
+        assert_eq!(met_of_judged(&c), "3 of 4");
+        assert_eq!(met_of_judged(&VerdictCounts::default()), "—");
+        assert_eq!(settling(Some(f64::INFINITY)), "never");
+        assert_eq!(settling(Some(14_400.0)), "4.0 h");
     }
 }

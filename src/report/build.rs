@@ -5,10 +5,11 @@
 //! [`super::trend`] for the numbers of each week), [`super::ranking`] orders the loops and
 //! [`super::quality`] words what is missing or odd.
 
+use super::evidence::Sources;
 use super::period::{Period, local, rfc3339_zoned};
 use super::quality;
 use super::ranking::{self, RankRow};
-use super::section::{self, LoopSection};
+use super::section::{self, LoopSection, Status};
 use crate::store::{AlertRow, AlertState};
 use jiff::Timestamp;
 use serde::Serialize;
@@ -26,8 +27,10 @@ pub struct Inputs {
     /// Every alert in the store.
     pub alerts: Vec<AlertRow>,
     pub generated: Timestamp,
-    /// Where the data came from (the store file), for the header.
+    /// Where the data came from (the store file), for the header and the reproduce commands.
     pub source: String,
+    /// The configuration file, when there is one with a path, for the reproduce commands.
+    pub config_file: Option<String>,
     /// Whether a configuration was given (specs and OP ranges known).
     pub config_given: bool,
     /// The newest data time in the store (ms), to tell a period that is not over yet.
@@ -49,6 +52,9 @@ pub struct WeeklyReport {
     /// The JSON document's version and the product's.
     pub schema_version: u32,
     pub version: &'static str,
+    /// The hash of all the loops' settings the summary was made with
+    /// ([`crate::summary_format::settings_hash`]); `None` when no loop has a setup.
+    pub settings_hash: Option<String>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -73,6 +79,12 @@ pub struct PlantSummary {
     /// Of those, the ones with a verdict other than inconclusive.
     pub judged: usize,
     pub met: usize,
+    /// Loops whose status advises a change (retune, renegotiate, upgrade).
+    pub need_action: usize,
+    /// Loops whose judged changes all met the spec.
+    pub meeting_spec: usize,
+    /// The headline counts as people read them, each with what it counts out of.
+    pub tiles: Vec<Tile>,
     /// Loops by need for attention, most urgent first.
     pub ranking: Vec<RankRow>,
     /// Open alerts by kind.
@@ -80,9 +92,20 @@ pub struct PlantSummary {
     pub data_quality: Vec<String>,
 }
 
+/// A headline count: `2 of 4` over `loops need action`.
+#[derive(Debug, Clone, Serialize)]
+pub struct Tile {
+    pub value: String,
+    pub words: String,
+}
+
 #[derive(Debug, Clone, Serialize)]
 pub struct AlertCount {
+    /// As stored (the JSON spelling).
     pub kind: String,
+    /// As people read it ([`crate::alerts::AlertKind::label`]).
+    pub label: String,
+
     pub count: usize,
     pub loops: Vec<String>,
 }
@@ -104,6 +127,10 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
     if !inputs.config_given {
         data_quality.push(quality::NO_CONFIG.to_string());
     }
+    let sources = Sources {
+        store: inputs.source.clone(),
+        config_file: inputs.config_file.clone(),
+    };
     let mut loops: Vec<LoopSection> = inputs
         .loops
         .iter()
@@ -112,16 +139,26 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
                 l,
                 &inputs.periods,
                 &tz,
-                inputs.config_given,
+                (inputs.config_given, &sources),
                 &mut data_quality,
             )
         })
+        .collect();
+    let setups: Vec<&crate::analysis::LoopSetup> = inputs
+        .loops
+        .iter()
+        .filter_map(|l| l.setup.as_ref())
         .collect();
     data_quality.extend(quality::stale_tags(&inputs.alerts, period, &tz));
     let ranking = ranking::rank(&mut loops);
     let changes = loops.iter().map(|l| l.stats.changes).sum();
     let judged = loops.iter().map(|l| l.stats.judged).sum();
     let met = loops.iter().map(|l| l.stats.counts.met).sum();
+    let need_action = loops.iter().filter(|l| l.advises_change).count();
+    let meeting_spec = loops
+        .iter()
+        .filter(|l| l.status == Status::MeetsSpec)
+        .count();
     WeeklyReport {
         title: if period.week.is_some() {
             format!("Loop health, week {}", period.label)
@@ -144,6 +181,14 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
             changes,
             judged,
             met,
+            need_action,
+            meeting_spec,
+            tiles: tiles(
+                loops.len(),
+                need_action,
+                meeting_spec,
+                (changes, judged, met),
+            ),
             ranking,
             open_alerts: open_alerts(&inputs.alerts, period),
             data_quality,
@@ -153,7 +198,53 @@ pub fn build(inputs: &Inputs) -> WeeklyReport {
         definitions: DEFINITIONS.to_vec(),
         schema_version: crate::summary_format::SCHEMA_VERSION,
         version: crate::summary_format::PRODUCT_VERSION,
+        settings_hash: (!setups.is_empty())
+            .then(|| crate::summary_format::settings_hash(setups.iter().copied())),
     }
+}
+
+/// The headline counts, each out of what it counts, so no share hides how few there were.
+fn tiles(
+    loops: usize,
+    need_action: usize,
+    meeting_spec: usize,
+    (changes, judged, met): (usize, usize, usize),
+) -> Vec<Tile> {
+    let of = |n: usize, m: usize| format!("{n} of {m}");
+    let verb = |n: usize, one: &str, many: &str| if n == 1 { one } else { many }.to_string();
+    vec![
+        Tile {
+            value: of(need_action, loops),
+            words: format!(
+                "{} action",
+                verb(
+                    loops,
+                    "loop needs",
+                    if need_action == 1 {
+                        "loops needs"
+                    } else {
+                        "loops need"
+                    }
+                )
+            ),
+        },
+        Tile {
+            value: of(meeting_spec, loops),
+            words: verb(loops, "loop meets its spec", "loops meet their spec"),
+        },
+        Tile {
+            value: of(met, judged),
+            words: verb(
+                judged,
+                "judged change met the spec",
+                "judged changes met the spec",
+            ),
+        },
+        Tile {
+            value: changes.to_string(),
+            words: verb(changes, "setpoint change scored", "setpoint changes scored"),
+        },
+    ]
 }
 
 /// Open alerts by kind: raised before the period ended and still open.
@@ -171,7 +262,14 @@ fn open_alerts(alerts: &[AlertRow], period: &Period) -> Vec<AlertCount> {
     }
     by_kind
         .into_iter()
-        .map(|(kind, (count, loops))| AlertCount { kind, count, loops })
+        .map(|(kind, (count, loops))| AlertCount {
+            // An unknown stored kind reads as stored.
+            label: crate::alerts::AlertKind::parse(&kind)
+                .map_or_else(|| kind.clone(), |k| k.label().to_string()),
+            kind,
+            count,
+            loops,
+        })
         .collect()
 }
 

@@ -13,6 +13,7 @@
 //! `[report]` ([`schedule`]), keeps it in the store and writes it to the configured folder.
 
 pub mod build;
+pub mod evidence;
 pub mod period;
 pub mod plot;
 pub mod quality;
@@ -55,10 +56,12 @@ pub enum ReportError {
 
 /// Reads everything the summary of `period` needs from the store, and builds it with its plots.
 /// `config` supplies each loop's spec, OP range and description; without it the summary still
-/// shows what the store knows, and says what is missing.
+/// shows what the store knows, and says what is missing. `config_file`, the configuration's
+/// path when it has one, goes into the commands that reproduce the worst misses.
 pub async fn gather(
     store: &Store,
     config: Option<&Config>,
+    config_file: Option<&Path>,
     period: &Period,
     generated: Timestamp,
 ) -> Result<WeeklyReport, ReportError> {
@@ -92,6 +95,7 @@ pub async fn gather(
         alerts,
         generated,
         source: store.path().display().to_string(),
+        config_file: config_file.map(|p| p.display().to_string()),
         config_given: config.is_some(),
         newest_data_ms: store.newest_data_ms().await?,
     };
@@ -183,8 +187,7 @@ async fn draw(
             }
         }
         let Some(t) = &section.telling else { continue };
-        let span = t.end_ms - t.start_ms;
-        let from = t.start_ms - (span / 10).max(60_000);
+        let from = t.start_ms - evidence::lead_in_ms(t.end_ms - t.start_ms);
         let mut samples = plot::EpisodeSamples {
             sp: store
                 .samples(&section.tag, Signal::Sp, from, t.end_ms)
@@ -211,7 +214,10 @@ async fn draw(
             section.op_range.as_ref(),
             margin,
             &samples,
-            &section.pv_unit,
+            &plot::PlotUnits {
+                pv: &section.pv_unit,
+                op: &section.op_unit,
+            },
         ) {
             Ok(svg) => section.episode_svg = Some(svg),
             Err(e) => section

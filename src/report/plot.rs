@@ -9,7 +9,7 @@
 use super::section::TellingEpisode;
 use super::trend::TrendWeek;
 use crate::analysis::{OpRange, Spec};
-use crate::units::{fraction_to_pct, pct_to_fraction};
+use crate::units::{fraction_to_pct, human_duration, pct_to_fraction, quantity};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
@@ -24,10 +24,12 @@ pub struct EpisodeSamples {
 const INK: RGBColor = RGBColor(0x22, 0x2b, 0x33);
 const SP_COLOUR: RGBColor = RGBColor(0x22, 0x2b, 0x33);
 const PV_COLOUR: RGBColor = RGBColor(0x1f, 0x5f, 0x99);
-const BAND_COLOUR: RGBColor = RGBColor(0x4f, 0x9d, 0x69);
-const FASTEST_COLOUR: RGBColor = RGBColor(0xc2, 0x6a, 0x1b);
-const OP_COLOUR: RGBColor = RGBColor(0x6b, 0x3f, 0x8f);
-const LIMIT_COLOUR: RGBColor = RGBColor(0xa3, 0x33, 0x33);
+// No red, amber or green: those read as an alarm display's status colours, and the lines are
+// told apart by style and legend anyway.
+const BAND_COLOUR: RGBColor = RGBColor(0x3f, 0x7f, 0x8f);
+const FASTEST_COLOUR: RGBColor = RGBColor(0x8c, 0x4a, 0x8c);
+const OP_COLOUR: RGBColor = RGBColor(0x2d, 0x58, 0x73);
+const LIMIT_COLOUR: RGBColor = RGBColor(0x5b, 0x66, 0x70);
 const GRID: RGBColor = RGBColor(0xe6, 0xe9, 0xec);
 const GRID_BOLD: RGBColor = RGBColor(0xcf, 0xd5, 0xda);
 
@@ -37,6 +39,24 @@ const MAX_POINTS: usize = 1_200;
 
 const FONT: &str = "sans-serif";
 
+/// A time axis in the unit the text uses for a span this long (the choice of
+/// [`human_duration`], read back from its text so there is one rule): the unit's name and its
+/// length in seconds.
+fn time_unit(span_s: f64) -> (&'static str, f64) {
+    match human_duration(span_s).rsplit(' ').next() {
+        Some("days") => ("days", 86_400.0),
+        Some("h") => ("h", 3_600.0),
+        Some("min") => ("min", 60.0),
+        _ => ("s", 1.0),
+    }
+}
+
+/// The units of one change's picture's value axes; the time axis takes the unit that fits.
+pub struct PlotUnits<'a> {
+    pub pv: &'a str,
+    pub op: &'a str,
+}
+
 /// Draws one change. `margin_pct` is the saturation margin (% of the OP span).
 pub fn episode_svg(
     e: &TellingEpisode,
@@ -44,23 +64,34 @@ pub fn episode_svg(
     op: Option<&OpRange>,
     margin_pct: f64,
     s: &EpisodeSamples,
-    pv_unit: &str,
+    units: &PlotUnits,
 ) -> Result<String, PlotError> {
     svg((760, 430), "change", |root| {
         root.fill(&WHITE)?;
         let t0 = e.start_ms;
-        let minutes = |ms: i64| (ms - t0) as f64 / 60_000.0;
-        let x_end = minutes(e.end_ms).max(spec.map_or(0.0, |sp| sp.settle_within_s / 60.0) * 1.05);
-        let x_start = -0.1 * x_end.max(1.0 / 60.0);
+        let span_s = (crate::units::ms_to_s(e.end_ms - t0))
+            .max(spec.map_or(0.0, |sp| sp.settle_within_s) * 1.05);
+        let (unit, per) = time_unit(span_s);
+        let at = |ms: i64| crate::units::ms_to_s(ms - t0) / per;
+        let x_end = span_s / per;
+        let x_start = -0.1 * x_end.max(1.0 / per);
         let pv = Panel {
-            pv: thin(&s.pv, minutes),
-            sp: step_points(&thin(&s.sp, minutes), x_end),
-            fastest: fastest_response(e, spec, x_end),
+            pv: thin(&s.pv, at),
+            sp: step_points(&thin(&s.sp, at), x_end),
+            fastest: fastest_response(e, spec, span_s, per),
         };
-        let op_pts = thin(&s.op, minutes);
+        let op_pts = thin(&s.op, at);
         let (upper, lower) = root.split_vertically(270);
-        draw_pv_panel(&upper, e, spec, pv, pv_unit, x_start..x_end)?;
-        draw_op_panel(&lower, op, margin_pct, op_pts, x_start..x_end)
+        draw_pv_panel(&upper, e, spec, pv, units.pv, (x_start..x_end, per))?;
+        let axis = format!("{unit} after the setpoint change");
+        draw_op_panel(
+            &lower,
+            op,
+            margin_pct,
+            op_pts,
+            units.op,
+            (x_start..x_end, &axis),
+        )
     })
 }
 
@@ -93,34 +124,51 @@ fn svg(
     Ok(svg)
 }
 
-/// The lines of the upper panel: PV, SP as steps, and the fastest possible response with its
-/// t* (when there is a model and a spec and the change is reachable).
+/// The lines of the upper panel: PV, SP as steps, and the response with the OP driven to its
+/// limit (when there is a model and a spec).
 struct Panel {
     pv: Vec<(f64, f64)>,
     sp: Vec<(f64, f64)>,
-    fastest: Option<(f64, Vec<(f64, f64)>)>,
+    fastest: Option<Fastest>,
 }
 
-/// The fastest possible response: OP driven to its limit at the change (the t* of the design),
-/// as t* and the curve in minutes up to `x_end`.
+/// The response with the OP driven to its limit at the change: entering the band at t* (the
+/// fastest possible settling), or, for an unreachable change, levelling off short of the new
+/// setpoint (no t* exists).
+struct Fastest {
+    /// `None` for an unreachable change.
+    t_star_s: Option<f64>,
+    /// Where the PV levels off with the OP held at its limit.
+    plateau: f64,
+    curve: Vec<(f64, f64)>,
+}
+
+/// The response with the OP driven to its limit, over `span_s` seconds, in time units of `per`
+/// seconds. Only a reported bound is drawn (a bound the change beat is not one): a reachable
+/// change without t* gets no curve.
 fn fastest_response(
     e: &TellingEpisode,
     spec: Option<&Spec>,
-    x_end: f64,
-) -> Option<(f64, Vec<(f64, f64)>)> {
+    span_s: f64,
+    per: f64,
+) -> Option<Fastest> {
     let delta = e.sp_to - e.sp_from;
     let m = e.model?;
-    let b = spec?.band_fraction(e.sp_to - e.sp_from);
-    // The curve starts where the plant was at the change, and only a reported bound is drawn (a
-    // bound the change beat is not one).
+    let b = spec?.band_fraction(delta);
+    // The curve starts where the plant was at the change.
     let y0 = e.start_pv.unwrap_or(e.sp_from);
-    let t_star = e.min_settling_time_s?;
     let reach = m.gain.abs() * e.op_headroom;
     let sign = (e.sp_to - y0).signum();
+    let unreachable = e.verdict == crate::analysis::Verdict::Unreachable;
+    let t_star = match e.min_settling_time_s {
+        Some(t) if !unreachable => t,
+        _ if unreachable => f64::INFINITY,
+        _ => return None,
+    };
     let n = 200;
     let curve = (0..=n)
         .map(|i| {
-            let t = x_end * 60.0 * i as f64 / n as f64;
+            let t = span_s * i as f64 / n as f64;
             let y = if t <= m.dead_time_s {
                 y0
             } else if t <= t_star {
@@ -129,15 +177,19 @@ fn fastest_response(
                 // Inside the band the OP backs off and the PV closes on the setpoint.
                 e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()
             };
-            (t / 60.0, y)
+            (t / per, y)
         })
         .collect();
-    Some((t_star, curve))
+    Some(Fastest {
+        t_star_s: t_star.is_finite().then_some(t_star),
+        plateau: y0 + sign * reach,
+        curve,
+    })
 }
 
 /// The PV axis: both setpoints, the PV, the fastest response and the band, with some room.
 fn pv_axis(e: &TellingEpisode, band: Option<f64>, p: &Panel) -> (f64, f64) {
-    let curve = p.fastest.as_ref().map_or(&[][..], |(_, c)| c.as_slice());
+    let curve = p.fastest.as_ref().map_or(&[][..], |f| f.curve.as_slice());
     let (mut lo, mut hi) = (e.sp_from.min(e.sp_to), e.sp_from.max(e.sp_to));
     for (_, y) in p.pv.iter().chain(curve) {
         lo = lo.min(*y);
@@ -158,7 +210,7 @@ fn draw_pv_panel(
     spec: Option<&Spec>,
     p: Panel,
     pv_unit: &str,
-    xs: std::ops::Range<f64>,
+    (xs, per): (std::ops::Range<f64>, f64),
 ) -> DrawResult {
     let band = spec.map(|sp| sp.band_abs(e.sp_to - e.sp_from));
     let (lo, hi) = pv_axis(e, band, &p);
@@ -194,7 +246,7 @@ fn draw_pv_panel(
             .legend(box_key(BAND_COLOUR.mix(0.3).filled()));
     }
     if let Some(sp) = spec {
-        let ts = sp.settle_within_s / 60.0;
+        let ts = sp.settle_within_s / per;
         chart
             .draw_series(DashedLineSeries::new(
                 [(ts, lo), (ts, hi)],
@@ -202,30 +254,43 @@ fn draw_pv_panel(
                 4,
                 BAND_COLOUR.stroke_width(2),
             ))?
-            .label(format!("spec time ({:.0} s)", sp.settle_within_s))
+            .label(format!(
+                "spec time ({})",
+                human_duration(sp.settle_within_s)
+            ))
             .legend(line_key(BAND_COLOUR.stroke_width(2)));
     }
     line(&mut chart, p.sp, SP_COLOUR.stroke_width(1), "SP")?;
     line(&mut chart, p.pv, PV_COLOUR.stroke_width(2), "PV")?;
-    if let Some((t_star, curve)) = p.fastest {
+    if let Some(f) = p.fastest {
+        let label = match f.t_star_s {
+            Some(t) => format!(
+                "fastest possible, OP at its limit (t* = {})",
+                human_duration(t)
+            ),
+            None => format!(
+                "OP held at its limit: levels off at {}, short of the SP (unreachable, no t*)",
+                quantity(f.plateau, pv_unit)
+            ),
+        };
         chart
             .draw_series(DashedLineSeries::new(
-                curve,
+                f.curve,
                 3,
                 3,
                 FASTEST_COLOUR.stroke_width(2),
             ))?
-            .label(format!(
-                "fastest possible, OP at its limit (t* = {t_star:.0} s)"
-            ))
+            .label(label)
             .legend(line_key(FASTEST_COLOUR.stroke_width(2)));
-        let ts = t_star / 60.0;
-        chart.draw_series(DashedLineSeries::new(
-            [(ts, lo), (ts, hi)],
-            2,
-            3,
-            FASTEST_COLOUR.stroke_width(1),
-        ))?;
+        if let Some(t) = f.t_star_s {
+            let ts = t / per;
+            chart.draw_series(DashedLineSeries::new(
+                [(ts, lo), (ts, hi)],
+                2,
+                3,
+                FASTEST_COLOUR.stroke_width(1),
+            ))?;
+        }
     }
     draw_legend(&mut chart)
 }
@@ -236,7 +301,8 @@ fn draw_op_panel(
     op: Option<&OpRange>,
     margin_pct: f64,
     op_pts: Vec<(f64, f64)>,
-    xs: std::ops::Range<f64>,
+    op_unit: &str,
+    (xs, x_desc): (std::ops::Range<f64>, &str),
 ) -> DrawResult {
     let (op_lo, op_hi) = match op {
         Some(r) => (r.min, r.max),
@@ -258,8 +324,12 @@ fn draw_op_panel(
         .configure_mesh()
         .light_line_style(WHITE)
         .bold_line_style(GRID_BOLD)
-        .x_desc("minutes after the setpoint change")
-        .y_desc("OP")
+        .x_desc(x_desc)
+        .y_desc(if op_unit.is_empty() {
+            "OP".to_string()
+        } else {
+            format!("OP ({op_unit})")
+        })
         .label_style((FONT, 14).into_font().color(&INK))
         .axis_desc_style((FONT, 15).into_font().color(&INK))
         .x_labels(10)
@@ -446,32 +516,30 @@ fn draw_trend(
         .collect();
     draw_segments(&mut chart, &shares, BAND_COLOUR)?;
 
+    let top_s = weeks
+        .iter()
+        .filter_map(|w| w.median_settling_s)
+        .chain(spec.map(|s| s.settle_within_s))
+        .fold(1.0_f64, f64::max);
+    // The axis in the unit the text gives the largest of its times in.
+    let (unit, per) = time_unit(top_s);
     let settle: Vec<Option<(f64, f64)>> = weeks
         .iter()
         .enumerate()
-        .map(|(i, w)| w.median_settling_s.map(|s| (i as f64, s)))
+        .map(|(i, w)| w.median_settling_s.map(|s| (i as f64, s / per)))
         .collect();
-    let top = settle
-        .iter()
-        .flatten()
-        .map(|p| p.1)
-        .chain(spec.map(|s| s.settle_within_s))
-        .fold(1.0_f64, f64::max)
-        * 1.15;
     let mut chart = trend_chart(
         &right,
-        "median settling time (s); dashed: spec",
+        &format!("median settling time ({unit}); dashed: spec"),
         48,
-        (x_range, 0.0..top),
+        (x_range, 0.0..top_s / per * 1.15),
         &label_of,
         n,
     )?;
     if let Some(s) = spec {
+        let spec_t = s.settle_within_s / per;
         chart.draw_series(DashedLineSeries::new(
-            [
-                (-0.5, s.settle_within_s),
-                (n as f64 - 0.5, s.settle_within_s),
-            ],
+            [(-0.5, spec_t), (n as f64 - 0.5, spec_t)],
             6,
             4,
             LIMIT_COLOUR.stroke_width(1),
@@ -534,6 +602,14 @@ fn draw_segments(chart: &mut Chart, points: &[Option<(f64, f64)>], colour: RGBCo
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn time_axes_use_the_unit_of_the_text() {
+        assert_eq!(time_unit(90.0), ("s", 1.0));
+        assert_eq!(time_unit(1_400.0), ("min", 60.0));
+        assert_eq!(time_unit(14_400.0), ("h", 3_600.0));
+        assert_eq!(time_unit(5.0 * 86_400.0), ("days", 86_400.0));
+    }
 
     #[test]
     fn trend_axis_labels_are_short() {

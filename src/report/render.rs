@@ -6,7 +6,7 @@
 use super::build::WeeklyReport;
 use crate::analysis::Verdict;
 pub use crate::summary_format::Format;
-use crate::units::fraction_to_pct;
+use crate::units::{fraction_to_pct, human_duration, quantity, signed_quantity};
 use minijinja::value::{Serde, Value};
 use minijinja::{Environment, context};
 use std::collections::BTreeMap;
@@ -62,21 +62,20 @@ pub fn render(report: &WeeklyReport, format: Format) -> Result<String, RenderErr
 }
 
 /// How the summary shows each verdict, in [`Verdict::ALL`]'s order: its key in the counts
-/// (the JSON name), its label, and the symbol and CSS classes of the HTML (a symbol beside the
-/// word, so that neither colour nor symbol alone carries meaning; `mix` colours the bar of
-/// verdict shares).
+/// (the JSON name), its label, and the CSS class of its part of the bar of verdict shares (told
+/// apart by shade and pattern, and named in the table beside it).
 fn verdict_rows() -> Vec<Value> {
     Verdict::ALL
         .iter()
         .map(|v| {
-            let (symbol, class, mix) = match v {
-                Verdict::Met => ("✓", "met", "met"),
-                Verdict::TuningLimited => ("↻", "tuning", "tuning"),
-                Verdict::ActuatorLimited => ("▲", "actuator", "actuator"),
-                Verdict::Unreachable => ("✕", "actuator", "unreach"),
-                Verdict::Inconclusive => ("?", "neutral", "neutral"),
+            let mix = match v {
+                Verdict::Met => "met",
+                Verdict::TuningLimited => "tuning",
+                Verdict::ActuatorLimited => "actuator",
+                Verdict::Unreachable => "unreach",
+                Verdict::Inconclusive => "neutral",
             };
-            context! { key => v.as_str(), label => v.label(), symbol, class, mix }
+            context! { key => v.as_str(), label => v.label(), mix }
         })
         .collect()
 }
@@ -95,18 +94,24 @@ fn environment(trim_blocks: bool) -> Result<Environment<'static>, minijinja::Err
     );
     env.add_template("report.html", include_str!("templates/report.html"))?;
     env.add_template("report.md", include_str!("templates/report.md"))?;
-    env.add_filter("secs", |v: Option<f64>| -> String {
-        v.map_or("—".into(), |s| format!("{s:.0} s"))
+    // Numbers for people come from `units` only: durations in s, min or h as fits, quantities
+    // to significant figures with their unit; a missing number reads as a dash.
+    env.add_filter("dur", |v: Option<f64>| -> String {
+        v.map_or("—".into(), human_duration)
     });
+    env.add_filter("qty", |v: Option<f64>, unit: Option<String>| -> String {
+        v.map_or("—".into(), |x| quantity(x, unit.as_deref().unwrap_or("")))
+    });
+    env.add_filter(
+        "signed_qty",
+        |v: Option<f64>, unit: Option<String>| -> String {
+            v.map_or("—".into(), |x| {
+                signed_quantity(x, unit.as_deref().unwrap_or(""))
+            })
+        },
+    );
     env.add_filter("share", |v: Option<f64>| -> String {
-        v.map_or("—".into(), |s| format!("{:.0} %", fraction_to_pct(s)))
-    });
-    env.add_filter("pct1", |v: Option<f64>| -> String {
-        v.map_or("—".into(), |s| format!("{s:.1} %"))
-    });
-    env.add_filter("signed_pct", |v: f64| -> String { format!("{v:+.1} %") });
-    env.add_filter("num", |v: Option<f64>, digits: Option<usize>| -> String {
-        v.map_or("—".into(), |x| format!("{x:.*}", digits.unwrap_or(2)))
+        v.map_or("—".into(), |s| quantity(fraction_to_pct(s), "%"))
     });
     Ok(env)
 }

@@ -89,7 +89,7 @@ pub async fn generate_once(
     period: &Period,
 ) -> Result<Vec<PathBuf>, ReportError> {
     let now = Timestamp::now();
-    let report = gather(store, Some(config), period, now).await?;
+    let report = gather(store, Some(config), None, period, now).await?;
     let written = write_files(&report, period, &schedule.formats, &schedule.folder)?;
     for ((_, text), f) in written.iter().zip(&schedule.formats) {
         store

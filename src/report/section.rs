@@ -2,12 +2,14 @@
 //! and how that moved, the recommendation with its figures, the most telling change and the
 //! notes.
 
+use super::evidence::{self, Sources, UnreachableChange, WorstMiss};
 use super::period::{Period, local};
 use super::quality::{self, LoopFacts};
-use super::trend::{self, Episode, TrendWeek, WeekStats};
+use super::trend::{self, Episode, TrendRow, TrendWeek, WeekStats};
 use crate::analysis::advice::{Action, Recommendation, recommend};
 use crate::analysis::{EpisodeResult, Fopdt, LoopSetup, OpRange, Spec, Verdict};
 use crate::store::{EpisodeRow, ModelRow, SeriesCoverage};
+use crate::units::{human_duration, quantity, signed_quantity};
 use jiff::tz::TimeZone;
 use serde::Serialize;
 
@@ -49,18 +51,27 @@ pub enum Status {
 }
 
 impl Status {
+    /// The status as people read it: an action's own label ([`Action::label`]) where the status
+    /// is that action, so an action is spelled alike everywhere.
     pub fn word(self) -> &'static str {
         match self {
-            Status::Upgrade => "Upgrade the actuator",
-            Status::Renegotiate => "Renegotiate the spec",
-            Status::Retune => "Retune",
-            Status::Undecided => "Undecided",
-            Status::NoChanges => "No setpoint changes",
-            Status::MeetsSpec => "Meets spec",
+            Status::Upgrade => Action::Upgrade.label(),
+            Status::Renegotiate => Action::Renegotiate.label(),
+            Status::Retune => Action::Retune.label(),
+            Status::Undecided => Action::Undecided.label(),
+            Status::NoChanges => "no setpoint changes",
+            Status::MeetsSpec => "meets the spec",
         }
     }
 
-    /// A symbol beside the word, so that neither colour nor the symbol alone carries meaning.
+    /// Whether the status advises a change to the plant or its spec (the caution goes beside
+    /// it).
+    pub fn advises_change(self) -> bool {
+        matches!(self, Status::Upgrade | Status::Renegotiate | Status::Retune)
+    }
+
+    /// A symbol kept in the JSON for the programs that read it since the first summaries; the
+    /// HTML and Markdown show the words only.
     pub fn symbol(self) -> &'static str {
         match self {
             Status::Upgrade => "▲",
@@ -111,6 +122,15 @@ pub struct LoopSection {
     pub status_word: &'static str,
     pub status_symbol: &'static str,
     pub status_class: &'static str,
+    /// Whether the status advises a change (retune, renegotiate, upgrade).
+    pub advises_change: bool,
+    /// The unit of the process gain K (PV unit per OP unit) and of the controller gain Kc (OP
+    /// unit per PV unit), for people.
+    pub gain_unit: String,
+    pub controller_gain_unit: String,
+    /// The hash of this loop's settings ([`crate::summary_format::settings_hash`]); the same
+    /// as `analyze --json --config F --loop TAG` carries. `None` when the loop has no setup.
+    pub settings_hash: Option<String>,
     pub stats: WeekStats,
     /// Changes still being watched when the summary was made; not counted above.
     pub provisional: usize,
@@ -120,9 +140,15 @@ pub struct LoopSection {
     /// The recommendation's numbers, labelled for people.
     pub advice: Vec<Figure>,
     pub telling: Option<TellingEpisode>,
+    /// The period's worst misses, worst first, with the commands that reproduce them.
+    pub worst_misses: Vec<WorstMiss>,
+    /// The period's unreachable changes (no t* exists for them).
+    pub unreachable: Vec<UnreachableChange>,
     /// The period's marginal verdicts: listed to watch, never alerted or advised on.
     pub watch: Vec<Watch>,
     pub trend: Vec<TrendWeek>,
+    /// The trend for people: weeks without changes run together into one line.
+    pub trend_rows: Vec<TrendRow>,
     /// Plain sentences about what is missing or odd (no changes, no model, no spec...).
     pub notes: Vec<String>,
     /// Inline SVG of the telling episode (HTML only).
@@ -170,6 +196,8 @@ pub struct Watch {
     pub start: String,
     pub sp_from: f64,
     pub sp_to: f64,
+    /// The change with its unit, for people.
+    pub change: String,
     pub verdict: Verdict,
     /// The verdict as people read it ([`Verdict::label`]).
     pub verdict_words: &'static str,
@@ -180,7 +208,7 @@ pub struct Watch {
     pub plan: Option<String>,
 }
 
-fn watch_list(week: &[&Episode], tz: &TimeZone) -> Vec<Watch> {
+fn watch_list(week: &[&Episode], pv_unit: &str, tz: &TimeZone) -> Vec<Watch> {
     week.iter()
         .filter(|e| e.result.is_marginal())
         .map(|e| {
@@ -189,6 +217,7 @@ fn watch_list(week: &[&Episode], tz: &TimeZone) -> Vec<Watch> {
                 start: local(e.row.start_ms, tz),
                 sp_from: r.sp_from,
                 sp_to: r.sp_to,
+                change: evidence::change_words(r.sp_from, r.sp_to, pv_unit),
                 verdict: r.verdict,
                 verdict_words: r.verdict.label(),
                 min_settling_time_range_s: r.min_settling_time_range_s,
@@ -214,8 +243,12 @@ pub struct TellingEpisode {
     pub reason: String,
     pub sp_from: f64,
     pub sp_to: f64,
+    /// The change with its unit, for people.
+    pub change: String,
     pub settling_time_s: Option<f64>,
     pub min_settling_time_s: Option<f64>,
+    /// The actuator's reach from the operating point (PV units), when the model gave one.
+    pub reach: Option<f64>,
     /// The PV at the change, where the fastest response starts.
     pub start_pv: Option<f64>,
     pub overshoot_pct: f64,
@@ -233,7 +266,7 @@ pub(super) fn build_loop(
     l: &LoopInput,
     periods: &[Period],
     tz: &TimeZone,
-    config_given: bool,
+    (config_given, sources): (bool, &Sources),
     data_quality: &mut Vec<String>,
 ) -> LoopSection {
     let period = periods.last().expect("at least one period");
@@ -279,14 +312,16 @@ pub(super) fn build_loop(
         data_quality.push(quality::not_configured(&l.tag));
     }
 
+    let units = Units::of(l);
     let advice = recommendation
         .as_ref()
-        .map(|r| advice_figures(r, l.setup.as_ref()))
+        .map(|r| advice_figures(r, l.setup.as_ref(), &units))
         .unwrap_or_default();
     let telling = pick_telling(&week, status).map(|(e, why)| {
         let m = trend::model_at(&l.models, e.row.end_ms + 1).or(model_row);
-        telling_episode(e, why, m.map(|m| m.model().fopdt()), tz)
+        telling_episode(e, why, m.map(|m| m.model().fopdt()), &l.pv_unit, tz)
     });
+    let trend = trend::trend(&episodes, periods, &l.models);
     LoopSection {
         tag: l.tag.clone(),
         description: l.description.clone(),
@@ -298,14 +333,31 @@ pub(super) fn build_loop(
         status_word: status.word(),
         status_symbol: status.symbol(),
         status_class: status.class(),
+        advises_change: status.advises_change(),
+        gain_unit: units.gain,
+        controller_gain_unit: units.controller_gain,
+        settings_hash: l
+            .setup
+            .as_ref()
+            .map(|s| crate::summary_format::settings_hash([s])),
         stats,
         provisional,
         model,
         recommendation,
         advice,
         telling,
-        watch: watch_list(&week, tz),
-        trend: trend::trend(&episodes, periods, &l.models),
+        worst_misses: evidence::worst_misses(
+            &week,
+            &l.tag,
+            &l.pv_unit,
+            l.setup.as_ref(),
+            sources,
+            tz,
+        ),
+        unreachable: evidence::unreachable(&week, &l.pv_unit, tz),
+        watch: watch_list(&week, &l.pv_unit, tz),
+        trend_rows: trend::rows(&trend),
+        trend,
         notes,
         episode_svg: None,
         trend_svg: None,
@@ -356,6 +408,7 @@ fn telling_episode(
     e: &Episode,
     why: String,
     model: Option<Fopdt>,
+    pv_unit: &str,
     tz: &TimeZone,
 ) -> TellingEpisode {
     let r = &e.result;
@@ -369,8 +422,10 @@ fn telling_episode(
         reason: r.reason.clone(),
         sp_from: r.sp_from,
         sp_to: r.sp_to,
+        change: evidence::change_words(r.sp_from, r.sp_to, pv_unit),
         settling_time_s: r.settling_time_s,
         min_settling_time_s: r.min_settling_time_s,
+        reach: r.reach,
         start_pv: r.start_pv,
         overshoot_pct: r.overshoot_pct,
         saturation_duty: r.saturation_duty,
@@ -410,28 +465,62 @@ fn pick_telling<'a>(week: &[&'a Episode<'a>], status: Status) -> Option<(&'a Epi
         .or_else(|| slowest(&|_| true).map(|e| (e, "the slowest change of the period".to_string())))
 }
 
-/// The recommendation's numbers with labels, for the HTML and Markdown tables.
-fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>) -> Vec<Figure> {
+/// The units a loop's numbers are read in.
+struct Units {
+    pv: String,
+    op: String,
+    /// Process gain K: PV unit per OP unit.
+    gain: String,
+    /// Controller gain Kc: OP unit per PV unit.
+    controller_gain: String,
+}
+
+impl Units {
+    fn of(l: &LoopInput) -> Units {
+        Units {
+            pv: l.pv_unit.clone(),
+            op: l.op_unit.clone(),
+            gain: ratio_unit(&l.pv_unit, &l.op_unit),
+            controller_gain: ratio_unit(&l.op_unit, &l.pv_unit),
+        }
+    }
+}
+
+/// `a/b` for a gain's unit; a missing unit reads "PV unit" or "OP unit" rather than vanishing.
+fn ratio_unit(a: &str, b: &str) -> String {
+    match (a.is_empty(), b.is_empty()) {
+        (false, false) => format!("{a}/{b}"),
+        (true, false) => format!("per {b}"),
+        (false, true) => format!("{a} per OP unit"),
+        (true, true) => String::new(),
+    }
+}
+
+/// The recommendation's numbers with labels and units, for the HTML and Markdown tables.
+fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> Vec<Figure> {
     let mut out: Vec<(&str, String)> = Vec::new();
     if let Some(pi) = &r.retune {
         out.extend([
             (
                 "Suggested controller gain Kc (SIMC PI)",
-                format!("{:.4}", pi.gain),
+                quantity(pi.gain, &u.controller_gain),
             ),
-            ("Suggested integral time τI", secs(pi.integral_time_s)),
+            (
+                "Suggested integral time τI",
+                human_duration(pi.integral_time_s),
+            ),
             (
                 "Closed-loop time constant τc chosen",
-                secs(pi.closed_loop_time_constant_s),
+                human_duration(pi.closed_loop_time_constant_s),
             ),
             (
                 "Expected settling time with these settings",
                 pi.expected_settling_time_s
-                    .map_or("does not settle".into(), secs),
+                    .map_or("does not settle".into(), human_duration),
             ),
             (
                 "Expected overshoot",
-                format!("{:.1} %", pi.expected_overshoot_pct),
+                quantity(pi.expected_overshoot_pct, "%"),
             ),
         ]);
         if !pi.initial_move_fits_headroom {
@@ -445,39 +534,51 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>) -> Vec<Figure> 
         out.extend([
             (
                 "Typical change (held back by the actuator)",
-                format!("{:+.3} from OP {:.1}", a.typical_step, a.typical_op_start),
+                format!(
+                    "{} from OP {}",
+                    signed_quantity(a.typical_step, &u.pv),
+                    quantity(a.typical_op_start, &u.op)
+                ),
             ),
             (
                 "Fastest possible settling t*",
-                a.fastest_settling_time_s
-                    .map_or("unreachable with today's OP limit".into(), secs),
+                a.fastest_settling_time_s.map_or(
+                    "none: unreachable with today's OP limit".into(),
+                    human_duration,
+                ),
             ),
             (
                 "Settling achievable for the typical change (SIMC PI, τc = θ)",
-                a.practical_settling_time_s.map_or("—".into(), secs),
+                a.practical_settling_time_s
+                    .map_or("not known".into(), human_duration),
             ),
             (
                 "Largest change that meets today's spec",
                 a.largest_compliant_step
-                    .map_or("none".into(), |d| format!("{d:.3}")),
+                    .map_or("none".into(), |d| quantity(d, &u.pv)),
             ),
             (
                 "OP limit needed for the typical change",
                 a.required_op_limit.map_or(
                     "no actuator can: the spec time is within the dead time".into(),
-                    |l| format!("{l:.1}"),
+                    |l| quantity(l, &u.op),
                 ),
             ),
             (
                 "Capacity needed, as a ratio of today's",
-                a.capacity_ratio.map_or("—".into(), |k| format!("{k:.2}×")),
+                a.capacity_ratio.map_or("not known".into(), |k| {
+                    format!(
+                        "{} times",
+                        crate::units::sig(k, crate::units::DISPLAY_DIGITS)
+                    )
+                }),
             ),
         ]);
     }
     if let Some(s) = setup.map(|s| s.spec.settle_within_s)
         && !out.is_empty()
     {
-        out.push(("Spec settling time", secs(s)));
+        out.push(("Spec settling time", human_duration(s)));
     }
     out.into_iter()
         .map(|(label, value)| Figure {
@@ -485,8 +586,4 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>) -> Vec<Figure> 
             value,
         })
         .collect()
-}
-
-fn secs(s: f64) -> String {
-    format!("{s:.0} s")
 }

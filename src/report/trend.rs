@@ -91,6 +91,54 @@ pub struct TrendWeek {
     pub dead_time_s: Option<f64>,
 }
 
+/// One line of the trend for people: a week with changes, or a run of weeks without any told in
+/// one line instead of empty rows.
+#[derive(Debug, Clone, Serialize)]
+pub struct TrendRow {
+    /// The week, when it had changes.
+    pub week: Option<TrendWeek>,
+    /// For a run of weeks without changes: `no setpoint changes from 2026-W41 to 2026-W45
+    /// (5 weeks)`, or `no setpoint changes in 2026-W47`.
+    pub quiet: Option<String>,
+}
+
+/// The trend's weeks for people, oldest first: each run of weeks without changes collapsed
+/// into one line.
+pub(super) fn rows(weeks: &[TrendWeek]) -> Vec<TrendRow> {
+    let mut out = Vec::new();
+    let mut quiet: Vec<&TrendWeek> = Vec::new();
+    let flush = |quiet: &mut Vec<&TrendWeek>, out: &mut Vec<TrendRow>| {
+        let words = match quiet.as_slice() {
+            [] => return,
+            [one] => format!("no setpoint changes in {}", one.label),
+            [first, .., last] => format!(
+                "no setpoint changes from {} to {} ({} weeks)",
+                first.label,
+                last.label,
+                quiet.len()
+            ),
+        };
+        out.push(TrendRow {
+            week: None,
+            quiet: Some(words),
+        });
+        quiet.clear();
+    };
+    for w in weeks {
+        if w.changes == 0 {
+            quiet.push(w);
+        } else {
+            flush(&mut quiet, &mut out);
+            out.push(TrendRow {
+                week: Some(w.clone()),
+                quiet: None,
+            });
+        }
+    }
+    flush(&mut quiet, &mut out);
+    out
+}
+
 /// The week's numbers from its final episodes.
 pub(super) fn week_stats(week: &[&Episode]) -> WeekStats {
     let results: Vec<EpisodeResult> = week.iter().map(|e| e.result.clone()).collect();
@@ -170,6 +218,49 @@ pub(super) fn trend(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn week(label: &str, changes: usize) -> TrendWeek {
+        TrendWeek {
+            label: label.into(),
+            changes,
+            judged: changes,
+            met_share: None,
+            median_settling_s: None,
+            median_not_settled: false,
+            gain: None,
+            time_constant_s: None,
+            dead_time_s: None,
+        }
+    }
+
+    #[test]
+    fn runs_of_weeks_without_changes_read_as_one_line() {
+        let weeks = [
+            week("2026-W41", 0),
+            week("2026-W42", 0),
+            week("2026-W43", 0),
+            week("2026-W44", 2),
+            week("2026-W45", 0),
+            week("2026-W46", 1),
+            week("2026-W47", 0),
+            week("2026-W48", 0),
+        ];
+        let lines: Vec<String> = rows(&weeks)
+            .into_iter()
+            .map(|r| r.quiet.unwrap_or_else(|| r.week.unwrap().label))
+            .collect();
+        assert_eq!(
+            lines,
+            [
+                "no setpoint changes from 2026-W41 to 2026-W43 (3 weeks)",
+                "2026-W44",
+                "no setpoint changes in 2026-W45",
+                "2026-W46",
+                "no setpoint changes from 2026-W47 to 2026-W48 (2 weeks)",
+            ]
+        );
+        assert!(rows(&[]).is_empty());
+    }
 
     #[test]
     fn the_median_settling_time_ranks_never_settled_above_every_time() {

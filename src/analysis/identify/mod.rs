@@ -97,7 +97,7 @@ pub enum Refusal {
 }
 
 /// Settings of the identification.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct IdentifySettings {
     /// Episodes longer than this many grid points are thinned.
     pub max_points_per_episode: usize,
