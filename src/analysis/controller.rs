@@ -23,7 +23,8 @@
 //! with e = SP − PV a positive-gain process needs reverse action (the OP rises when the PV falls
 //! below the setpoint), a negative-gain process direct action.
 
-use super::setup::{OpRange, Problem, Setting};
+use super::setup::{OpRange, Problem, Setting, Units};
+use crate::units::{DISPLAY_DIGITS, sig};
 use serde::{Deserialize, Serialize};
 
 /// The canonical settings: ideal form, Kc in OP units per PV unit (signed like the process
@@ -113,7 +114,7 @@ pub struct Spans {
 }
 
 /// How one controller takes its settings.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Convention {
     pub form: Form,
     pub gain: GainUnit,
@@ -133,7 +134,7 @@ impl Convention {
 
 /// Settings as a controller of one [`Convention`] takes them: three numbers (each in the unit
 /// the convention names, `None` where the term is off) and the action. The gain is a magnitude.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Written {
     pub convention: Convention,
     pub gain: f64,
@@ -262,6 +263,62 @@ impl ControllerSetup {
             ));
         }
         out
+    }
+}
+
+impl Form {
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Form::Ideal => "ideal",
+            Form::Parallel => "parallel",
+            Form::Series => "series",
+        }
+    }
+}
+
+impl Written {
+    /// The settings as people type them into the controller, each with its name and unit:
+    /// `series form, reverse action: PB 62.5 %, Ti 3.20 min, no derivative action`. Gains in OP
+    /// units per PV unit are written with the loop's `units`.
+    pub fn words(&self, units: &Units) -> String {
+        let c = self.convention;
+        let parallel = c.form == Form::Parallel;
+        let per = match c.gain {
+            GainUnit::OutputPerPv => units.controller_gain(),
+            GainUnit::PercentPerPercent | GainUnit::ProportionalBand => "%/%".to_owned(),
+        };
+        let n = |x: f64| sig(x, DISPLAY_DIGITS);
+        let gain = match (c.gain, parallel) {
+            (GainUnit::ProportionalBand, _) => format!("PB {} %", n(self.gain)),
+            (_, true) => format!("Kp {} {per}", n(self.gain)),
+            (_, false) => format!("Kc {} {per}", n(self.gain)),
+        };
+        let time = |unit: IntegralUnit| match unit {
+            IntegralUnit::Seconds => "s",
+            _ => "min",
+        };
+        let integral = match (self.integral, parallel, c.integral) {
+            (None, ..) => "no integral action".to_owned(),
+            (Some(ki), true, u) => format!("Ki {} {per} per {}", n(ki), time(u)),
+            (Some(r), false, IntegralUnit::RepeatsPerMinute) => {
+                format!("reset {} repeats/min", n(r))
+            }
+            (Some(ti), false, u) => format!("Ti {} {}", n(ti), time(u)),
+        };
+        let d_unit = match c.derivative {
+            DerivativeUnit::Seconds => "s",
+            DerivativeUnit::Minutes => "min",
+        };
+        let derivative = match (self.derivative, parallel) {
+            (None, _) => "no derivative action".to_owned(),
+            (Some(kd), true) => format!("Kd {} {per}·{d_unit}", n(kd)),
+            (Some(td), false) => format!("Td {} {d_unit}", n(td)),
+        };
+        format!(
+            "{} form, {} action: {gain}, {integral}, {derivative}",
+            c.form.as_str(),
+            self.action.as_str()
+        )
     }
 }
 
@@ -611,5 +668,46 @@ mod tests {
             write(ideal, series, None),
             Err(ConversionError::NoSeriesEquivalent { .. })
         ));
+    }
+
+    #[test]
+    fn settings_read_with_their_names_and_units() {
+        let units = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
+        let ideal = Ideal {
+            gain: -2.0,
+            integral_time_s: 120.0,
+            derivative_time_s: 0.0,
+        };
+        let c = |form, gain, integral| Convention {
+            form,
+            gain,
+            integral,
+            derivative: DerivativeUnit::Seconds,
+        };
+        let words = |conv| write(ideal, conv, Some(SPANS)).unwrap().words(&units);
+        // 2 %/°C on spans 150 °C / 100 % is 3 %/%, a band of 33.3 %; Ti 2 min is 0.5 repeats/min.
+        assert_eq!(
+            words(c(Form::Ideal, GainUnit::OutputPerPv, IntegralUnit::Seconds)),
+            "ideal form, direct action: Kc 2.00 %/°C, Ti 120 s, no derivative action"
+        );
+        assert_eq!(
+            words(c(
+                Form::Series,
+                GainUnit::ProportionalBand,
+                IntegralUnit::RepeatsPerMinute
+            )),
+            "series form, direct action: PB 33.3 %, reset 0.500 repeats/min, no derivative action"
+        );
+        assert_eq!(
+            words(c(
+                Form::Parallel,
+                GainUnit::PercentPerPercent,
+                IntegralUnit::Minutes
+            )),
+            "parallel form, direct action: Kp 3.00 %/%, Ki 1.50 %/% per min, no derivative action"
+        );
     }
 }

@@ -288,6 +288,26 @@ impl Default for Units {
 impl Units {
     /// The OP's unit when none is given: % of output (common practice).
     pub const DEFAULT_OP: &'static str = "%";
+
+    /// The unit of a process gain, PV units per OP unit: `°C/%`.
+    pub fn process_gain(&self) -> String {
+        ratio(&self.pv, &self.op)
+    }
+
+    /// The unit of a controller gain, OP units per PV unit: `%/°C`.
+    pub fn controller_gain(&self) -> String {
+        ratio(&self.op, &self.pv)
+    }
+}
+
+/// `a/b` for a gain's unit; a missing unit reads "per b" or "a per unit" rather than vanishing.
+fn ratio(a: &str, b: &str) -> String {
+    match (a.is_empty(), b.is_empty()) {
+        (false, false) => format!("{a}/{b}"),
+        (true, false) => format!("per {b}"),
+        (false, true) => format!("{a} per unit"),
+        (true, true) => String::new(),
+    }
 }
 
 /// The actuator's rating at the full OP range (from the lower to the upper OP limit), in a
@@ -509,6 +529,21 @@ mod tests {
             let problem = s.validate().expect_err("refused");
             assert_eq!(problem.setting, setting, "{problem}");
         }
+    }
+
+    #[test]
+    fn gain_units_read_as_ratios_and_never_vanish_half() {
+        let u = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
+        assert_eq!(
+            (u.process_gain(), u.controller_gain()),
+            ("°C/%".into(), "%/°C".into())
+        );
+        let bare = Units::default();
+        assert_eq!(bare.process_gain(), "per %");
+        assert_eq!(bare.controller_gain(), "% per unit");
     }
 
     #[test]

@@ -477,59 +477,32 @@ struct Units {
 
 impl Units {
     fn of(l: &LoopInput) -> Units {
-        Units {
+        let u = crate::analysis::Units {
             pv: l.pv_unit.clone(),
             op: l.op_unit.clone(),
-            gain: ratio_unit(&l.pv_unit, &l.op_unit),
-            controller_gain: ratio_unit(&l.op_unit, &l.pv_unit),
+        };
+        Units {
+            gain: u.process_gain(),
+            controller_gain: u.controller_gain(),
+            pv: u.pv,
+            op: u.op,
         }
-    }
-}
-
-/// `a/b` for a gain's unit; a missing unit reads "PV unit" or "OP unit" rather than vanishing.
-fn ratio_unit(a: &str, b: &str) -> String {
-    match (a.is_empty(), b.is_empty()) {
-        (false, false) => format!("{a}/{b}"),
-        (true, false) => format!("per {b}"),
-        (false, true) => format!("{a} per OP unit"),
-        (true, true) => String::new(),
     }
 }
 
 /// The recommendation's numbers with labels and units, for the HTML and Markdown tables.
 fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> Vec<Figure> {
     let mut out: Vec<(&str, String)> = Vec::new();
-    if let Some(pi) = &r.retune {
-        out.extend([
-            (
-                "Suggested controller gain Kc (SIMC PI)",
-                quantity(pi.gain, &u.controller_gain),
-            ),
-            (
-                "Suggested integral time τI",
-                human_duration(pi.integral_time_s),
-            ),
-            (
-                "Closed-loop time constant τc chosen",
-                human_duration(pi.closed_loop_time_constant_s),
-            ),
-            (
-                "Expected settling time with these settings",
-                pi.expected_settling_time_s
-                    .map_or("does not settle".into(), human_duration),
-            ),
-            (
-                "Expected overshoot",
-                quantity(pi.expected_overshoot_pct, "%"),
-            ),
-        ]);
-        if !pi.initial_move_fits_headroom {
-            out.push((
-                "Anti-windup",
-                "needed: the first OP move exceeds the headroom".into(),
-            ));
-        }
-    }
+    let people = crate::analysis::Units {
+        pv: u.pv.clone(),
+        op: u.op.clone(),
+    };
+    let retune: Vec<(&str, String)> = r
+        .retune
+        .as_ref()
+        .map(|rt| crate::analysis::advice::retune_figures(rt, &people))
+        .unwrap_or_default();
+    out.extend(retune);
     if let Some(a) = &r.actuator {
         out.extend([
             (

@@ -10,14 +10,15 @@
 //!   `upgrade_ratio_limit` times today's, else renegotiate the spec, with the numbers for both.
 
 mod actuator;
+mod retune;
 
 pub use actuator::{ActuatorEvidence, Direction, actuator_action};
+pub use retune::{Current, Outcome as RetuneOutcome, Retune, figures as retune_figures};
 
 use super::CAUTION;
 use super::identify::{FamilyKind, Fopdt, Model};
 use super::setup::LoopSetup;
 use super::stats;
-use super::tuning::{self, PiSuggestion};
 use super::verdict::{EpisodeResult, Verdict, VerdictCounts};
 use serde::Serialize;
 
@@ -54,7 +55,8 @@ pub struct Recommendation {
     pub action: Action,
     /// One or two sentences with the numbers.
     pub summary: String,
-    pub retune: Option<PiSuggestion>,
+    /// The retune advice: settings in the controller's form, verified on the model.
+    pub retune: Option<Retune>,
     /// The actuator's numbers for the direction that decides the action.
     pub actuator: Option<ActuatorEvidence>,
     /// The actuator's numbers for each direction of change with actuator-side misses.
@@ -194,23 +196,23 @@ impl Tally {
 
 /// What a retune or an actuator recommendation is worked out from.
 struct Basis<'a> {
+    model: &'a Model,
     f: Fopdt,
     kind: FamilyKind,
     setup: &'a LoopSetup,
     sample_s: f64,
     tally: Tally,
-    spec_s: f64,
 }
 
 impl<'a> Basis<'a> {
-    fn new(m: &Model, setup: &'a LoopSetup, sample_s: f64, tally: Tally) -> Basis<'a> {
+    fn new(m: &'a Model, setup: &'a LoopSetup, sample_s: f64, tally: Tally) -> Basis<'a> {
         Basis {
+            model: m,
             f: m.fopdt(),
             kind: m.kind(),
             setup,
             sample_s,
             tally,
-            spec_s: setup.spec.settle_within_s,
         }
     }
 }
@@ -230,19 +232,30 @@ fn typical(episodes: &[EpisodeResult], pick: impl Fn(Verdict) -> bool) -> (f64, 
 }
 
 fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
-    let (f, setup) = (&b.f, b.setup);
-    let (step, u0) = typical(episodes, |v| v == Verdict::TuningLimited);
-    let pi = tuning::suggest(
-        f,
-        step,
-        u0,
-        setup.op,
-        setup.spec.band_fraction(step),
-        b.sample_s,
-        b.spec_s,
-    );
-    let mut r = Recommendation::new(Action::Retune, retune_words(&pi, step, b.spec_s, b.tally));
-    r.retune = Some(pi);
+    let setup = b.setup;
+    let mut r = match retune::advise(episodes, b.model, b) {
+        Ok(advice) => {
+            // A PI that cannot meet the spec on the model is itself evidence for renegotiating.
+            let action = if advice.outcome == retune::Outcome::MeetsSpec {
+                Action::Retune
+            } else {
+                Action::Renegotiate
+            };
+            let mut r = Recommendation::new(action, retune::summary(&advice, b));
+            r.cautions.extend(retune::action_warning(&advice, b));
+            r.retune = Some(advice);
+            r
+        }
+        Err(why) => Recommendation::new(
+            Action::Renegotiate,
+            format!(
+                "{} of {} conclusive changes missed the spec although the actuator had room, but \
+                 no PI setting on the model is both safe (Ms ≤ 2) and no slower than today: {why} \
+                 Renegotiate the spec, or look beyond PI control.",
+                b.tally.c.tuning_limited, b.tally.conclusive
+            ),
+        ),
+    };
     if b.tally.actuator_misses() > 0 {
         // The minority of misses that retuning cannot fix, with the step sizes that would.
         r.per_direction = [Direction::Up, Direction::Down]
@@ -272,31 +285,6 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
         ));
     }
     r
-}
-
-fn retune_words(pi: &PiSuggestion, step: f64, spec_s: f64, tally: Tally) -> String {
-    let expected = pi
-        .expected_settling_time_s
-        .map_or("does not settle".to_string(), |s| format!("{s:.0} s"));
-    let saturation_note = if pi.initial_move_fits_headroom {
-        ""
-    } else {
-        " The OP will saturate briefly after each change: the controller needs anti-windup."
-    };
-    format!(
-        "{} of {} conclusive changes missed the spec although the actuator had room. Suggested \
-         PI (SIMC, τc = {:.0} s): Kc = {:.4}, τI = {:.0} s; expected settling for a {:+.3} \
-         change: {} (spec {:.0} s).{}",
-        tally.c.tuning_limited,
-        tally.conclusive,
-        pi.closed_loop_time_constant_s,
-        pi.gain,
-        pi.integral_time_s,
-        step,
-        expected,
-        spec_s,
-        saturation_note
-    )
 }
 
 fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
@@ -339,19 +327,9 @@ fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
 
 /// The recommendation's settings as people type them, one line each (empty without a retune).
 pub fn settings_lines(r: &Recommendation, units: &super::Units) -> Vec<String> {
-    let Some(pi) = &r.retune else {
-        return Vec::new();
-    };
-    let per = if units.pv.is_empty() {
-        format!("{} per PV unit", units.op)
-    } else {
-        format!("{}/{}", units.op, units.pv)
-    };
-    vec![format!(
-        "Suggested PI (ideal form): Kc {} {per}, Ti {}.",
-        crate::units::sig(pi.gain.abs(), crate::units::DISPLAY_DIGITS),
-        crate::units::human_duration(pi.integral_time_s)
-    )]
+    r.retune
+        .as_ref()
+        .map_or_else(Vec::new, |advice| retune::lines(advice, units))
 }
 
 fn median(values: impl Iterator<Item = f64>) -> f64 {

@@ -212,8 +212,7 @@ impl Model {
     /// s, min or h as fits.
     pub fn describe(&self, units: &Units) -> String {
         let (k, tau, theta) = (self.gain, self.time_constant_s, self.dead_time_s);
-        let pv = if units.pv.is_empty() { "PV" } else { &units.pv };
-        let per = format!("{pv}/{}", units.op);
+        let per = units.process_gain();
         let g = |x: f64| format!("{} {per}", sig(x, DISPLAY_DIGITS));
         let t = human_duration;
         match self.family {
