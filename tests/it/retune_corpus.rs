@@ -27,8 +27,6 @@ use headroom::analysis::sim::{
 };
 use headroom::analysis::tuning::{self, Suggestion, Target};
 use headroom::analysis::{OpRange, Spec, Verdict, analyze_loop};
-use std::sync::Mutex;
-use std::sync::atomic::{AtomicUsize, Ordering};
 
 const LOOPS_PER_FAMILY: usize = 12;
 const BAND_PCT: f64 = 2.0;
@@ -53,6 +51,20 @@ struct Case {
     spec: Spec,
 }
 
+/// A first-order-plus-dead-time model, as identification would return it.
+pub(crate) fn fopdt_model(gain: f64, time_constant_s: f64, dead_time_s: f64) -> Model {
+    Model::first_order(
+        Fopdt {
+            gain,
+            time_constant_s,
+            dead_time_s,
+        },
+        1.0,
+        0,
+        0,
+    )
+}
+
 fn pick(rng: &mut Rng, lo: f64, hi: f64) -> f64 {
     lo + (hi - lo) * rng.uniform()
 }
@@ -64,18 +76,7 @@ fn truth(kind: Kind, rng: &mut Rng) -> (Model, Dynamics) {
     let gain = sign * pick(rng, 0.3, 2.5);
     let tau = pick(rng, 20.0, 400.0);
     let theta = tau * pick(rng, 0.05, 1.0);
-    let fo = |gain: f64, tau: f64, theta: f64| {
-        Model::first_order(
-            Fopdt {
-                gain,
-                time_constant_s: tau,
-                dead_time_s: theta,
-            },
-            1.0,
-            0,
-            0,
-        )
-    };
+    let fo = fopdt_model;
     let lags = |tau2: f64| {
         Dynamics::Lags(Process {
             gain,
@@ -297,26 +298,17 @@ fn outcomes() -> Vec<Outcome> {
         .flat_map(|&k| (0..LOOPS_PER_FAMILY).map(move |_| k))
         .map(|k| random_case(k, &mut rng))
         .collect();
-    let next = AtomicUsize::new(0);
-    let results: Mutex<Vec<Option<Outcome>>> = Mutex::new((0..cases.len()).map(|_| None).collect());
+    // Two halves on two threads, in order.
     std::thread::scope(|s| {
-        for _ in 0..2 {
-            s.spawn(|| {
-                loop {
-                    let i = next.fetch_add(1, Ordering::Relaxed);
-                    let Some(c) = cases.get(i) else { break };
-                    let o = study(c);
-                    results.lock().unwrap()[i] = Some(o);
-                }
-            });
-        }
-    });
-    results
-        .into_inner()
-        .unwrap()
-        .into_iter()
-        .map(|o| o.expect("every loop studied"))
-        .collect()
+        let halves: Vec<_> = cases
+            .chunks(cases.len().div_ceil(2))
+            .map(|half| s.spawn(move || half.iter().map(study).collect::<Vec<_>>()))
+            .collect();
+        halves
+            .into_iter()
+            .flat_map(|h| h.join().expect("a corpus thread"))
+            .collect()
+    })
 }
 
 fn share(outcomes: &[Outcome], ok: impl Fn(&Outcome) -> bool) -> (usize, f64) {
