@@ -13,6 +13,7 @@ mod demo;
 mod example_data;
 mod mode_rule;
 mod reference_python;
+mod retune_corpus;
 mod scenarios;
 mod trust;
 

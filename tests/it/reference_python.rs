@@ -13,7 +13,8 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 use crate::common::headroom_bin;
-use headroom::analysis::identify::{Family, Fopdt, Model};
+use crate::retune_corpus::fopdt_model;
+use headroom::analysis::identify::{Family, Model};
 use headroom::analysis::metrics::OpRange;
 use headroom::analysis::tuning::{self, Target};
 
@@ -116,18 +117,7 @@ fn summary_line_parser() {
 /// The models of the tuning check: first order with θ/τ from 0.1 to 2 in both signs, plus a
 /// second-order and an integrating one; (family fields, first-order equivalent for SIMC).
 fn tuning_models() -> Vec<(&'static str, Model)> {
-    let fo = |gain: f64, tau: f64, theta: f64| {
-        Model::first_order(
-            Fopdt {
-                gain,
-                time_constant_s: tau,
-                dead_time_s: theta,
-            },
-            1.0,
-            0,
-            0,
-        )
-    };
+    let fo = fopdt_model;
     let mut out = vec![
         ("fo_r0.1_pos", fo(2.0, 100.0, 10.0)),
         ("fo_r0.3_neg", fo(-0.8, 50.0, 15.0)),

@@ -79,23 +79,7 @@ fn two_lags_match_the_closed_form_step_response() {
 
 #[test]
 fn pi_loop_settles_on_the_setpoint_and_respects_the_actuator_range() {
-    let p = Process {
-        dead_time_s: 2.0,
-        ..LAG
-    };
-    let mut sim = LoopSim::new(LoopSimConfig {
-        process: p,
-        controller: PiController {
-            gain: 1.25,
-            integral_time_s: 10.0,
-            op_min: 0.0,
-            op_max: 0.9,
-        },
-        step_s: 0.01,
-        noise_sd: 0.0,
-        seed: 7,
-        initial_sp: 0.5,
-    });
+    let mut sim = saturating_loop();
     let samples = sim.run(&[(1.0, 1.5)], 120.0, 0.5);
     assert!(samples.iter().all(|s| (0.0..=0.9).contains(&s.op)));
     assert!(
@@ -330,6 +314,8 @@ fn a_watched_run_shows_the_loop_as_it_stands_at_each_change() {
     assert_eq!(at.op, seen[1].2);
 }
 
+/// K = 2 (from `LAG`), θ = 2 under SIMC's tight PI (Kc 1.25, τI 10) whose OP saturates at 0.9,
+/// at rest at 0.5.
 fn saturating_loop() -> LoopSim {
     LoopSim::new(LoopSimConfig {
         process: Process {

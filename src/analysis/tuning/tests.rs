@@ -110,16 +110,12 @@ fn tau_c_is_tightened_below_the_headroom_fit_when_that_misses_the_spec() {
 }
 
 fn fopdt(gain: f64, time_constant_s: f64, dead_time_s: f64) -> Model {
-    Model::first_order(
-        Fopdt {
-            gain,
-            time_constant_s,
-            dead_time_s,
-        },
-        1.0,
-        0,
-        0,
-    )
+    let exact = Fopdt {
+        gain,
+        time_constant_s,
+        dead_time_s,
+    };
+    Model::first_order(exact, 1.0, 0, 0)
 }
 
 /// A step of `step` from OP 50 with the actuator far away, band `band` (PV units).
