@@ -10,9 +10,9 @@
 //! common practice).
 //!
 //! The loop's record (with measurement noise) goes through the analysis as the product runs it
-//! ([`analyze_loop`]): the identified model and the tuning-limited changes give the typical step,
-//! its starting OP and today's settling; [`tuning::retune`] suggests settings; those are then
-//! simulated on the TRUE plant (its exact family and parameters, the OP clamped with clamping
+//! ([`analyze_loop`]), and its recommendation's retune advice (the typical tuning-limited change
+//! and the settings chosen and verified on the identified model) is taken as it stands; those
+//! settings are then simulated on the TRUE plant (its exact family and parameters, the OP clamped with clamping
 //! anti-windup) for the same step. Three figures, printed with `--nocapture` and asserted:
 //! - the suggestion meets the spec on the true plant (target ≥ 90 % of loops);
 //! - its Ms on the true plant is at most 2 (≥ 90 %);
@@ -21,12 +21,13 @@
 //! A loop without a suggestion that meets the spec on its model counts against all three.
 
 use crate::common::sim::{self as loopsim, series};
+use headroom::analysis::advice::RetuneOutcome;
 use headroom::analysis::identify::{Family, Fopdt, Model};
 use headroom::analysis::sim::{
     Dynamics, IntegratingProcess, LoopSim, PiController, PlantSimConfig, Process, Rng,
 };
-use headroom::analysis::tuning::{self, Suggestion, Target};
-use headroom::analysis::{OpRange, Spec, Verdict, analyze_loop};
+use headroom::analysis::tuning::{self, Target};
+use headroom::analysis::{OpRange, Spec, analyze_loop};
 
 const LOOPS_PER_FAMILY: usize = 12;
 const BAND_PCT: f64 = 2.0;
@@ -224,44 +225,30 @@ fn study(case: &Case) -> Outcome {
     let Some(model) = report.model else {
         return fail(format!("no model: {:?}", report.model_refusal));
     };
-    // The typical change: the tuning-limited changes in the step's direction.
-    let limited: Vec<_> = report
-        .episodes
-        .iter()
-        .filter(|e| e.verdict == Verdict::TuningLimited && (e.sp_to - e.sp_from) * case.step > 0.0)
-        .collect();
-    if limited.is_empty() {
-        return fail(format!("no tuning-limited change: {:?}", report.counts));
-    }
-    let median = |mut v: Vec<f64>| {
-        v.sort_by(f64::total_cmp);
-        v[v.len() / 2]
+    // The product's own advice: the typical tuning-limited change, today's settling for it,
+    // and the settings chosen and verified on the identified model.
+    let Some(retune) = report.recommendation.retune.clone() else {
+        return fail(format!(
+            "no retune advice ({:?}): {}",
+            report.counts, report.recommendation.summary
+        ));
     };
-    let step = median(limited.iter().map(|e| e.sp_to - e.sp_from).collect());
-    let from_op = median(limited.iter().map(|e| e.op_start).collect());
-    let achieved = limited
-        .iter()
-        .map(|e| e.settling_time_s)
-        .collect::<Option<Vec<f64>>>()
-        .map(median);
+    if retune.outcome != RetuneOutcome::MeetsSpec {
+        return fail(format!(
+            "refused on {}: {:?}",
+            model.kind().as_str(),
+            retune.reason
+        ));
+    }
+    let (ideal, verified) = (retune.ideal, retune.verified);
     let target = Target {
-        step,
-        from_op,
+        step: verified.step,
+        from_op: verified.from_op,
         op: setup.op,
-        band: BAND_PCT / 100.0 * step.abs(),
+        band: case.spec.band_abs(verified.step),
         spec_s: case.spec.settle_within_s,
         max_overshoot_pct: case.spec.max_overshoot_pct,
-        achieved_settling_s: achieved,
-    };
-    let suggestion = tuning::retune(&model, &target, case.sample_s);
-    let Suggestion::Meets {
-        ideal, verified, ..
-    } = suggestion
-    else {
-        return fail(format!(
-            "refused on {}: {suggestion:?}",
-            model.kind().as_str()
-        ));
+        achieved_settling_s: None,
     };
     // The true plant, from its own steady state at the same OP, for the same step.
     let on_truth = tuning::verify(&case.truth, &ideal, &target, case.sample_s);
