@@ -68,6 +68,8 @@ pub struct AnalyzeArgs {
     /// Name to show for the loop (default: the --loop tag or the file name).
     #[arg(long, value_name = "TAG")]
     pub tag: Option<String>,
+    #[command(flatten)]
+    pub csv_time: super::csv_flags::CsvTimeFlags,
 }
 
 impl AnalyzeArgs {
@@ -105,6 +107,7 @@ impl AnalyzeArgs {
         if let Some(v) = &self.auto_values {
             csv.auto_values = AutoValues::new(v);
         }
+        self.csv_time.apply(&mut csv)?;
         if let Some(v) = self.op_min {
             setup.op.min = v;
         }

@@ -7,6 +7,7 @@ mod alerts;
 mod analyze;
 mod bench;
 mod check_config;
+mod csv_flags;
 mod demo;
 mod episodes;
 mod error;
