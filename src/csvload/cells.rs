@@ -168,13 +168,9 @@ mod tests {
             (4, Some(2))
         );
         assert_eq!(l.report.dropped.pv.not_a_number.rows, 1);
-        assert!(
-            has_note(
-                &l.report,
-                "read decimal commas (such as 12,5 for 12.5) in 4 rows"
-            ),
-            "{:?}",
-            l.report.notes()
+        assert_note(
+            &l.report,
+            "read decimal commas (such as 12,5 for 12.5) in 4 rows",
         );
         assert_eq!(points.report.decimal_commas.rows, 0);
         let tabs = load_ok(&commas.replace(';', "\t"));

@@ -110,22 +110,9 @@ pub enum CsvError {
         value: String,
     },
     #[error(
-        "row {row}, column {column:?}: {value} would be {found} but the first time (row \
-         {first_row}) is {expected}: numbers from 1e11 on can only be epoch milliseconds and \
-         smaller ones are taken as seconds, so the unit is unclear; give --time-unit s or \
-         --time-unit ms"
-    )]
-    TimeUnitUnclear {
-        row: u64,
-        column: String,
-        value: String,
-        first_row: u64,
-        expected: TimeFormat,
-        found: TimeFormat,
-    },
-    #[error(
         "row {row}, column {column:?}: {value:?} is {found}, but the first time (row {first_row}) \
-         is {expected}; one file must use one time format"
+         is {expected}; {}",
+        mixed_advice(*.expected, *.found)
     )]
     MixedTimeFormats {
         row: u64,
@@ -155,6 +142,17 @@ pub enum CsvError {
     /// Should not happen: the loader establishes the series' invariants itself.
     #[error("the loaded columns were refused: {0}")]
     Series(#[from] SeriesError),
+}
+
+/// What to do about a file with times in two formats. Numbers in two units can only come from
+/// the size rule, which a unit given settles.
+fn mixed_advice(expected: TimeFormat, found: TimeFormat) -> &'static str {
+    if expected.is_number() && found.is_number() {
+        "numbers from 1e11 on can only be epoch milliseconds and smaller ones are taken as \
+         seconds, so the unit is unclear: give --time-unit s or --time-unit ms"
+    } else {
+        "one file must use one time format"
+    }
 }
 
 fn quoted_list(names: &[String]) -> String {

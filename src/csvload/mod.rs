@@ -284,6 +284,22 @@ mod test_support {
         report.notes().iter().any(|n| n.contains(needle))
     }
 
+    pub(super) fn assert_note(report: &LoadReport, needle: &str) {
+        assert!(
+            has_note(report, needle),
+            "{needle:?} in {:?}",
+            report.notes()
+        );
+    }
+
+    pub(super) fn assert_no_note(report: &LoadReport, needle: &str) {
+        assert!(
+            !has_note(report, needle),
+            "{needle:?} in {:?}",
+            report.notes()
+        );
+    }
+
     /// Everything a load produced, to compare two loads of the same file.
     pub(super) fn outcome(result: Result<Loaded, CsvError>) -> String {
         match result {

@@ -171,29 +171,14 @@ impl TimeReader {
                 Ok(value)
             }
             Some((expected, _)) if expected == format => Ok(value),
-            Some((expected, first_row)) => {
-                let column = column.to_owned();
-                let value = excerpt(text);
-                Err(if expected.is_number() && format.is_number() {
-                    CsvError::TimeUnitUnclear {
-                        row,
-                        column,
-                        value,
-                        first_row,
-                        expected,
-                        found: format,
-                    }
-                } else {
-                    CsvError::MixedTimeFormats {
-                        row,
-                        column,
-                        value,
-                        first_row,
-                        expected,
-                        found: format,
-                    }
-                })
-            }
+            Some((expected, first_row)) => Err(CsvError::MixedTimeFormats {
+                row,
+                column: column.to_owned(),
+                value: excerpt(text),
+                first_row,
+                expected,
+                found: format,
+            }),
         }
     }
 
@@ -439,11 +424,7 @@ mod tests {
         assert_eq!(l.series.time_s(), &[0.0, 10.0, 20.5]);
         assert_eq!(l.report.time.format, Some(TimeFormat::Local));
         assert_eq!(l.report.time.zone.as_deref(), Some("Europe/Berlin"));
-        assert!(
-            has_note(&l.report, "local times in Europe/Berlin without an offset"),
-            "{:?}",
-            l.report.notes()
-        );
+        assert_note(&l.report, "local times in Europe/Berlin without an offset");
         assert_eq!(l.report.time.repeated_local_times.rows, 0);
     }
 
@@ -480,13 +461,9 @@ mod tests {
             (3, Some(6))
         );
         assert_eq!(l.report.out_of_order.rows, 0);
-        assert!(
-            has_note(
-                &l.report,
-                "3 of them were read as the second occurrence (first at row 6)"
-            ),
-            "{:?}",
-            l.report.notes()
+        assert_note(
+            &l.report,
+            "3 of them were read as the second occurrence (first at row 6)",
         );
     }
 
@@ -564,11 +541,7 @@ mod tests {
             assert_eq!(l.report.time_origin, Some(utc("2026-11-22T23:00:10Z")));
             assert_eq!(l.series.time_s()[2], 20.0, "{pattern}");
             assert_eq!(l.report.time.format, Some(TimeFormat::Pattern));
-            assert!(
-                has_note(&l.report, &format!("pattern {pattern:?} as local times")),
-                "{:?}",
-                l.report.notes()
-            );
+            assert_note(&l.report, &format!("pattern {pattern:?} as local times"));
         }
     }
 
@@ -639,11 +612,7 @@ mod tests {
         assert_eq!(l.report.time.format, Some(TimeFormat::Milliseconds));
         assert!(l.report.time.milliseconds_detected);
         assert_eq!(l.report.sample_interval_s.unwrap().median, 10.0);
-        assert!(
-            has_note(&l.report, "after the year 5138"),
-            "{:?}",
-            l.report.notes()
-        );
+        assert_note(&l.report, "after the year 5138");
         // The arithmetic of the rule, checked by jiff's calendar: 1e11 ms is 1973-03-03, 1e11 s
         // (and so 1e14 ms) is in the year 5138.
         let from = jiff::Timestamp::from_millisecond(MILLISECONDS_FROM as i64).unwrap();
@@ -670,35 +639,23 @@ mod tests {
         let text = "time,sp,pv,op\n1795392010000,1,2,3\n1795392020000,1,2,3\n1e15,1,2,3\n";
         let l = load_csv(text.as_bytes(), &opts).unwrap();
         assert_eq!(l.series.time_s()[0], 1_795_392_010_000.0);
-        assert!(
-            !has_note(&l.report, "milliseconds"),
-            "{:?}",
-            l.report.notes()
-        );
+        assert_no_note(&l.report, "milliseconds");
     }
 
     #[test]
     fn relative_milliseconds_read_as_seconds_get_a_hint() {
         let l = load_ok("time,sp,pv,op\n0,1,2,3\n10000,1,2,3\n20000,1,2,3\n");
         assert_eq!(l.series.time_s(), &[0.0, 10000.0, 20000.0]);
-        assert!(
-            has_note(&l.report, "give --time-unit ms"),
-            "{:?}",
-            l.report.notes()
-        );
+        assert_note(&l.report, "give --time-unit ms");
         let l = load_ok("time,sp,pv,op\n0,1,2,3\n3600,1,2,3\n7200,1,2,3\n");
-        assert!(
-            !has_note(&l.report, "--time-unit"),
-            "{:?}",
-            l.report.notes()
-        );
+        assert_no_note(&l.report, "--time-unit");
     }
 
     #[test]
     fn an_unclear_or_impossible_time_unit_is_an_error_naming_the_option() {
         let err = load("time,sp,pv,op\n1795392010000,1,2,3\n5000,1,2,3\n").unwrap_err();
         match &err {
-            CsvError::TimeUnitUnclear {
+            CsvError::MixedTimeFormats {
                 row,
                 first_row,
                 expected,
@@ -713,7 +670,7 @@ mod tests {
         assert!(err.to_string().contains("--time-unit"), "{err}");
         let err = load("time,sp,pv,op\n0,1,2,3\n1795392010000,1,2,3\n").unwrap_err();
         assert!(
-            matches!(err, CsvError::TimeUnitUnclear { row: 3, .. }),
+            matches!(err, CsvError::MixedTimeFormats { row: 3, .. }),
             "{err}"
         );
         // Epoch microseconds of 2026.
