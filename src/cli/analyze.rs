@@ -11,7 +11,8 @@ use std::path::PathBuf;
 
 #[derive(Debug, Args)]
 pub struct AnalyzeArgs {
-    /// The CSV file (header row; time in seconds or RFC 3339).
+    /// The CSV file (header row; time in seconds, epoch milliseconds, RFC 3339, or local time
+    /// with --time-zone and --time-format).
     pub file: PathBuf,
     /// Print JSON instead of the table.
     #[arg(long)]
@@ -71,6 +72,8 @@ pub struct AnalyzeArgs {
     pub tag: Option<String>,
     #[command(flatten)]
     pub describe: LoopFlags,
+    #[command(flatten)]
+    pub csv_time: super::csv_flags::CsvTimeFlags,
 }
 
 impl AnalyzeArgs {
@@ -108,6 +111,7 @@ impl AnalyzeArgs {
         if let Some(v) = &self.auto_values {
             csv.auto_values = AutoValues::new(v);
         }
+        self.csv_time.apply(&mut csv)?;
         if let Some(v) = self.op_min {
             setup.op.min = v;
         }

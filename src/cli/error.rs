@@ -111,6 +111,14 @@ pub enum Usage {
          90m, 24h, 7d"
     )]
     Time { flag: &'static str, given: String },
+    /// A flag's value the library refused, with its reason, e.g. `--time-zone: unknown time
+    /// zone …`.
+    #[error("{flag}: {source}")]
+    Refused {
+        flag: &'static str,
+        #[source]
+        source: Box<dyn std::error::Error + Send + Sync>,
+    },
     /// A flag's value outside what it can mean, e.g. `--speed must be between 1 … (got 0)`.
     #[error("{flag} {requirement} (got {got})")]
     Flag {

@@ -8,6 +8,7 @@ mod analyze;
 mod bench;
 mod check_config;
 mod controller_flags;
+mod csv_flags;
 mod demo;
 mod episodes;
 mod error;

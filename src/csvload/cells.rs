@@ -1,10 +1,8 @@
 //! Reading one cell: the cells of a record whichever way it was split, plain decimals read
-//! without the general parse, times (seconds or RFC 3339), values and the mode.
+//! without the general parse, numbers (with a decimal point or comma), values and the mode.
+//! Times are read in [`super::times`].
 
-use std::cmp::Ordering;
-
-use super::decimal::plain_decimal;
-use super::error::{CsvError, TimeFormat};
+use super::decimal::{comma_decimal, plain_decimal};
 use super::records::PlainCell;
 use super::report::MAX_MANUAL_TEXTS;
 use super::text::{EXCERPT_CHARS, excerpt};
@@ -64,100 +62,35 @@ pub(super) fn is_blank(cell: &[u8]) -> bool {
     std::str::from_utf8(cell).is_ok_and(|s| s.trim().is_empty())
 }
 
+/// A number read from a cell, and whether it was written with a decimal comma.
 #[derive(Debug, Clone, Copy, PartialEq)]
-pub(super) enum TimeValue {
-    Seconds(f64),
-    Instant(jiff::Timestamp),
+pub(super) struct Number {
+    pub(super) value: f64,
+    pub(super) comma: bool,
 }
 
-pub(super) fn cmp_time(a: &TimeValue, b: &TimeValue) -> Ordering {
-    match (a, b) {
-        (TimeValue::Seconds(x), TimeValue::Seconds(y)) => x.total_cmp(y),
-        (TimeValue::Instant(x), TimeValue::Instant(y)) => x.cmp(y),
-        // A file never mixes the two (that is an error); any fixed order keeps sorting total.
-        (TimeValue::Seconds(_), TimeValue::Instant(_)) => Ordering::Less,
-        (TimeValue::Instant(_), TimeValue::Seconds(_)) => Ordering::Greater,
-    }
-}
-
-pub(super) fn seconds_since(origin: jiff::Timestamp, ts: jiff::Timestamp) -> f64 {
-    let ns = ts.as_nanosecond() - origin.as_nanosecond();
-    // Split so whole seconds and the fraction are each converted exactly where possible.
-    (ns / 1_000_000_000) as f64 + (ns % 1_000_000_000) as f64 / 1e9
-}
-
-/// A finite number, with -0 made +0 so that equal times compare equal when sorted.
-fn finite_number(text: &str) -> Option<Result<f64, ()>> {
+/// A finite number, with -0 made +0 so that equal times compare equal when sorted; `Err` for
+/// NaN or infinity, `None` for text that is not a number. With `comma`, a decimal comma
+/// (`12,5`) is read too, exactly as the same number with a point.
+pub(super) fn finite_number(text: &str, comma: bool) -> Option<Result<Number, ()>> {
+    let point = |value| {
+        Some(Ok(Number {
+            value,
+            comma: false,
+        }))
+    };
     if let Some(v) = plain_decimal(text.as_bytes()) {
-        return Some(Ok(v));
+        return point(v);
+    }
+    if comma && let Some(value) = comma_decimal(text.as_bytes()) {
+        return Some(Ok(Number { value, comma: true }));
     }
     let v = text.parse::<f64>().ok()?;
-    Some(if v.is_finite() {
-        Ok(if v == 0.0 { 0.0 } else { v })
+    if v.is_finite() {
+        point(if v == 0.0 { 0.0 } else { v })
     } else {
-        Err(())
-    })
-}
-
-/// Reads one time cell, fixing the file's time format at the first one.
-pub(super) fn read_time(
-    text: &str,
-    kind: &mut Option<(TimeFormat, u64)>,
-    row: u64,
-    column: &str,
-) -> Result<TimeValue, CsvError> {
-    let (value, format) = match parse_time(text) {
-        Ok(parsed) => parsed,
-        Err(problem) => {
-            let column = column.to_owned();
-            let value = excerpt(text);
-            return Err(match problem {
-                TimeProblem::Blank => CsvError::BlankTime { row, column },
-                TimeProblem::NoOffset => CsvError::TimeWithoutOffset { row, column, value },
-                TimeProblem::Unreadable => CsvError::BadTime { row, column, value },
-            });
-        }
-    };
-    match *kind {
-        None => {
-            *kind = Some((format, row));
-            Ok(value)
-        }
-        Some((expected, _)) if expected == format => Ok(value),
-        Some((expected, first_row)) => Err(CsvError::MixedTimeFormats {
-            row,
-            column: column.to_owned(),
-            value: excerpt(text),
-            first_row,
-            expected,
-            found: format,
-        }),
+        Some(Err(()))
     }
-}
-
-enum TimeProblem {
-    Blank,
-    NoOffset,
-    Unreadable,
-}
-
-fn parse_time(text: &str) -> Result<(TimeValue, TimeFormat), TimeProblem> {
-    if text.is_empty() {
-        return Err(TimeProblem::Blank);
-    }
-    if let Some(number) = finite_number(text) {
-        return match number {
-            Ok(v) => Ok((TimeValue::Seconds(v), TimeFormat::Seconds)),
-            Err(()) => Err(TimeProblem::Unreadable),
-        };
-    }
-    if let Ok(ts) = text.parse::<jiff::Timestamp>() {
-        return Ok((TimeValue::Instant(ts), TimeFormat::Rfc3339));
-    }
-    if text.parse::<jiff::civil::DateTime>().is_ok() {
-        return Err(TimeProblem::NoOffset);
-    }
-    Err(TimeProblem::Unreadable)
 }
 
 pub(super) enum ValueProblem {
@@ -166,11 +99,12 @@ pub(super) enum ValueProblem {
     NotFinite,
 }
 
-pub(super) fn read_value(text: &str) -> Result<f64, ValueProblem> {
+/// Reads one value cell (trimmed); with `comma`, decimal commas are read too.
+pub(super) fn read_value(text: &str, comma: bool) -> Result<Number, ValueProblem> {
     if text.is_empty() {
         return Err(ValueProblem::Blank);
     }
-    match finite_number(text) {
+    match finite_number(text, comma) {
         Some(Ok(v)) => Ok(v),
         Some(Err(())) => Err(ValueProblem::NotFinite),
         None => Err(ValueProblem::NotANumber),
@@ -217,93 +151,55 @@ mod tests {
     use crate::csvload::*;
 
     #[test]
-    fn rfc3339_times_become_seconds_since_the_earliest_and_keep_the_origin() {
-        let text = "time,sp,pv,op\n\
-                    2024-05-01T08:00:10Z,1,2,3\n\
-                    2024-05-01 10:00:20+02:00,1,2,3\n\
-                    2024-05-01T08:00:00.5z,1,2,3\n\
-                    2024-05-01T09:00:30+0100,1,2,3\n";
-        let l = load_ok(text);
-        assert_eq!(l.series.time_s(), &[0.0, 9.5, 19.5, 29.5]);
-        let origin: jiff::Timestamp = "2024-05-01T08:00:00.5Z".parse().unwrap();
-        assert_eq!(l.report.time_origin, Some(origin));
-        assert_eq!(l.report.out_of_order.rows, 1);
-        let json = serde_json::to_value(&l.report).unwrap();
-        assert_eq!(json["time_origin"], "2024-05-01T08:00:00.5Z");
-        assert!(has_note(&l.report, "2024-05-01T08:00:00.5Z"));
-    }
-
-    #[test]
-    fn a_timestamp_without_offset_is_an_error_naming_row_and_column() {
-        let err = load("time,sp,pv,op\n2024-05-01 08:00:00,1,2,3\n").unwrap_err();
-        match &err {
-            CsvError::TimeWithoutOffset { row, column, .. } => {
-                assert_eq!((*row, column.as_str()), (2, "time"));
-            }
-            other => panic!("unexpected error: {other}"),
-        }
-        assert!(err.to_string().contains("+02:00"));
-    }
-
-    #[test]
-    fn a_time_in_the_other_format_is_an_error_naming_both_rows() {
-        let err =
-            load("time,sp,pv,op\n0,1,2,3\n1,1,2,3\n2024-05-01T08:00:00Z,1,2,3\n").unwrap_err();
-        match err {
-            CsvError::MixedTimeFormats {
-                row,
-                first_row,
-                expected,
-                found,
-                ..
-            } => {
-                assert_eq!((row, first_row), (4, 2));
-                assert_eq!(
-                    (expected, found),
-                    (TimeFormat::Seconds, TimeFormat::Rfc3339)
-                );
-            }
-            other => panic!("unexpected error: {other}"),
-        }
-        let err = load("time,sp,pv,op\n2024-05-01T08:00:00Z,1,2,3\n5,1,2,3\n").unwrap_err();
-        assert!(
-            matches!(err, CsvError::MixedTimeFormats { row: 3, .. }),
-            "{err}"
+    fn decimal_commas_in_a_semicolon_file_are_read_exactly_and_counted() {
+        let commas = "time;sp;pv;op\n0;50;49,9746;30,125\n0,5;50;50,0001;-12,5\n\
+                      1;50,5;Bad;1\n1,5;55;51;40\n";
+        let l = load_ok(commas);
+        let points = load_ok(&commas.replace(',', "."));
+        assert_eq!(l.series.time_s(), points.series.time_s());
+        assert_eq!(l.series.pv(), points.series.pv());
+        assert_eq!(l.series.op(), &[30.125, -12.5, 40.0]);
+        assert_eq!(l.series.pv(), &[49.9746, 50.0001, 51.0]);
+        assert_eq!(
+            (
+                l.report.decimal_commas.rows,
+                l.report.decimal_commas.first_row
+            ),
+            (4, Some(2))
         );
+        assert_eq!(l.report.dropped.pv.not_a_number.rows, 1);
+        assert_note(
+            &l.report,
+            "read decimal commas (such as 12,5 for 12.5) in 4 rows",
+        );
+        assert_eq!(points.report.decimal_commas.rows, 0);
+        let tabs = load_ok(&commas.replace(';', "\t"));
+        assert_eq!(tabs.series.pv(), l.series.pv());
     }
 
     #[test]
-    fn an_unreadable_time_is_an_error_naming_row_and_column() {
-        let mut opts = CsvOptions::default();
-        opts.columns.time = "t".into();
-        let text = "t,sp,pv,op\n0,1,2,3\nEnd of data,,,\n";
-        match load_csv(text.as_bytes(), &opts).unwrap_err() {
-            CsvError::BadTime { row, column, value } => {
-                assert_eq!(
-                    (row, column.as_str(), value.as_str()),
-                    (3, "t", "End of data")
-                );
-            }
-            other => panic!("unexpected error: {other}"),
-        }
+    fn in_a_comma_separated_file_decimal_commas_are_read_only_when_asked() {
+        let text = "time,sp,pv,op\n0,1,\"2,5\",3\n1,1,\"2,75\",3\n2,1,2,3\n3,1,2,3\n4,1,2,3\n";
+        let l = load_ok(text);
+        assert_eq!(l.report.dropped.pv.not_a_number.rows, 2);
+        assert_eq!(l.report.decimal_commas.rows, 0);
+        let opts = CsvOptions {
+            decimal_comma: true,
+            ..CsvOptions::default()
+        };
+        let l = load_csv(text.as_bytes(), &opts).unwrap();
+        assert_eq!(l.series.pv(), &[2.5, 2.75, 2.0, 2.0, 2.0]);
+        assert_eq!(l.report.decimal_commas.rows, 2);
     }
 
     #[test]
-    fn a_non_finite_time_is_an_error() {
-        let err = load("time,sp,pv,op\n0,1,2,3\nNaN,1,2,3\n").unwrap_err();
-        assert!(matches!(err, CsvError::BadTime { row: 3, .. }), "{err}");
-        let err = load("time,sp,pv,op\ninf,1,2,3\n").unwrap_err();
-        assert!(matches!(err, CsvError::BadTime { row: 2, .. }), "{err}");
-    }
-
-    #[test]
-    fn a_blank_time_is_an_error_naming_row_and_column() {
-        let err = load("time,sp,pv,op\n0,1,2,3\n  ,1,2,3\n").unwrap_err();
-        match &err {
-            CsvError::BlankTime { row, column } => assert_eq!((*row, column.as_str()), (3, "time")),
-            other => panic!("unexpected error: {other}"),
-        }
-        assert!(err.to_string().contains("row 3"));
+    fn digit_grouping_is_not_read_as_a_decimal_comma() {
+        let l = load_ok("time;sp;pv;op\n0;1;1.234,5;3\n1;1;2;3\n2;1;2;3\n3;1;2;3\n");
+        assert_eq!(l.report.dropped.pv.not_a_number.rows, 1);
+        assert_eq!(
+            l.report.dropped.pv.not_a_number.example.as_deref(),
+            Some("1.234,5")
+        );
     }
 
     #[test]

@@ -1,5 +1,6 @@
 //! Plain decimals (`-?digits[.digits]`), read exactly without the general number parse: the
-//! fast path for the numbers exports nearly always write.
+//! fast path for the numbers exports nearly always write; and decimals written with a comma
+//! (`-?digits,digits`), read exactly the same way.
 
 /// Powers of ten that are exact in an f64.
 const EXACT_POWERS_OF_TEN: [f64; 23] = [
@@ -23,6 +24,32 @@ pub(super) fn plain_decimal(bytes: &[u8]) -> Option<f64> {
 /// correctly, which is what `str::parse::<f64>` returns too. Exports nearly always write numbers
 /// this way, so this skips decoding and trimming the cell and the general parse's work for them.
 pub(super) fn decimal_prefix(bytes: &[u8]) -> (Option<f64>, usize) {
+    decimal_prefix_with(bytes, b'.')
+}
+
+/// A cell written as a decimal with a comma for its decimal mark (`-?digits,digits`, nothing
+/// around it, as spreadsheets in much of Europe write `12,5`), or `None` for any other text.
+///
+/// It is read exactly as the same number written with a point would be: by [`decimal_prefix`]'s
+/// exact route where that applies, otherwise by the general parse of the text with the comma
+/// made a point (which rounds correctly too).
+pub(super) fn comma_decimal(bytes: &[u8]) -> Option<f64> {
+    if !bytes.contains(&b',') || !bytes.last().is_some_and(u8::is_ascii_digit) {
+        return None;
+    }
+    let (value, used) = decimal_prefix_with(bytes, b',');
+    if used != bytes.len() {
+        return None;
+    }
+    value.or_else(|| {
+        let pointed = std::str::from_utf8(bytes).ok()?.replace(',', ".");
+        let v: f64 = pointed.parse().ok()?;
+        Some(if v == 0.0 { 0.0 } else { v })
+    })
+}
+
+/// [`decimal_prefix`] with `point` as the decimal mark.
+fn decimal_prefix_with(bytes: &[u8], point: u8) -> (Option<f64>, usize) {
     let negative = bytes.first() == Some(&b'-');
     let mut i = usize::from(negative);
     let mut mantissa: u64 = 0;
@@ -42,7 +69,7 @@ pub(super) fn decimal_prefix(bytes: &[u8]) -> (Option<f64>, usize) {
         return (None, i);
     }
     let mut decimals = 0;
-    if bytes.get(i) == Some(&b'.') {
+    if bytes.get(i) == Some(&point) {
         i += 1;
         decimals = take_digits(&mut i);
     }
@@ -85,6 +112,26 @@ mod tests {
         assert_eq!(plain_decimal(b"9007199254740992"), Some(9007199254740992.0));
     }
 
+    #[test]
+    fn decimal_commas_are_read_only_in_their_plain_form() {
+        let cases: [(&str, Option<f64>); 11] = [
+            ("12,5", Some(12.5)),
+            ("-0,125", Some(-0.125)),
+            ("-0,0", Some(0.0)),
+            ("0,1", Some(0.1)),
+            ("12345678901234567,25", Some(12345678901234567.25)),
+            ("12", None),
+            ("12,", None),
+            (",5", None),
+            ("1,234,5", None),
+            ("1.234,5", None),
+            ("12.5", None),
+        ];
+        for (text, value) in cases {
+            assert_eq!(comma_decimal(text.as_bytes()), value, "{text:?}");
+        }
+    }
+
     mod properties {
         use super::*;
         use proptest::prelude::*;
@@ -102,6 +149,16 @@ mod tests {
                     // to the general parse.
                     None => prop_assert!(text.bytes().filter(u8::is_ascii_digit).count() >= 16),
                 }
+            }
+
+            #[test]
+            fn decimal_commas_read_exactly_as_the_same_number_with_a_point(
+                text in "-?[0-9]{1,21},[0-9]{1,23}",
+            ) {
+                let general = text.replace(',', ".").parse::<f64>().unwrap();
+                let general = if general == 0.0 { 0.0 } else { general };
+                let read = comma_decimal(text.as_bytes()).unwrap();
+                prop_assert_eq!(read.to_bits(), general.to_bits());
             }
         }
     }

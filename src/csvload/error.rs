@@ -1,34 +1,12 @@
-//! Why a load stopped ([`CsvError`]), and the two time formats a file may use ([`TimeFormat`]),
-//! which the mixed-formats error names.
+//! Why a load stopped ([`CsvError`]).
 
-use std::fmt;
 use std::io;
 
-use serde::Serialize;
 use thiserror::Error;
 
-use super::report::LoadReport;
+use super::report::{LoadReport, TimeFormat};
 use super::text::plural;
 use crate::analysis::SeriesError;
-
-/// The two time formats a file may use.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-#[serde(rename_all = "snake_case")]
-pub enum TimeFormat {
-    /// A plain number of seconds on any origin.
-    Seconds,
-    /// An RFC 3339 timestamp with `Z` or a numeric offset.
-    Rfc3339,
-}
-
-impl fmt::Display for TimeFormat {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(match self {
-            TimeFormat::Seconds => "a number of seconds",
-            TimeFormat::Rfc3339 => "an RFC 3339 timestamp",
-        })
-    }
-}
 
 /// Why a file could not be loaded. Rows are line numbers in the file (the header is normally
 /// row 1); columns are named as in the header.
@@ -81,7 +59,8 @@ pub enum CsvError {
     BlankTime { row: u64, column: String },
     #[error(
         "row {row}, column {column:?}: {value:?} is neither a finite number of seconds nor an \
-         RFC 3339 timestamp such as 2024-05-01T08:00:00Z"
+         RFC 3339 timestamp such as 2024-05-01T08:00:00Z; for times written another way, such \
+         as 23.11.2026 08:00:00, give the pattern with --time-format \"%d.%m.%Y %H:%M:%S\""
     )]
     BadTime {
         row: u64,
@@ -90,7 +69,8 @@ pub enum CsvError {
     },
     #[error(
         "row {row}, column {column:?}: {value:?} has no UTC offset, so the instant it names is \
-         unknown; add Z (for UTC) or an offset such as +02:00"
+         unknown; give the zone the times are in with --time-zone (such as --time-zone \
+         Europe/Berlin), or add Z (for UTC) or an offset such as +02:00"
     )]
     TimeWithoutOffset {
         row: u64,
@@ -98,8 +78,41 @@ pub enum CsvError {
         value: String,
     },
     #[error(
+        "row {row}, column {column:?}: {value:?} does not match the time pattern {pattern:?} \
+         given with --time-format"
+    )]
+    TimeNotInPattern {
+        row: u64,
+        column: String,
+        value: String,
+        pattern: String,
+    },
+    #[error(
+        "row {row}, column {column:?}: {value:?} does not exist in {zone}: the clocks skipped \
+         that hour when daylight saving time began, so the times are not local times of that \
+         zone; if the export keeps standard time all year, give a fixed-offset zone with \
+         --time-zone (Etc/GMT-1 is UTC+01:00 all year)"
+    )]
+    LocalTimeSkipped {
+        row: u64,
+        column: String,
+        value: String,
+        zone: String,
+    },
+    #[error(
+        "row {row}, column {column:?}: {value} is too large to be seconds or milliseconds since \
+         1970 (1e14 or more would be after the year 5138 either way); convert microseconds or \
+         nanoseconds to seconds, or give --time-unit s or --time-unit ms to read it anyway"
+    )]
+    TimeNumberTooLarge {
+        row: u64,
+        column: String,
+        value: String,
+    },
+    #[error(
         "row {row}, column {column:?}: {value:?} is {found}, but the first time (row {first_row}) \
-         is {expected}; one file must use one time format"
+         is {expected}; {}",
+        mixed_advice(*.expected, *.found)
     )]
     MixedTimeFormats {
         row: u64,
@@ -129,6 +142,17 @@ pub enum CsvError {
     /// Should not happen: the loader establishes the series' invariants itself.
     #[error("the loaded columns were refused: {0}")]
     Series(#[from] SeriesError),
+}
+
+/// What to do about a file with times in two formats. Numbers in two units can only come from
+/// the size rule, which a unit given settles.
+fn mixed_advice(expected: TimeFormat, found: TimeFormat) -> &'static str {
+    if expected.is_number() && found.is_number() {
+        "numbers from 1e11 on can only be epoch milliseconds and smaller ones are taken as \
+         seconds, so the unit is unclear: give --time-unit s or --time-unit ms"
+    } else {
+        "one file must use one time format"
+    }
 }
 
 fn quoted_list(names: &[String]) -> String {

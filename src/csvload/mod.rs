@@ -15,14 +15,39 @@
 //!   trimmed and matched case-insensitively. A wanted column that is missing, or named twice, is
 //!   an error. The delimiter is a comma, unless the header line has no comma but does have
 //!   semicolons or tabs (the more frequent of the two wins).
+//! - **Decimal commas.** In a file whose delimiter is not a comma (or with
+//!   [`CsvOptions::decimal_comma`]), a number written `-?digits,digits` (`12,5`) is read with the
+//!   comma as its decimal mark, exactly as `12.5` would be, and the rows with one are counted.
+//!   Such a cell could mean nothing else there: without this it would not be a number at all.
+//!   Digit grouping (`1.234,5`) is not read; such a cell is not a number.
 //! - **Shape of a row.** A row whose cells are all blank, or that repeats the header, is skipped.
 //!   A short row has its missing cells read as blank. A row with extra cells beyond the header is
 //!   kept if the extras are blank (trailing delimiters) and dropped otherwise, since its values
 //!   may have shifted.
-//! - **Time.** Either every time is a number of seconds (any origin, kept as it is) or every time
-//!   is an RFC 3339 timestamp (with `Z` or a numeric offset; a space may stand for the `T`); the
-//!   first row decides. A blank, unreadable or other-format time is an error: time is what every
-//!   other value hangs on, so a row without one cannot be placed. Timestamps become seconds since
+//! - **Time.** One file uses one time format, and the first row decides which:
+//!   - a number of seconds, on any origin, kept as it is; or of milliseconds, turned into
+//!     seconds on the same origin, when [`CsvOptions::time_unit`] says so, or without a unit
+//!     given when the number is 1e11 or more: as seconds since 1970 that would be after the year
+//!     5138, as milliseconds it is 1973 or later. From 1e14 on (after 5138 as milliseconds too:
+//!     microseconds or nanoseconds, most likely) a number is an error without a unit given, and
+//!     so is a file whose numbers fall on both sides of 1e11 (the unit is unclear);
+//!   - an RFC 3339 timestamp (with `Z` or a numeric offset; a space may stand for the `T`);
+//!   - a date and time without an offset (`2026-11-23 00:00:10`), read as a local time in
+//!     [`CsvOptions::time_zone`]; without a zone it is an error. A local time the zone skips
+//!     (clocks going forward) is an error, since such a time cannot come from a clock in that
+//!     zone. A local time the zone has twice (clocks going back) is its first occurrence, unless
+//!     the local time on the row before was read as the second occurrence or lies about an hour
+//!     later than this first occurrence (from half to one and a half times the repeat: the times
+//!     went back with the clocks); then it is the second. So a repeated hour written in the order
+//!     it happened is read as it happened. Rows with such times, and those read as the second
+//!     occurrence, are counted. With samples more than half an hour apart, or in a file that
+//!     begins inside the second occurrence, there is nothing to tell the occurrences by: such
+//!     times are read as the first occurrence (and may then count as duplicates);
+//!   - with [`CsvOptions::time_pattern`], every time is read with that pattern instead (as an
+//!     instant if it has an offset, otherwise as a local time as above).
+//!
+//!   A blank, unreadable or other-format time is an error: time is what every other value hangs
+//!   on, so a row without one cannot be placed. Timestamps and local times become seconds since
 //!   the earliest one, which is kept as [`LoadReport::time_origin`].
 //! - **Values.** A blank, non-numeric (quality text such as `Bad Input`) or non-finite SP, PV or
 //!   OP drops the row, counted per column and reason. Surrounding whitespace is fine.
@@ -41,19 +66,24 @@ mod cells;
 mod decimal;
 mod error;
 mod header;
+mod pattern;
 mod records;
 mod report;
 mod rows;
 mod text;
+mod times;
 
 use std::io::Read;
 
 use crate::analysis::{AutoValues, Series};
 
-pub use error::{CsvError, TimeFormat};
+pub use error::CsvError;
+pub use pattern::{BadTimePattern, TimePattern};
 pub use report::{
-    CellDrops, ColumnNames, DroppedRows, IntervalStats, LoadReport, ModeSummary, Tally,
+    CellDrops, ColumnNames, DroppedRows, IntervalStats, LoadReport, ModeSummary, Tally, TimeColumn,
+    TimeFormat,
 };
+pub use times::{MILLISECONDS_FROM, MILLISECONDS_UNTIL, TimeUnit};
 
 use records::{
     LineCounter, PlainCell, PlainRecords, Text, UTF8_BOM, detect_delimiter, first_line,
@@ -86,12 +116,21 @@ impl Default for CsvColumns {
     }
 }
 
-/// What to read and how to interpret the mode column.
+/// What to read, how the time and numbers are written, and how to interpret the mode column.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct CsvOptions {
     pub columns: CsvColumns,
     /// Which mode values mean automatic (or cascade).
     pub auto_values: AutoValues,
+    /// The zone of times written without an offset; without it such a time is an error.
+    pub time_zone: Option<jiff::tz::TimeZone>,
+    /// How every time is written, when not in one of the forms read without it.
+    pub time_pattern: Option<TimePattern>,
+    /// The unit of numeric times; without it, see the module's rule.
+    pub time_unit: Option<TimeUnit>,
+    /// Read decimal commas in a comma-separated file too (where they can only be in quoted
+    /// cells); in a file separated otherwise they are read anyway.
+    pub decimal_comma: bool,
 }
 
 /// A successful load: the series for the analysis and the account of how it was obtained.
@@ -211,8 +250,54 @@ mod test_support {
         opts
     }
 
+    /// Each of the options for how times and numbers are written, one at a time.
+    pub(super) fn historian_options() -> Vec<CsvOptions> {
+        let zone = crate::units::time_zone("Europe/Berlin").ok();
+        let pattern = TimePattern::new("%d.%m.%Y %H:%M:%S").ok();
+        vec![
+            CsvOptions {
+                time_zone: zone.clone(),
+                ..CsvOptions::default()
+            },
+            CsvOptions {
+                time_zone: zone,
+                time_pattern: pattern.clone(),
+                ..CsvOptions::default()
+            },
+            CsvOptions {
+                time_pattern: pattern,
+                ..CsvOptions::default()
+            },
+            CsvOptions {
+                time_unit: Some(TimeUnit::Milliseconds),
+                ..CsvOptions::default()
+            },
+            CsvOptions {
+                time_unit: Some(TimeUnit::Seconds),
+                decimal_comma: true,
+                ..CsvOptions::default()
+            },
+        ]
+    }
+
     pub(super) fn has_note(report: &LoadReport, needle: &str) -> bool {
         report.notes().iter().any(|n| n.contains(needle))
+    }
+
+    pub(super) fn assert_note(report: &LoadReport, needle: &str) {
+        assert!(
+            has_note(report, needle),
+            "{needle:?} in {:?}",
+            report.notes()
+        );
+    }
+
+    pub(super) fn assert_no_note(report: &LoadReport, needle: &str) {
+        assert!(
+            !has_note(report, needle),
+            "{needle:?} in {:?}",
+            report.notes()
+        );
     }
 
     /// Everything a load produced, to compare two loads of the same file.
@@ -246,6 +331,14 @@ mod test_support {
                 "2024-05-01 08:00:01+02:00",
                 "2024-05-01 08:00:00",
                 "1e308",
+                "12,5",
+                "-0,25",
+                "1795392010000",
+                "1e15",
+                "23.11.2026 00:00:10",
+                "23/11/2026 00:00:10",
+                "2026-10-25 02:30:00",
+                "2026-03-29 02:30:00",
                 "\u{feff}",
                 "é",
                 "\r",
@@ -322,20 +415,29 @@ mod tests {
                 let mut prefixed = b"time,sp,pv,op\n".to_vec();
                 prefixed.extend_from_slice(&bytes);
                 check_outcome(load_csv(&prefixed[..], &CsvOptions::default()));
+                for opts in historian_options() {
+                    check_outcome(load_csv(&prefixed[..], &opts));
+                }
             }
 
             #[test]
             fn loading_never_panics_on_csv_like_text(text in csvish()) {
                 check_outcome(load_csv(text.as_bytes(), &CsvOptions::default()));
                 check_outcome(load_csv(text.as_bytes(), &with_mode("mode")));
+                for opts in historian_options() {
+                    check_outcome(load_csv(text.as_bytes(), &opts));
+                }
             }
 
             #[test]
             fn loading_never_panics_on_text_from_a_csv_alphabet(
-                text in "[0-9a-zA-Z ,;\t\r\n\".:+eE-]{0,400}"
+                text in "[0-9a-zA-Z ,;\t\r\n\".:+eE/-]{0,400}"
             ) {
                 check_outcome(load(&format!("time,sp,pv,op\n{text}")));
                 check_outcome(load(&text));
+                for opts in historian_options() {
+                    check_outcome(load_csv(format!("time;sp;pv;op\n{text}").as_bytes(), &opts));
+                }
             }
         }
     }

@@ -2,6 +2,7 @@
 
 use std::cmp::Ordering;
 use std::collections::BTreeMap;
+use std::fmt;
 
 use serde::Serialize;
 
@@ -133,6 +134,62 @@ impl IntervalStats {
     }
 }
 
+/// The time formats a file may use; one file uses one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TimeFormat {
+    /// A plain number of seconds on any origin.
+    Seconds,
+    /// A plain number of milliseconds on any origin (given, or recognised by its size).
+    Milliseconds,
+    /// An RFC 3339 timestamp with `Z` or a numeric offset.
+    Rfc3339,
+    /// A date and time without an offset, read in the time zone given.
+    Local,
+    /// A time written to the pattern given.
+    Pattern,
+}
+
+impl TimeFormat {
+    /// Whether times in this format are plain numbers.
+    pub fn is_number(self) -> bool {
+        matches!(self, TimeFormat::Seconds | TimeFormat::Milliseconds)
+    }
+}
+
+impl fmt::Display for TimeFormat {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            TimeFormat::Seconds => "a number of seconds",
+            TimeFormat::Milliseconds => "a number of milliseconds",
+            TimeFormat::Rfc3339 => "an RFC 3339 timestamp",
+            TimeFormat::Local => "a local time without offset",
+            TimeFormat::Pattern => "a time in the given --time-format",
+        })
+    }
+}
+
+/// How the time column was read.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
+pub struct TimeColumn {
+    /// The format of the file's times; `None` only when no time was read.
+    pub format: Option<TimeFormat>,
+    /// The pattern the times were read with, when one was given.
+    pub pattern: Option<String>,
+    /// The zone local times (written without an offset) were read in, when there were any.
+    pub zone: Option<String>,
+    /// Whether the unit of numeric times was given rather than taken by the default rule.
+    pub unit_given: bool,
+    /// Whether numbers were read as milliseconds because of their size (1e11 or more), with no
+    /// unit given.
+    pub milliseconds_detected: bool,
+    /// Rows with a local time that the zone has twice, in the hour repeated when clocks go back.
+    pub repeated_local_times: Tally,
+    /// Of those, the rows read as the second occurrence, because the times before them had gone
+    /// back by about that hour.
+    pub second_occurrences: Tally,
+}
+
 /// The columns used, spelled as in the file's header.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
 pub struct ColumnNames {
@@ -164,6 +221,11 @@ pub struct LoadReport {
     /// file gives time in seconds, which are kept as they are.
     #[serde(serialize_with = "serialize_origin")]
     pub time_origin: Option<jiff::Timestamp>,
+    /// How the time column was read.
+    pub time: TimeColumn,
+    /// Rows with at least one SP, PV, OP or time written with a decimal comma (`12,5`) and read
+    /// as such.
+    pub decimal_commas: Tally,
     /// Rows whose cells are all blank (such as a line of delimiters), skipped.
     pub empty_rows: Tally,
     /// Rows that repeat the header line (as in concatenated exports), skipped.
@@ -213,6 +275,8 @@ impl LoadReport {
             data_rows: 0,
             rows_kept: 0,
             time_origin: None,
+            time: TimeColumn::default(),
+            decimal_commas: Tally::default(),
             empty_rows: Tally::default(),
             repeated_headers: Tally::default(),
             short_rows: Tally::default(),
@@ -257,10 +321,62 @@ impl LoadReport {
             '\t' => notes.push("cells are separated by tabs (the header has no comma)".into()),
             other => notes.push(format!("cells are separated by {other:?}")),
         }
+        notes.extend(self.decimal_commas.note("row", |n, at| {
+            format!("read decimal commas (such as 12,5 for 12.5) in {n}{at}")
+        }));
+        self.time_notes(notes);
+    }
+
+    /// How the times were read, when not as plain seconds.
+    fn time_notes(&self, notes: &mut Vec<String>) {
+        let time = &self.time;
+        if time.milliseconds_detected {
+            notes.push(
+                "time is given as numbers of 1e11 or more, which as seconds since 1970 would be \
+                 after the year 5138, so they were read as milliseconds (from 1973 on) and \
+                 turned into seconds"
+                    .to_owned(),
+            );
+        } else if time.format == Some(TimeFormat::Milliseconds) {
+            notes.push("time is given in milliseconds; turned into seconds".to_owned());
+        }
         if let Some(origin) = self.time_origin {
+            let how = match (&time.pattern, &time.zone) {
+                (Some(p), Some(z)) => format!("read with the pattern {p:?} as local times in {z}"),
+                (Some(p), None) => format!("read with the pattern {p:?}"),
+                (None, Some(z)) => format!("given as local times in {z} without an offset"),
+                (None, None) => "given as RFC 3339 timestamps".to_owned(),
+            };
             notes.push(format!(
-                "time is given as RFC 3339 timestamps; they were turned into seconds since the \
-                 earliest, {origin}"
+                "time is {how}; they were turned into seconds since the earliest, {origin}"
+            ));
+        }
+        let zone = time.zone.as_deref().unwrap_or("the zone");
+        notes.extend(time.repeated_local_times.note("row", |n, at| {
+            let seconds = match time.second_occurrences.rows {
+                0 => "all were read as the first occurrence, as the times never went back by \
+                      that hour"
+                    .to_owned(),
+                m => format!(
+                    "{m} of them were read as the second occurrence{}, because the times before \
+                     them had gone back by about that hour",
+                    time.second_occurrences.at()
+                ),
+            };
+            format!(
+                "{n} had a local time that occurs twice in {zone}, in the hour repeated when the \
+                 clocks go back{at}; {seconds}"
+            )
+        }));
+        let interval = self.sample_interval_s.map_or(0.0, |iv| iv.median);
+        // Relative milliseconds look like seconds; at 1 s sampling or slower they are whole
+        // thousands apart, which as seconds would be unusual for a control loop.
+        let whole_thousands = interval >= 1000.0 && interval % 1000.0 == 0.0;
+        if time.format == Some(TimeFormat::Seconds) && !time.unit_given && whole_thousands {
+            notes.push(format!(
+                "samples are {} s apart (median); if the times are milliseconds, give \
+                 --time-unit ms",
+                round_sig(interval)
             ));
         }
     }

@@ -3,13 +3,11 @@
 
 use std::cmp::Ordering;
 
-use super::cells::{
-    Cells, ModeCell, TimeValue, ValueProblem, cmp_time, is_blank, read_mode, read_time, read_value,
-    seconds_since,
-};
-use super::error::{CsvError, TimeFormat};
+use super::cells::{Cells, ModeCell, ValueProblem, is_blank, read_mode, read_value};
+use super::error::CsvError;
 use super::header::Layout;
 use super::report::{IntervalStats, LoadReport, ModeSummary, OTHER_MANUAL_TEXTS, Tally};
+use super::times::{TimeReader, TimeValue, cmp_time, seconds_since};
 use super::{CsvOptions, Loaded, MIN_ROWS};
 use crate::analysis::{AutoValues, Series};
 
@@ -27,8 +25,10 @@ pub(super) struct Loader {
     /// Which mode values mean automatic.
     auto_values: AutoValues,
     report: LoadReport,
-    /// The file's time format and the row that fixed it.
-    time_kind: Option<(TimeFormat, u64)>,
+    /// Reads the time column, holding the file's time format.
+    times: TimeReader,
+    /// Whether numbers may be written with a decimal comma.
+    comma: bool,
     /// Distinct texts read as manual, in the order first met.
     manual_texts: Vec<String>,
     kept: Kept,
@@ -50,11 +50,13 @@ impl Loader {
             start.bom_stripped,
         );
         let kept = Kept::with_capacity(start.rows_hint, layout.mode.is_some());
+        let comma = opts.decimal_comma || start.delimiter != b',';
         Ok(Loader {
             layout,
             auto_values,
             report,
-            time_kind: None,
+            times: TimeReader::new(opts, comma),
+            comma,
             manual_texts: Vec::new(),
             kept,
         })
@@ -70,7 +72,11 @@ impl Loader {
             return Ok(());
         };
         // Every value and the mode are read before deciding, so each unusable one is counted.
-        let values = self.values_of(record, row)?;
+        let mut comma = self.times.take_comma();
+        let values = self.values_of(record, row, &mut comma)?;
+        if comma {
+            self.report.decimal_commas.add(row);
+        }
         let mode = self.mode_of(record, row)?;
         match (values, mode) {
             (Some(values), Some(mode)) => self.kept.push(row, time, values, mode),
@@ -112,18 +118,15 @@ impl Loader {
         row: u64,
     ) -> Result<Option<TimeValue>, CsvError> {
         let layout = &self.layout;
-        // A plain decimal is a number of seconds, which fits any file but one whose time format
-        // is already fixed as RFC 3339; everything else takes the general route.
-        let seconds = match self.time_kind {
-            Some((TimeFormat::Rfc3339, _)) => None,
-            _ => record.plain_number_at(layout.time),
-        };
-        if let Some(s) = seconds {
-            self.time_kind.get_or_insert((TimeFormat::Seconds, row));
-            return Ok(Some(TimeValue::Seconds(s)));
+        // A plain decimal fits a file whose times are numbers in its unit; everything else,
+        // and any problem, takes the general route.
+        let number = record.plain_number_at(layout.time);
+        if let Some(time) = number.and_then(|v| self.times.plain_number(v, row)) {
+            return Ok(Some(time));
         }
         let text = layout.cell(record, layout.time, row)?;
-        match read_time(text, &mut self.time_kind, row, &layout.names[layout.time]) {
+        let column = &layout.names[layout.time];
+        match self.times.read(text, row, column, &mut self.report) {
             Ok(time) => Ok(Some(time)),
             // Checked only here, where the time failed, to keep the common path cheap.
             Err(_) if layout.is_header_again(record) => {
@@ -136,10 +139,12 @@ impl Loader {
 
     /// The row's SP, PV and OP, or `None` when any of them is unusable; each unusable one is
     /// counted by column and reason.
+    /// Sets `comma` when any of them was written with a decimal comma.
     fn values_of<C: Cells + ?Sized>(
         &mut self,
         record: &C,
         row: u64,
+        comma: &mut bool,
     ) -> Result<Option<[f64; 3]>, CsvError> {
         let layout = &self.layout;
         let dropped = &mut self.report.dropped;
@@ -156,8 +161,11 @@ impl Loader {
                 continue;
             }
             let text = layout.cell(record, col, row)?;
-            match read_value(text) {
-                Ok(v) => *value = v,
+            match read_value(text, self.comma) {
+                Ok(v) => {
+                    *value = v.value;
+                    *comma |= v.comma;
+                }
                 Err(reason) => {
                     usable = false;
                     match reason {
@@ -197,8 +205,10 @@ impl Loader {
             mut report,
             manual_texts,
             kept,
+            times,
             ..
         } = self;
+        times.fill_report(&mut report);
         let kept = kept.in_time_order(&mut report);
         if layout.mode.is_some() {
             report.mode = Some(mode_summary(&kept.mode, &manual_texts));

@@ -11,6 +11,7 @@ mod cli_flags;
 mod corpus;
 mod demo;
 mod example_data;
+mod historian;
 mod mode_rule;
 mod reference_python;
 mod retune_corpus;
