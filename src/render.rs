@@ -1,14 +1,21 @@
 //! Output formats for people (a plain-text table) and for programs (JSON). Only this module
 //! and the reports know how results look; the analysis core returns values.
 
+use crate::analysis::LoopSetup;
 use crate::analysis::assess::{LoopReport, Verdict};
 use crate::csvload::LoadReport;
 use crate::units::{fraction_to_pct, human_duration, quantity};
 use std::io::Write;
 
-/// JSON: the loop report with the field names the design fixes, plus how the file was read.
-/// When the file's time was RFC 3339, each episode also gets `start_time` (RFC 3339, UTC).
-pub fn json(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyhow::Result<()> {
+/// JSON: the loop report with the field names the design fixes, plus how the file was read and
+/// the hash of the settings the analysis used. When the file's time was RFC 3339, each episode
+/// also gets `start_time` (RFC 3339, UTC).
+pub fn json(
+    report: &LoopReport,
+    setup: &LoopSetup,
+    load: &LoadReport,
+    out: &mut dyn Write,
+) -> anyhow::Result<()> {
     let mut v = serde_json::to_value(report)?;
     if let Some(origin) = load.time_origin
         && let Some(eps) = v.get_mut("episodes").and_then(|e| e.as_array_mut())
@@ -21,6 +28,7 @@ pub fn json(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
     v["input"] = serde_json::to_value(load)?;
     v["schema_version"] = crate::summary_format::SCHEMA_VERSION.into();
     v["version"] = crate::summary_format::PRODUCT_VERSION.into();
+    v["settings_hash"] = crate::summary_format::settings_hash([setup]).into();
     serde_json::to_writer_pretty(&mut *out, &v)?;
     writeln!(out)?;
     Ok(())

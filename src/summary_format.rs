@@ -8,7 +8,7 @@ use crate::analysis::LoopSetup;
 
 /// The version of the JSON documents people's programs read (`analyze --json`, the summary's
 /// JSON): raised when a field changes meaning or goes away, not when one is added.
-pub const SCHEMA_VERSION: u32 = 2;
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// The product's version, carried by every JSON document beside [`SCHEMA_VERSION`].
 pub const PRODUCT_VERSION: &str = env!("CARGO_PKG_VERSION");

@@ -158,7 +158,7 @@ pub fn analyze(args: &AnalyzeArgs, out: &mut dyn std::io::Write) -> Result<(), F
         })?;
     let report = analysis::analyze_loop(&loaded.series, &setup);
     if args.json {
-        render::json(&report, &loaded.report, out)?;
+        render::json(&report, &setup, &loaded.report, out)?;
     } else {
         render::text(&report, &loaded.report, out)?;
     }

@@ -77,7 +77,7 @@ fn analyze_json_has_the_contract_fields() {
     assert_eq!(eps[0]["confidence"], "clear");
     assert!(eps[0]["start_pv"].is_number());
     assert_eq!(v["model"]["family"], "first_order");
-    assert_eq!(v["schema_version"], 2);
+    assert_eq!(v["schema_version"], 3);
     assert_eq!(v["version"], env!("CARGO_PKG_VERSION"));
     assert!(v["data"]["quality"]["findings"].is_array());
     assert!(

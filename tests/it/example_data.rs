@@ -115,3 +115,84 @@ fn the_example_shows_both_tuning_and_actuator_limits() {
         .unwrap();
     assert_eq!(big["verdict"], "unreachable");
 }
+
+/// The advice for the example's tuning-limited changes, in the controller's own form and units
+/// (config/headroom.toml describes TIC-101's controller as series form, proportional band,
+/// minutes, PV range 0–150 °C, and today's settings as PB 22.2 %, Ti 10 min: the simulator's
+/// Kc 3.0 %/°C, Ti 600 s written that way).
+#[test]
+fn the_example_advice_is_typed_in_the_controllers_own_form_and_units() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let out = std::process::Command::new(headroom_bin())
+        .current_dir(root)
+        .args([
+            "analyze",
+            FILE,
+            "--config",
+            "config/headroom.toml",
+            "--loop",
+            "TIC-101",
+            "--settle-within-s",
+            "900",
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let r = &v["recommendation"];
+    assert_eq!(r["action"], "retune", "{r}");
+    let rt = &r["retune"];
+    let num = |x: &serde_json::Value| x.as_f64().unwrap();
+    // Canonical: ideal form, Kc signed like the process gain (positive: steam heats).
+    let kc = num(&rt["ideal"]["gain"]);
+    let ti = num(&rt["ideal"]["integral_time_s"]);
+    assert!(kc > 0.0 && ti > 0.0, "{rt}");
+    assert_eq!(rt["action"], "reverse");
+    // Written as the controller takes it: PB = 100 / Kc[%/%] (common practice), Kc[%/%] =
+    // Kc · PV span / OP span; Ti in minutes. A PI is the same in the series and ideal forms
+    // (Åström & Hägglund 2006, ch. 3).
+    let w = &rt["settings"];
+    assert_eq!(w["convention"]["form"], "series");
+    assert_eq!(w["convention"]["gain"], "proportional_band");
+    let pb = num(&w["gain"]);
+    assert!((pb - 100.0 / (kc * 150.0 / 100.0)).abs() < 1e-9 * pb, "{w}");
+    assert!((num(&w["integral"]) - ti / 60.0).abs() < 1e-9 * ti, "{w}");
+    assert_eq!(w["action"], "reverse");
+    // Today's settings read back to the simulator's Kc 3.0 %/°C, Ti 600 s.
+    let today = &rt["current"];
+    assert!((num(&today["ideal"]["gain"]) - 3.0).abs() < 0.01, "{today}");
+    assert!(
+        (num(&today["ideal"]["integral_time_s"]) - 600.0).abs() < 1e-6,
+        "{today}"
+    );
+    // Verified on the model: meets the spec with Ms ≤ 2, and faster than today's settings do
+    // on the same model.
+    let verified = &rt["verified"];
+    assert_eq!(verified["meets_spec"], true, "{verified}");
+    assert!(num(&verified["max_sensitivity"]) <= 2.0, "{verified}");
+    let suggested_s = num(&verified["settling_time_s"]);
+    let today_s = num(&today["verified"]["settling_time_s"]);
+    assert!(suggested_s <= 900.0 && suggested_s < today_s, "{rt}");
+    // Today's settings on the model predict what the plant did: the typical change's observed
+    // settling time, within 25 %.
+    let observed: Vec<f64> = v["episodes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|e| e["verdict"] == "tuning_limited")
+        .filter(|e| (num(&e["sp_to"]) - num(&e["sp_from"])).abs() <= 8.0)
+        .filter_map(|e| e["settling_time_s"].as_f64())
+        .collect();
+    assert!(!observed.is_empty(), "{v}");
+    let mean = observed.iter().sum::<f64>() / observed.len() as f64;
+    assert!(
+        (today_s - mean).abs() <= 0.25 * mean,
+        "model {today_s} s, plant {mean} s"
+    );
+    assert!(v["settings_hash"].as_str().is_some_and(|h| !h.is_empty()));
+}

@@ -360,7 +360,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     let html = std::fs::read_to_string(out.join("loop-health-2026-W48.html")).unwrap();
 
     assert_eq!(json["period"]["label"], "2026-W48");
-    assert_eq!(json["schema_version"], 2);
+    assert_eq!(json["schema_version"], 3);
     assert_eq!(json["version"], env!("CARGO_PKG_VERSION"));
     assert_eq!(json["period"]["from"], "2026-11-23T00:00:00+00:00");
     assert_eq!(json["plant"]["loops"], 4);
