@@ -129,18 +129,20 @@ pub fn recommend(
     let mut r = recommend_from(&clear, all.len(), model, setup, sample_s);
     if !marginal.is_empty() {
         let missed = marginal.iter().filter(|e| e.verdict.is_miss()).count();
-        r.summary.push_str(&format!(
-            " {} more {} ({missed} of them missed) a marginal verdict and {} not counted here: \
-             {} listed to watch.",
-            crate::units::count(marginal.len(), "change", "changes"),
-            if marginal.len() == 1 { "has" } else { "have" },
-            if marginal.len() == 1 { "is" } else { "are" },
-            if marginal.len() == 1 {
-                "it is"
-            } else {
-                "they are"
-            }
-        ));
+        let n = marginal.len();
+        let sentence = if n == 1 {
+            format!(
+                " One more change has a marginal verdict ({}) and is not counted here: it is \
+                 listed to watch.",
+                if missed == 1 { "it missed" } else { "it met" }
+            )
+        } else {
+            format!(
+                " {n} more changes have a marginal verdict ({missed} of them missed) and are not \
+                 counted here: they are listed to watch."
+            )
+        };
+        r.summary.push_str(&sentence);
     }
     r.marginal = marginal.len();
     r

@@ -12,7 +12,7 @@
 
 use super::super::controller::Ideal;
 use super::super::identify::Model;
-use super::verify::{Target, Verified, verify};
+use super::verify::{COARSE, Target, Verified, verify, verify_at};
 use super::{MAX_SENSITIVITY, simc_for};
 use serde::Serialize;
 
@@ -82,7 +82,16 @@ impl Suggestion {
 /// settling — so the advice can say what is achievable; `None` when no setting is safe and no
 /// slower than today.
 pub fn retune(model: &Model, target: &Target, sample_s: f64) -> Suggestion {
+    // The search simulates coarsely; what is returned is verified finely.
     let eval = |tau_c: f64| {
+        let ideal = simc_for(model, target.step, tau_c);
+        Candidate {
+            ideal,
+            tau_c_s: tau_c,
+            verified: verify_at(model, &ideal, target, sample_s, COARSE),
+        }
+    };
+    let eval_fine = |tau_c: f64| {
         let ideal = simc_for(model, target.step, tau_c);
         Candidate {
             ideal,
@@ -90,6 +99,7 @@ pub fn retune(model: &Model, target: &Target, sample_s: f64) -> Suggestion {
             verified: verify(model, &ideal, target, sample_s),
         }
     };
+    let fine = |c: &Candidate| eval_fine(c.tau_c_s);
     let theta = model.dead_time_s.max(0.0);
     let lo = (0.2 * theta).max(sample_s).max(1e-3);
     let hi = (2.0 * target.spec_s.max(target.achieved_settling_s.unwrap_or(0.0))).max(4.0 * lo);
@@ -108,8 +118,15 @@ pub fn retune(model: &Model, target: &Target, sample_s: f64) -> Suggestion {
     };
     let plain = |c: &Candidate| safe(c) && today(c) && c.verified.meets_spec;
     for ok in [&with_margin as &dyn Fn(&Candidate) -> bool, &plain] {
-        if let Some(i) = grid.iter().rposition(ok) {
-            let c = refine(&grid, i, ok, &eval);
+        // The slowest grid point that qualifies as the fine simulation confirms it, refined
+        // (finely) towards its slower neighbour.
+        let confirmed = (0..grid.len())
+            .rev()
+            .filter(|&i| ok(&grid[i]))
+            .map(|i| (i, fine(&grid[i])))
+            .find(|(_, c)| ok(c));
+        if let Some((i, good)) = confirmed {
+            let c = refine(good, grid.get(i + 1).map(|n| n.tau_c_s), ok, &eval_fine);
             return Suggestion::Meets {
                 ideal: c.ideal,
                 tau_c_s: c.tau_c_s,
@@ -117,7 +134,7 @@ pub fn retune(model: &Model, target: &Target, sample_s: f64) -> Suggestion {
             };
         }
     }
-    let best = best_safe(grid.iter().filter(|c| safe(c) && today(c)), target);
+    let best = best_safe(grid.iter().filter(|c| safe(c) && today(c)), target).map(|c| fine(&c));
     let needed_ms = grid
         .iter()
         .filter(|c| today(c) && c.verified.meets_spec)
@@ -139,19 +156,17 @@ pub fn retune(model: &Model, target: &Target, sample_s: f64) -> Suggestion {
     Suggestion::NoPi { best, reason }
 }
 
-/// Bisects between grid point `i` (qualifies) and the next slower one (if any, does not) for
-/// the largest τc that qualifies.
+/// Bisects between `good` (qualifies) and the slower τc `bad_tau` (if any, does not) for the
+/// largest τc that qualifies.
 fn refine(
-    grid: &[Candidate],
-    i: usize,
+    mut good: Candidate,
+    bad_tau: Option<f64>,
     ok: &dyn Fn(&Candidate) -> bool,
     eval: &dyn Fn(f64) -> Candidate,
 ) -> Candidate {
-    let mut good = grid[i];
-    let Some(next) = grid.get(i + 1) else {
+    let Some(mut bad_tau) = bad_tau else {
         return good;
     };
-    let mut bad_tau = next.tau_c_s;
     for _ in 0..REFINE {
         let mid = (good.tau_c_s * bad_tau).sqrt();
         let c = eval(mid);

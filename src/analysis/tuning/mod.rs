@@ -172,6 +172,7 @@ pub fn predict(
         &ideal,
         &target,
         sample_s,
+        verify::FINE,
     )
 }
 
