@@ -25,7 +25,7 @@ mod gaps;
 mod report;
 mod samples;
 
-pub use alerts::{AlertInput, AlertRow, AlertState, RejectionRow};
+pub use alerts::{Acknowledgement, AlertInput, AlertRow, AlertState, RejectionRow};
 pub use episodes::{EpisodeRow, LoopRow, ModelRow};
 pub use error::{Error, Result};
 pub use gaps::GapRow;
