@@ -177,12 +177,14 @@ fn acked(row: &AlertRow) -> String {
     format!("{by}{at}")
 }
 
-/// One alert for people: id, loop, kind and state; its span; its message; who acknowledged it.
+/// One alert for people: id, loop, kind and state; its span (times in RFC 3339, as stored);
+/// its message; who acknowledged it.
 fn describe(a: &AlertRow) -> String {
     // People read the kind's display spelling; an unknown stored kind as stored.
     let kind = AlertKind::parse(&a.kind).map_or(a.kind.as_str(), |k| k.label());
     let length = human_duration(ms_to_s(a.last_seen_ms - a.first_seen_ms));
-    let span = if a.ongoing {
+    // A change's span is the change itself; a loop-wide condition may still be going on.
+    let span = if a.ongoing && a.change_start_ms.is_none() {
         format!(
             "since {}, still so at {} ({length})",
             rfc3339(a.first_seen_ms),
@@ -254,6 +256,14 @@ mod tests {
             describe(&a),
             "#7 LIC-150 stale tag, active: since 2027-01-15T08:00:00Z, still so at \
              2027-01-15T16:00:00Z (8.0 h)\n    LIC-150: no pv sample"
+        );
+        // A change's alert reads as the change's span, even while followed.
+        let mut change = a.clone();
+        change.change_start_ms = Some(change.first_seen_ms);
+        assert!(
+            describe(&change).contains("active: from 2027-01-15T08:00:00Z to 2027-01-15T16:00:00Z"),
+            "{}",
+            describe(&change)
         );
         a.ongoing = false;
         a.state = AlertState::Acknowledged;
