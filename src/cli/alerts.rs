@@ -101,9 +101,16 @@ fn env_name(var: &str) -> Option<String> {
     std::env::var(var).ok()
 }
 
-async fn open_for_ack(store: &StoreArgs) -> Result<Store, Failure> {
+/// Acknowledges alert `id` now in the store (opened for writing: the query commands' read-only
+/// store cannot).
+async fn ack_now(store: &StoreArgs, id: i64, by: Option<&str>) -> Result<Acknowledgement, Failure> {
     let path = store_path(store)?;
-    Store::open(&path).await.map_err(Failure::StoreOpen)
+    let store = Store::open(&path).await.map_err(Failure::StoreOpen)?;
+    let done = store
+        .ack_alert(id, by, jiff::Timestamp::now().as_millisecond())
+        .await;
+    store.close().await;
+    Ok(done?)
 }
 
 /// `alerts ack ID`: acknowledges, or reports the acknowledgement that stands.
@@ -114,12 +121,7 @@ async fn acknowledge(
     json: bool,
     out: &mut dyn Write,
 ) -> Result<(), Failure> {
-    let store = open_for_ack(store).await?;
-    let done = store
-        .ack_alert(id, by, jiff::Timestamp::now().as_millisecond())
-        .await;
-    store.close().await;
-    let (row, line) = match done? {
+    let (row, line) = match ack_now(store, id, by).await? {
         Acknowledgement::Unknown => return Err(Usage::NoAlert(id).into()),
         Acknowledgement::Done(row) => {
             let line = format!("alert {id} acknowledged{}", acked(&row));
@@ -147,12 +149,7 @@ async fn acknowledge_once(
     by: Option<&str>,
     out: &mut dyn Write,
 ) -> Result<(), Failure> {
-    let store = open_for_ack(store).await?;
-    let done = store
-        .ack_alert(id, by, jiff::Timestamp::now().as_millisecond())
-        .await;
-    store.close().await;
-    match done? {
+    match ack_now(store, id, by).await? {
         Acknowledgement::Done(row) => {
             writeln!(out, "alert {id} acknowledged{}", acked(&row))?;
             Ok(())
