@@ -1,13 +1,45 @@
 //! Alerts: the conditions the daemon raises, the sentence a person reads, the numbers behind it,
-//! and the JSON published on the alert topic. Pure: built from values, no I/O, no clock. The
-//! store keeps them ([`crate::store::Store::raise_alert`], one open alert per loop and kind); the
-//! daemon's writer raises them; the report and the live page read them back.
+//! and the JSON published on the alert topic and printed by `headroom alerts --json`. Pure:
+//! built from values, no I/O, no clock. The store keeps them ([`crate::store::Store::raise_alert`]);
+//! the daemon's writer raises and returns them; the report and the live page read them back.
+//!
+//! # Lifecycle
+//!
+//! One alert per setpoint change and per spell of a loop-wide condition. Its state goes
+//! **active** (the condition is present) → **returned** (it has gone by itself) →
+//! **acknowledged** (a person has seen it: `headroom alerts ack ID`, with who and when). An
+//! active alert can be acknowledged at once; an acknowledged alert whose condition is still
+//! present goes on being updated (its span, its evidence, its end), and keeps its
+//! acknowledgement. Acknowledging twice changes nothing: the first acknowledgement stands.
+//!
+//! - **A missed change** (a verdict that [`Verdict::is_miss`], not marginal) is one alert,
+//!   identified by its loop and the change's start. The provisional alert (raised while the
+//!   change is still open, once it has missed its spec time) is updated in place when the
+//!   change is final: kind (the final verdict), message, evidence and span. If the final verdict
+//!   is no miss, or is marginal, the alert returns. A final miss does not go away by itself (the
+//!   change did miss): it stays active until acknowledged. The next change that misses is a new
+//!   alert, whatever became of this one. Marginal verdicts never raise an alert.
+//! - **A stale tag** (a signal the configuration expects, silent for longer than its stale
+//!   limit) is one alert per outage of a loop. Its span starts at the newest sample before the
+//!   silence (the last sample itself, not that time plus the limit; where a signal was never
+//!   seen, where watching began), and its end advances while the silence lasts; `raised` is
+//!   when the limit had passed. A signal falling silent during the outage joins it. The alert
+//!   returns when every expected signal flows again, its span ending at the first sample after
+//!   the silence (of the last signal to come back). A loop that falls silent again after that
+//!   is a new outage and a new alert, acknowledged or not. A daemon that restarts during an
+//!   outage picks the alert up again and ends it when data flows.
+//!
+//! Alerts are published on the alert topic when raised, when updated in place with news (a
+//! change finalised, a signal newly silent) and when they return; not each time an outage's
+//! end advances, and not on acknowledgement (that happens in another process, the command
+//! line, which does not connect to the broker).
 
 use crate::analysis::{CAUTION, EpisodeResult, Verdict};
 use crate::sample::Signal;
 use crate::store::{AlertInput, AlertRow};
-use crate::units::{rfc3339, s_to_ms};
-use serde_json::{Value, json};
+use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION};
+use crate::units::{human_duration, ms_to_s, rfc3339, s_to_ms};
+use serde_json::{Map, Value, json};
 
 /// What kind of condition an alert is about: one open alert per loop and kind.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -48,18 +80,13 @@ impl AlertKind {
     }
 }
 
-/// The alert for a scored setpoint change, when its verdict is a miss; `None` otherwise. Seen at
-/// the later of the change's start and its window's end.
-pub fn missed_change(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> Option<AlertInput> {
-    // Marginal verdicts raise no alert: they are listed to watch in the summaries.
-    if !r.verdict.is_miss() || r.is_marginal() {
-        return None;
-    }
-    let (start_ms, end_ms) = (s_to_ms(r.start_s), s_to_ms(r.end_s));
-    let evidence = json!({
-        "start": rfc3339(start_ms),
+/// The numbers behind a scored change's alert.
+fn change_evidence(r: &EpisodeResult, is_final: bool) -> Value {
+    json!({
+        "start": rfc3339(s_to_ms(r.start_s)),
         "sp_from": r.sp_from,
         "sp_to": r.sp_to,
+        "verdict": r.verdict.as_str(),
         "settling_time_s": r.settling_time_s,
         "overshoot_pct": r.overshoot_pct,
         "min_settling_time_s": r.min_settling_time_s,
@@ -69,63 +96,193 @@ pub fn missed_change(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> Optio
         "min_settling_time_range_s": r.min_settling_time_range_s,
         "confidence": r.confidence,
         "final": is_final,
-    });
-    Some(AlertInput {
-        loop_tag: loop_tag.to_string(),
-        kind: AlertKind::Missed(r.verdict).as_str().to_string(),
-        message: format!("{loop_tag}: {}", r.reason),
-        evidence,
-        seen_ms: start_ms.max(end_ms),
     })
 }
 
-/// One expected signal that has gone silent, with its newest sample if it ever had one.
+/// A sighting of a scored change: the change's start is its identity and the start of its span,
+/// which reaches the later of the change's start and its window's end.
+fn change_sighting(
+    loop_tag: &str,
+    r: &EpisodeResult,
+    is_final: bool,
+    message: String,
+) -> AlertInput {
+    let (start_ms, end_ms) = (s_to_ms(r.start_s), s_to_ms(r.end_s));
+    AlertInput {
+        loop_tag: loop_tag.to_string(),
+        kind: AlertKind::Missed(r.verdict).as_str().to_string(),
+        message,
+        evidence: change_evidence(r, is_final),
+        seen_ms: start_ms.max(end_ms),
+        since_ms: Some(start_ms),
+        change_start_ms: Some(start_ms),
+    }
+}
+
+/// The alert for a scored setpoint change, when its verdict is a miss that is not marginal;
+/// `None` otherwise (then [`change_cleared`] returns any alert the change had).
+pub fn missed_change(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> Option<AlertInput> {
+    // Marginal verdicts raise no alert: they are listed to watch in the summaries.
+    if !r.verdict.is_miss() || r.is_marginal() {
+        return None;
+    }
+    Some(change_sighting(
+        loop_tag,
+        r,
+        is_final,
+        format!("{loop_tag}: {}", r.reason),
+    ))
+}
+
+/// The change's alert returning: its latest look (in the end, for a final one) is no miss, or a
+/// marginal one.
+pub fn change_cleared(loop_tag: &str, r: &EpisodeResult, is_final: bool) -> AlertInput {
+    let marginal = if r.is_marginal() { ", marginal" } else { "" };
+    let when = if is_final {
+        "in the end"
+    } else {
+        "on a longer look"
+    };
+    let message = format!(
+        "{loop_tag}: no miss to alert on {when}: {}{marginal} ({})",
+        r.verdict.label(),
+        r.reason
+    );
+    change_sighting(loop_tag, r, is_final, message)
+}
+
+/// One expected signal that is or was silent during an outage.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct Silent {
     pub signal: Signal,
+    /// Its newest sample before the silence, if it ever had one.
     pub last_sample_ms: Option<i64>,
+    /// Its first sample after the silence, once there is one.
+    pub back_ms: Option<i64>,
 }
 
-/// The `stale_tag` alert for a loop: the message names the signals that newly fell silent
-/// (`fresh`), the evidence gives every silent signal's newest sample.
-pub fn stale_tag(loop_tag: &str, fresh: &[Signal], silent: &[Silent], now_ms: i64) -> AlertInput {
-    let names: Vec<&str> = fresh.iter().map(|s| s.as_str()).collect();
-    let evidence: serde_json::Map<String, Value> = silent
+/// The evidence of an outage: each signal's newest sample before it, and first after it.
+fn outage_evidence(silent: &[Silent]) -> Value {
+    let evidence: Map<String, Value> = silent
         .iter()
         .map(|s| {
-            let last = s.last_sample_ms.map(rfc3339);
-            (
-                s.signal.as_str().to_string(),
-                json!({ "last_sample": last }),
-            )
+            let mut e = json!({ "last_sample": s.last_sample_ms.map(rfc3339) });
+            if let Some(back) = s.back_ms {
+                e["first_sample_after"] = rfc3339(back).into();
+            }
+            (s.signal.as_str().to_string(), e)
         })
         .collect();
+    Value::Object(evidence)
+}
+
+/// The signals of an outage read back from its stored alert's evidence, for a daemon that
+/// restarts during it. Keys that name no signal are skipped.
+pub fn outage_signals(row: &AlertRow) -> Vec<Silent> {
+    let time = |v: &Value| {
+        v.as_str()
+            .and_then(|s| s.parse::<jiff::Timestamp>().ok())
+            .map(|t| t.as_millisecond())
+    };
+    let Some(evidence) = row.evidence.as_object() else {
+        return Vec::new();
+    };
+    evidence
+        .iter()
+        .filter_map(|(name, e)| {
+            Some(Silent {
+                signal: Signal::parse(name)?,
+                last_sample_ms: time(&e["last_sample"]),
+                back_ms: time(&e["first_sample_after"]),
+            })
+        })
+        .collect()
+}
+
+fn signal_names(silent: &[Silent]) -> String {
+    let names: Vec<&str> = silent.iter().map(|s| s.signal.as_str()).collect();
+    names.join("/")
+}
+
+/// A sighting of a loop's outage: `silent` are the signals silent in it, `since_ms` where the
+/// silence began, `now_ms` the plant's clock.
+pub fn stale_tag(loop_tag: &str, silent: &[Silent], since_ms: i64, now_ms: i64) -> AlertInput {
     AlertInput {
         loop_tag: loop_tag.to_string(),
         kind: AlertKind::StaleTag.as_str().to_string(),
         message: format!(
             "{loop_tag}: no {} sample for more than the expected period times the stale limit",
-            names.join("/")
+            signal_names(silent)
         ),
-        evidence: Value::Object(evidence),
+        evidence: outage_evidence(silent),
         seen_ms: now_ms,
+        since_ms: Some(since_ms),
+        change_start_ms: None,
     }
+}
+
+/// The outage's end: every signal of `silent` flows again, the last of them from `back_ms`.
+pub fn stale_tag_returned(
+    loop_tag: &str,
+    silent: &[Silent],
+    since_ms: i64,
+    back_ms: i64,
+) -> AlertInput {
+    let mut a = stale_tag(loop_tag, silent, since_ms, back_ms);
+    a.message = format!(
+        "{loop_tag}: {} samples flow again after {} of silence",
+        signal_names(silent),
+        human_duration(ms_to_s(back_ms - since_ms))
+    );
+    a
+}
+
+/// The lifecycle of a stored alert in JSON: its state, the times of its span, when it was
+/// raised, when its condition went, and who acknowledged it when (RFC 3339).
+fn lifecycle(row: &AlertRow) -> Map<String, Value> {
+    let at = |ms: Option<i64>| ms.map(rfc3339);
+    let Value::Object(m) = json!({
+        "state": row.state,
+        "first_seen": rfc3339(row.first_seen_ms),
+        "last_seen": rfc3339(row.last_seen_ms),
+        "raised": rfc3339(row.raised_ms),
+        "returned": at(row.returned_ms),
+        "change_start": at(row.change_start_ms),
+        "acknowledged_by": row.acked_by,
+        "acknowledged_at": at(row.acked_ms),
+        "schema_version": SCHEMA_VERSION,
+        "version": PRODUCT_VERSION,
+    }) else {
+        unreachable!("json! of an object is an object")
+    };
+    m
 }
 
 /// The JSON published on the alert topic for a stored alert.
 pub fn payload(row: &AlertRow) -> Value {
-    json!({
+    let mut p = json!({
         "id": row.id,
         "loop": row.loop_tag,
         "kind": row.kind,
-        "state": row.state,
         "count": row.count,
-        "first_seen": rfc3339(row.first_seen_ms),
-        "last_seen": rfc3339(row.last_seen_ms),
         "message": row.message,
         "evidence": row.evidence,
         "caution": CAUTION,
-    })
+    });
+    if let Value::Object(m) = &mut p {
+        m.extend(lifecycle(row));
+    }
+    p
+}
+
+/// One alert as `headroom alerts --json` prints it: the stored row's fields (times in ms) with
+/// the lifecycle's in RFC 3339, the schema version and the product version.
+pub fn listing(row: &AlertRow) -> Value {
+    let mut v = serde_json::to_value(row).unwrap_or(Value::Null);
+    if let Value::Object(m) = &mut v {
+        m.extend(lifecycle(row));
+    }
+    v
 }
 
 #[cfg(test)]
@@ -204,6 +361,10 @@ mod tests {
         assert_eq!(a.evidence["start"], "2027-01-15T08:00:00Z");
         assert_eq!(a.evidence["final"], false);
         assert_eq!(a.evidence["capacity_ratio"], 1.4);
+        assert_eq!(a.evidence["verdict"], "actuator_limited");
+        // The change is the alert's identity and the start of its span.
+        assert_eq!(a.change_start_ms, Some(1_800_000_000_000));
+        assert_eq!(a.since_ms, Some(1_800_000_000_000));
     }
 
     #[test]
@@ -218,50 +379,151 @@ mod tests {
     }
 
     #[test]
-    fn a_stale_alert_names_the_new_silence_and_shows_every_silent_signal() {
-        let silent = [
+    fn a_cleared_change_keeps_its_identity_and_says_why() {
+        let e = episode(Verdict::Met);
+        let miss = missed_change("TIC-1", &episode(Verdict::TuningLimited), false).unwrap();
+        let c = change_cleared("TIC-1", &e, true);
+        assert_eq!(c.change_start_ms, miss.change_start_ms);
+        assert_eq!(c.change_start_ms, Some(1_800_000_000_000));
+        assert_eq!(c.since_ms, Some(1_800_000_000_000));
+        assert_eq!(
+            c.message,
+            "TIC-1: no miss to alert on in the end: met (the heater ran flat out)"
+        );
+        assert_eq!(c.evidence["verdict"], "met");
+        assert_eq!(c.evidence["final"], true);
+    }
+
+    fn pv_and_op_silent() -> [Silent; 2] {
+        [
             Silent {
                 signal: Signal::Pv,
                 last_sample_ms: Some(1_800_000_000_000),
+                back_ms: None,
             },
             Silent {
                 signal: Signal::Op,
                 last_sample_ms: None,
+                back_ms: None,
             },
-        ];
-        let a = stale_tag("TIC-1", &[Signal::Op], &silent, 7);
+        ]
+    }
+
+    #[test]
+    fn a_stale_alert_names_every_silent_signal_and_spans_the_silence() {
+        let silent = pv_and_op_silent();
+        let a = stale_tag("TIC-1", &silent, 1_800_000_000_000, 1_800_000_060_000);
         assert_eq!(a.kind, "stale_tag");
         assert!(
-            a.message.starts_with("TIC-1: no op sample"),
+            a.message.starts_with("TIC-1: no pv/op sample"),
             "{}",
             a.message
         );
         assert_eq!(a.evidence["pv"]["last_sample"], "2027-01-15T08:00:00Z");
         assert!(a.evidence["op"]["last_sample"].is_null());
-        assert_eq!(a.seen_ms, 7);
+        assert!(a.evidence["pv"].get("first_sample_after").is_none());
+        assert_eq!(
+            (a.since_ms, a.seen_ms),
+            (Some(1_800_000_000_000), 1_800_000_060_000)
+        );
+        assert_eq!(a.change_start_ms, None);
     }
 
     #[test]
-    fn the_published_payload_carries_the_row_and_the_caution() {
-        let row = AlertRow {
+    fn an_outage_reads_back_from_its_stored_evidence() {
+        let mut silent = pv_and_op_silent();
+        silent[1].back_ms = Some(1_800_000_030_000);
+        let a = stale_tag("TIC-1", &silent, 1_800_000_000_000, 1_800_000_060_000);
+        let mut r = row();
+        r.evidence = a.evidence;
+        // Read back in the evidence's order, by name.
+        let mut expected = silent.to_vec();
+        expected.sort_by_key(|s| s.signal.as_str());
+        assert_eq!(outage_signals(&r), expected);
+        r.evidence = json!({"pv": {"last_sample": null}, "nonsense": {}});
+        assert_eq!(
+            outage_signals(&r),
+            [Silent {
+                signal: Signal::Pv,
+                last_sample_ms: None,
+                back_ms: None
+            }]
+        );
+    }
+
+    #[test]
+    fn a_returned_outage_says_how_long_it_lasted_and_when_data_came_back() {
+        let mut silent = pv_and_op_silent();
+        silent[0].back_ms = Some(1_800_028_800_000);
+        silent[1].back_ms = Some(1_800_028_799_000);
+        let a = stale_tag_returned("TIC-1", &silent, 1_800_000_000_000, 1_800_028_800_000);
+        assert_eq!(
+            a.message,
+            "TIC-1: pv/op samples flow again after 8.0 h of silence"
+        );
+        assert_eq!(a.seen_ms, 1_800_028_800_000);
+        assert_eq!(
+            a.evidence["pv"]["first_sample_after"],
+            "2027-01-15T16:00:00Z"
+        );
+        assert_eq!(
+            a.evidence["op"]["first_sample_after"],
+            "2027-01-15T15:59:59Z"
+        );
+    }
+
+    fn row() -> AlertRow {
+        AlertRow {
             id: 3,
             loop_tag: "TIC-1".into(),
             kind: "stale_tag".into(),
-            state: AlertState::Open,
+            state: AlertState::Acknowledged,
+            ongoing: false,
+            change_start_ms: None,
             first_seen_ms: 0,
             last_seen_ms: 1_000,
-            count: 2,
+            raised_ms: 500,
+            returned_ms: Some(1_000),
+            count: 1,
             message: "m".into(),
             evidence: json!({"pv": 1}),
-            acked_ms: None,
+            acked_ms: Some(2_000),
+            acked_by: Some("ann".into()),
             is_new: true,
-        };
-        let p = payload(&row);
+        }
+    }
+
+    #[test]
+    fn the_published_payload_carries_the_row_its_lifecycle_and_the_caution() {
+        let p = payload(&row());
         assert_eq!(p["loop"], "TIC-1");
-        assert_eq!(p["state"], "open");
+        assert_eq!(p["state"], "acknowledged");
+        assert_eq!(p["first_seen"], "1970-01-01T00:00:00Z");
         assert_eq!(p["last_seen"], "1970-01-01T00:00:01Z");
-        assert_eq!(p["count"], 2);
+        assert_eq!(p["raised"], "1970-01-01T00:00:00.5Z");
+        assert_eq!(p["returned"], "1970-01-01T00:00:01Z");
+        assert_eq!(p["acknowledged_by"], "ann");
+        assert_eq!(p["acknowledged_at"], "1970-01-01T00:00:02Z");
+        assert!(p["change_start"].is_null());
+        assert_eq!(p["count"], 1);
         assert_eq!(p["evidence"]["pv"], 1);
         assert_eq!(p["caution"], CAUTION);
+        assert_eq!(p["schema_version"], SCHEMA_VERSION);
+        assert_eq!(p["version"], PRODUCT_VERSION);
+    }
+
+    #[test]
+    fn the_listing_keeps_the_stored_fields_and_adds_the_lifecycle() {
+        let v = listing(&row());
+        assert_eq!(v["loop_tag"], "TIC-1");
+        assert_eq!(v["first_seen_ms"], 0);
+        assert_eq!(v["acked_ms"], 2_000);
+        assert_eq!(v["acked_by"], "ann");
+        assert_eq!(v["state"], "acknowledged");
+        assert_eq!(v["acknowledged_at"], "1970-01-01T00:00:02Z");
+        assert_eq!(v["returned"], "1970-01-01T00:00:01Z");
+        assert_eq!(v["schema_version"], SCHEMA_VERSION);
+        assert_eq!(v["version"], PRODUCT_VERSION);
+        assert!(v.get("is_new").is_none());
     }
 }

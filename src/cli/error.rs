@@ -106,6 +106,10 @@ pub enum Usage {
     NotAFolder(PathBuf),
     #[error("no open alert with id {0}")]
     NoOpenAlert(i64),
+    #[error("no alert with id {0} (headroom alerts --all lists every alert)")]
+    NoAlert(i64),
+    #[error("say who acknowledges: --by NAME (neither USER nor LOGNAME is set)")]
+    NoAcknowledger,
     #[error(
         "cannot read {flag} {given:?}: give RFC 3339 (2026-11-23T08:00:00Z) or an age such as \
          90m, 24h, 7d"

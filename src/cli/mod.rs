@@ -53,7 +53,8 @@ pub enum Command {
     Loops(store::StoreArgs),
     /// Scored setpoint changes from the store.
     Episodes(episodes::EpisodesArgs),
-    /// Alerts from the store; acknowledge one with --ack.
+    /// Alerts from the store (active and returned; --all for every one); `alerts ack ID`
+    /// acknowledges one.
     Alerts(alerts::AlertsArgs),
     /// Write a loop's stored samples as a CSV export that `analyze` reads.
     Export(export::ExportArgs),

@@ -84,6 +84,15 @@ impl Daemon {
                 .with_context(|| format!("cannot resume loop {tag} from the store"))?;
             loops.insert(Arc::from(tag.as_str()), rt);
         }
+        // Outages in progress when the daemon stopped end when their data flows again.
+        for alert in store
+            .ongoing_alerts(crate::alerts::AlertKind::StaleTag.as_str())
+            .await?
+        {
+            if let Some(rt) = loops.get_mut(alert.loop_tag.as_str()) {
+                rt.resume_outage(&alert);
+            }
+        }
         let settings = writer::WriterSettings {
             alert_topic: config.mqtt.as_ref().map(|m| m.alert_topic.clone()),
             status_topic: config.mqtt.as_ref().and_then(|m| m.status_topic.clone()),

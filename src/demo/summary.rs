@@ -101,14 +101,23 @@ pub async fn gather(
             unreadable,
             model,
             recommendation,
-            alerts: alerts
-                .iter()
-                .filter(|a| a.loop_tag == d.tag)
-                .map(|a| (a.kind.clone(), a.count))
-                .collect(),
+            alerts: alerts_by_kind(&alerts, d.tag),
         });
     }
     Ok(out)
+}
+
+/// A loop's alerts by kind, in the order first met: (kind, occurrences). Alerts are kept one
+/// per change and per outage, so the rows of a kind add up.
+fn alerts_by_kind(alerts: &[crate::store::AlertRow], tag: &str) -> Vec<(String, u64)> {
+    let mut out: Vec<(String, u64)> = Vec::new();
+    for a in alerts.iter().filter(|a| a.loop_tag == tag) {
+        match out.iter_mut().find(|(k, _)| *k == a.kind) {
+            Some((_, n)) => *n += a.count,
+            None => out.push((a.kind.clone(), a.count)),
+        }
+    }
+    out
 }
 
 /// Facts about the run for the summary's heading and footer.

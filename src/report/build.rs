@@ -252,7 +252,7 @@ fn open_alerts(alerts: &[AlertRow], period: &Period) -> Vec<AlertCount> {
     let mut by_kind: BTreeMap<String, (usize, Vec<String>)> = BTreeMap::new();
     for a in alerts
         .iter()
-        .filter(|a| a.state == AlertState::Open && a.first_seen_ms < period.to_ms())
+        .filter(|a| a.state != AlertState::Acknowledged && a.first_seen_ms < period.to_ms())
     {
         let e = by_kind.entry(a.kind.clone()).or_default();
         e.0 += 1;

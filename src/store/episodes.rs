@@ -287,7 +287,7 @@ impl Store {
         }
 
         let open: Vec<(String, i64)> = sqlx::query_as(
-            "SELECT loop_tag, COUNT(*) FROM alerts WHERE state = 'open' GROUP BY loop_tag",
+            "SELECT loop_tag, COUNT(*) FROM alerts WHERE state <> 'acknowledged' GROUP BY loop_tag",
         )
         .fetch_all(&mut *tx)
         .await
@@ -580,6 +580,8 @@ mod tests {
                     message: "level loop misses its spec".into(),
                     evidence: serde_json::json!({}),
                     seen_ms: 5_000,
+                    since_ms: None,
+                    change_start_ms: None,
                 })
                 .await
                 .unwrap();

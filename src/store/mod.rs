@@ -22,13 +22,15 @@ mod alerts;
 mod episodes;
 mod error;
 mod gaps;
+mod rejections;
 mod report;
 mod samples;
 
-pub use alerts::{AlertInput, AlertRow, AlertState, RejectionRow};
+pub use alerts::{Acknowledgement, AlertInput, AlertRow, AlertState};
 pub use episodes::{EpisodeRow, LoopRow, ModelRow};
 pub use error::{Error, Result};
 pub use gaps::GapRow;
+pub use rejections::RejectionRow;
 pub use report::{KeptReport, SeriesCoverage};
 pub use samples::InsertOutcome;
 

@@ -8,6 +8,9 @@
 //! - When everything stops, the plant's clock runs on wall time, and the alert comes once the
 //!   limit has passed on it.
 //! - A signal that starts a little after the others, within the limit, is not stale.
+//! - An outage is one alert spanning it: from the last sample before the silence, its end
+//!   advancing while the silence lasts, and returning when data flows again, the span then
+//!   ending at the first sample after the silence — in the store and on the alert topic.
 
 use crate::common::broker::{BrokerOptions, Mosquitto};
 use crate::common::clients::{Message, PublishOptions, Spy, SpyOptions, publish, publish_all};
@@ -98,7 +101,8 @@ impl Rig {
             .collect()
     }
 
-    /// The `stale_tag` alerts for the loop in the store, as `headroom alerts --json` lists them.
+    /// The `stale_tag` alerts for the loop in the store, as `headroom alerts --json` lists them
+    /// (active and returned).
     async fn stale_in_store(&self) -> Vec<Value> {
         let out = headroom(["alerts", "--db", path(&self.db), "--json"]).await;
         let all: Vec<Value> = serde_json::from_str(&out).expect("alerts --json is JSON");
@@ -209,7 +213,7 @@ async fn a_pv_that_stops_while_sp_and_op_flow_is_stale_on_the_data_clock() {
         },
     )
     .await;
-    let raised_ms = ms(&alert["first_seen"]);
+    let raised_ms = ms(&alert["raised"]);
     // SP and OP keep arriving, their data time well past the alert; still nothing of theirs
     // is stale.
     eventually(
@@ -270,16 +274,20 @@ async fn a_pv_that_stops_while_sp_and_op_flow_is_stale_on_the_data_clock() {
         "stale alerts published: {on_topic:#?}"
     );
 
-    // In the store: the same alert, raised once, open.
+    // Its span starts where PV fell silent: its last sample.
+    assert_eq!(ms(&alert["first_seen"]), pv_last_ms, "{alert:#}");
+
+    // In the store: the same alert, raised once, active.
     assert_eq!(stored.len(), 1, "{stored:#?}");
     let a = &stored[0];
     assert_eq!(a["id"], alert["id"], "{a:#}");
-    assert_eq!(a["state"], "open", "{a:#}");
+    assert_eq!(a["state"], "active", "{a:#}");
     assert_eq!(
         a["count"], 1,
         "a stale alert before PV stopped was folded in: {a:#}"
     );
-    assert_eq!(a["first_seen_ms"], raised_ms, "{a:#}");
+    assert_eq!(a["raised_ms"], raised_ms, "{a:#}");
+    assert_eq!(a["first_seen_ms"], pv_last_ms, "{a:#}");
     assert_eq!(named(a), names(&["pv"]), "{a:#}");
 
     rig.stop().await;
@@ -327,8 +335,9 @@ async fn when_nothing_arrives_the_stale_alert_comes_after_the_limit_in_wall_time
             "{alert:#}"
         );
     }
-    let raised_ms = ms(&alert["first_seen"]);
+    let raised_ms = ms(&alert["raised"]);
     assert!(raised_ms - last_ms > limit.as_millis() as i64, "{alert:#}");
+    assert_eq!(ms(&alert["first_seen"]), last_ms, "{alert:#}");
     assert!(
         raised_ms < jiff::Timestamp::now().as_millisecond() - 3_600_000,
         "the alert is timed by the wall clock, not the data's advanced by it: {alert:#}"
@@ -381,7 +390,7 @@ async fn a_signal_that_starts_within_the_limit_after_the_others_is_not_stale() {
     let on_topic: Vec<Value> = rig
         .stale_on_topic()
         .into_iter()
-        .filter(|a| early(ms(&a["first_seen"])))
+        .filter(|a| early(ms(&a["raised"])))
         .collect();
     assert!(
         on_topic.is_empty(),
@@ -391,12 +400,119 @@ async fn a_signal_that_starts_within_the_limit_after_the_others_is_not_stale() {
         .stale_in_store()
         .await
         .into_iter()
-        .filter(|a| early(a["first_seen_ms"].as_i64().expect("first_seen_ms")))
+        .filter(|a| early(a["raised_ms"].as_i64().expect("raised_ms")))
         .collect();
     assert!(
         stored.is_empty(),
         "stale alerts while every signal was within its limit: {stored:#?}"
     );
+
+    rig.stop().await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn an_outage_is_one_alert_that_spans_it_and_returns_when_data_flows() {
+    let stale_after_periods = 3.0;
+    let rig = Rig::start("stale-back", stale_after_periods).await;
+
+    // Twenty seconds of data, then silence: the daemon's clock runs on wall time.
+    let t0_ms = recent_past_ms(2 * 3600);
+    let last_ms = t0_ms + 19_000;
+    rig.publish(&messages(&rig.topics, t0_ms, 0..20, &ALL), 60.0)
+        .await;
+    let raised = eventually(
+        "a stale_tag alert in the store",
+        Duration::from_secs(60),
+        async || {
+            rig.stale_in_store()
+                .await
+                .into_iter()
+                .next()
+                .ok_or_else(|| "none yet".to_string())
+        },
+    )
+    .await;
+    assert_eq!(raised["state"], "active", "{raised:#}");
+    assert_eq!(raised["ongoing"], true, "{raised:#}");
+    assert_eq!(raised["first_seen_ms"], last_ms, "{raised:#}");
+    assert!(raised["returned"].is_null(), "{raised:#}");
+
+    // While the silence lasts, the alert's end advances; it stays one alert.
+    let raised_last = raised["last_seen_ms"].as_i64().expect("last_seen_ms");
+    let grown = eventually(
+        "the outage's end advancing in the store",
+        Duration::from_secs(60),
+        async || {
+            let stored = rig.stale_in_store().await;
+            match stored.as_slice() {
+                [a] if a["last_seen_ms"].as_i64() > Some(raised_last) => Ok(a.clone()),
+                other => Err(format!("{other:#?}")),
+            }
+        },
+    )
+    .await;
+    assert_eq!(grown["id"], raised["id"]);
+    assert_eq!(grown["first_seen_ms"], last_ms, "{grown:#}");
+
+    // Data again, stamped an hour after the last sample: an hour's outage, returned.
+    let back_ms = last_ms + 3_600_000;
+    let resumed: Vec<Message> = messages(&rig.topics, back_ms, 0..5, &ALL);
+    rig.publish(&resumed, 60.0).await;
+    let back = eventually(
+        "the alert returned in the store",
+        Duration::from_secs(60),
+        async || {
+            let stored = rig.stale_in_store().await;
+            match stored.as_slice() {
+                [a] if a["state"] == "returned" => Ok(a.clone()),
+                other => Err(format!("{other:#?}")),
+            }
+        },
+    )
+    .await;
+    assert_eq!(back["id"], raised["id"]);
+    assert_eq!(back["ongoing"], false, "{back:#}");
+    assert_eq!(back["first_seen_ms"], last_ms, "{back:#}");
+    assert_eq!(back["last_seen_ms"], back_ms, "{back:#}");
+    assert_eq!(back["returned_ms"], back_ms, "{back:#}");
+    for s in ["sp", "pv", "op"] {
+        assert_eq!(ms(&back["evidence"][s]["last_sample"]), last_ms, "{back:#}");
+        assert_eq!(
+            ms(&back["evidence"][s]["first_sample_after"]),
+            back_ms,
+            "{back:#}"
+        );
+    }
+    assert!(
+        back["message"]
+            .as_str()
+            .is_some_and(|m| m.contains("after 60.0 min of silence")),
+        "{back:#}"
+    );
+
+    // On the alert topic: raised, then returned, the same alert; nothing between.
+    let on_topic = eventually(
+        "the return on the alert topic",
+        Duration::from_secs(30),
+        async || {
+            let seen = rig.stale_on_topic();
+            if seen.last().is_some_and(|a| a["state"] == "returned") {
+                Ok(seen)
+            } else {
+                Err(format!("{seen:#?}"))
+            }
+        },
+    )
+    .await;
+    let states: Vec<&str> = on_topic
+        .iter()
+        .filter_map(|a| a["state"].as_str())
+        .collect();
+    assert_eq!(states, ["active", "returned"], "{on_topic:#?}");
+    assert!(on_topic.iter().all(|a| a["id"] == raised["id"]));
+    assert_eq!(ms(&on_topic[1]["first_seen"]), last_ms);
+    assert_eq!(ms(&on_topic[1]["returned"]), back_ms);
+    assert!(on_topic[1]["schema_version"].is_u64(), "{:#}", on_topic[1]);
 
     rig.stop().await;
 }

@@ -5,13 +5,15 @@
 //!   tank is tuning-limited, the kettle's heater is actuator-limited and its 88 °C trial step is
 //!   unreachable, the buffer tank's lost level transmitter raises a stale-tag alert — and no
 //!   other loop is called stale.
+//! - One alert per missed change: as many followed change alerts as final misses.
 //! - The store passes SQLite's integrity check.
 //! - The demo leaves nothing behind: a second demo on the same fixed ports starts and finishes,
 //!   and the ports are free afterwards.
 
 use crate::common::{free_port, headroom_bin, port_is_free};
 use headroom::analysis::Verdict;
-use headroom::store::{EpisodeRow, Store};
+use headroom::store::{AlertRow, AlertState, EpisodeRow, Store};
+use std::collections::BTreeSet;
 use std::path::Path;
 use std::process::Stdio;
 use std::time::Duration;
@@ -146,6 +148,42 @@ async fn a_short_demo_shows_each_loops_story_and_leaves_nothing_behind() {
         .map(|a| a.loop_tag.as_str())
         .collect();
     assert_eq!(stale, ["LIC-150"], "stale alerts: {alerts:#?}");
+
+    // One alert per missed change: the changes with a followed alert are exactly the misses
+    // on record that are not marginal (final, or still provisional when the demo ended), each
+    // alert about one change; a provisional alert whose change is no miss in the end has
+    // returned.
+    let misses: BTreeSet<(&str, i64)> = rows
+        .iter()
+        .filter(|r| r.verdict.is_miss() && r.detail["confidence"] != "marginal")
+        .map(|r| (r.loop_tag.as_str(), r.start_ms))
+        .collect();
+    let per_change: Vec<&AlertRow> = alerts
+        .iter()
+        .filter(|a| a.change_start_ms.is_some())
+        .collect();
+    let changes: BTreeSet<(&str, i64)> = per_change
+        .iter()
+        .map(|a| (a.loop_tag.as_str(), a.change_start_ms.unwrap_or_default()))
+        .collect();
+    assert_eq!(
+        changes.len(),
+        per_change.len(),
+        "two alerts for one change: {per_change:#?}"
+    );
+    let followed: BTreeSet<(&str, i64)> = per_change
+        .iter()
+        .filter(|a| a.ongoing)
+        .map(|a| (a.loop_tag.as_str(), a.change_start_ms.unwrap_or_default()))
+        .collect();
+    assert!(!misses.is_empty());
+    assert_eq!(followed, misses, "alerts: {per_change:#?}");
+    assert!(
+        per_change
+            .iter()
+            .all(|a| a.ongoing == (a.state == AlertState::Active)),
+        "{per_change:#?}"
+    );
 
     // The summary carries the caution with its recommendations.
     assert!(

@@ -5,6 +5,7 @@
 #[path = "../common/mod.rs"]
 mod common;
 
+mod alerts_ack;
 mod architecture;
 mod cli;
 mod cli_flags;

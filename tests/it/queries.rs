@@ -58,6 +58,8 @@ async fn filled_store(path: &std::path::Path) -> (Store, i64) {
             message: "TIC-9: no pv sample".into(),
             evidence: serde_json::json!({"pv": {"last_sample": null}}),
             seen_ms: origin,
+            since_ms: None,
+            change_start_ms: None,
         })
         .await
         .unwrap();
@@ -121,7 +123,13 @@ async fn query_commands_show_and_acknowledge_what_the_store_holds() {
         serde_json::from_str::<serde_json::Value>(&out).unwrap(),
         serde_json::json!([])
     );
+    // Acknowledged alerts are listed with --all only.
     let (_, out, _) = run(&["alerts", "--db", db_s, "--json"]);
+    assert_eq!(
+        serde_json::from_str::<serde_json::Value>(&out).unwrap(),
+        serde_json::json!([])
+    );
+    let (_, out, _) = run(&["alerts", "--db", db_s, "--all", "--json"]);
     let all: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert_eq!(all[0]["state"], "acknowledged");
     // Acknowledging it again says there is no such open alert.

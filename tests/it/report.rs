@@ -278,6 +278,8 @@ async fn seeded_store(path: &Path) -> Store {
                     .into(),
             evidence: serde_json::json!({}),
             seen_ms: day(4, 1),
+            since_ms: None,
+            change_start_ms: None,
         })
         .await
         .unwrap();
@@ -288,6 +290,8 @@ async fn seeded_store(path: &Path) -> Store {
             message: "settled in 1400 s, spec 900 s".into(),
             evidence: serde_json::json!({}),
             seen_ms: day(2, 9),
+            since_ms: None,
+            change_start_ms: None,
         })
         .await
         .unwrap();

@@ -26,6 +26,9 @@ const MAX_BATCH: usize = 5_000;
 const HOUSEKEEPING_EVERY: Duration = Duration::from_secs(1);
 /// A status message is published this often (when a status topic is configured).
 const STATUS_EVERY: Duration = Duration::from_secs(10);
+/// The end of an outage in progress is written to its alert this often (not published: the
+/// alert topic hears of an outage when it begins, grows or ends).
+const OUTAGE_REFRESH_EVERY: Duration = Duration::from_secs(5);
 /// Raw samples are pruned this often.
 const PRUNE_EVERY: Duration = Duration::from_secs(3600);
 /// After a failed commit the same batch is retried after this wait (nothing is acknowledged
@@ -47,7 +50,61 @@ pub struct LoopRuntime {
     /// A silence longer than this between two samples of a signal is recorded as a gap: the
     /// same limit the analysis cuts episode windows at.
     gap_after_ms: i64,
-    stale: Vec<Signal>,
+    /// The outage in progress, if signals are silent.
+    outage: Option<Outage>,
+}
+
+/// An outage in progress: every signal silent in it (a signal stays silent until its first
+/// sample after the silence), and where the silence began.
+#[derive(Debug, Clone)]
+struct Outage {
+    signals: Vec<Silent>,
+    since_ms: i64,
+}
+
+impl Outage {
+    /// Whether `signal` is in the outage and has not come back.
+    fn holds(&self, signal: Signal) -> bool {
+        self.signals
+            .iter()
+            .any(|s| s.signal == signal && s.back_ms.is_none())
+    }
+
+    /// Notes a sample of `signal` at `ts_ms`: its first after the silence ends its part.
+    fn saw(&mut self, signal: Signal, ts_ms: i64) {
+        if let Some(s) = self.signals.iter_mut().find(|s| {
+            s.signal == signal && s.back_ms.is_none() && s.last_sample_ms.is_none_or(|l| ts_ms > l)
+        }) {
+            s.back_ms = Some(ts_ms);
+        }
+    }
+
+    /// Takes in the signals silent now; whether one of them is new to the outage.
+    fn extend(
+        &mut self,
+        silent: &[Signal],
+        last_seen: &HashMap<Signal, i64>,
+        watched_from: i64,
+    ) -> bool {
+        let mut news = false;
+        for &signal in silent {
+            match self.signals.iter_mut().find(|s| s.signal == signal) {
+                // Back, then silent again within the same outage: not back after all.
+                Some(s) => s.back_ms = None,
+                None => {
+                    let last = last_seen.get(&signal).copied();
+                    self.signals.push(Silent {
+                        signal,
+                        last_sample_ms: last,
+                        back_ms: None,
+                    });
+                    self.since_ms = self.since_ms.min(last.unwrap_or(watched_from));
+                    news = true;
+                }
+            }
+        }
+        news
+    }
 }
 
 impl LoopRuntime {
@@ -69,7 +126,19 @@ impl LoopRuntime {
             last_seen_ms: HashMap::new(),
             resumed_ms: HashMap::new(),
             gap_after_ms,
-            stale: Vec::new(),
+            outage: None,
+        }
+    }
+
+    /// Picks up an outage that was in progress when the daemon stopped, from its alert: it
+    /// ends when its signals flow again, whether or not they go stale in this run.
+    pub fn resume_outage(&mut self, alert: &store::AlertRow) {
+        let signals = alerts::outage_signals(alert);
+        if !signals.is_empty() {
+            self.outage = Some(Outage {
+                signals,
+                since_ms: alert.first_seen_ms,
+            });
         }
     }
 
@@ -167,6 +236,7 @@ struct Chores {
     tick: tokio::time::Interval,
     last_status: Instant,
     last_prune: Instant,
+    last_outage_refresh: Instant,
 }
 
 impl Chores {
@@ -177,6 +247,7 @@ impl Chores {
             tick,
             last_status: Instant::now(),
             last_prune: Instant::now(),
+            last_outage_refresh: Instant::now(),
         }
     }
 
@@ -264,7 +335,8 @@ impl Writer {
 
     /// Staleness and rejection counts every tick; status and pruning when they are due.
     async fn housekeep(&mut self, chores: &mut Chores) {
-        self.check_stale().await;
+        let refresh = Chores::due(&mut chores.last_outage_refresh, OUTAGE_REFRESH_EVERY);
+        self.check_stale(refresh).await;
         self.flush_rejections().await;
         if Chores::due(&mut chores.last_status, STATUS_EVERY) {
             self.publish_status().await;
@@ -400,6 +472,9 @@ impl Writer {
                     to_ms: s.ts_ms,
                 });
             }
+            if let Some(outage) = rt.outage.as_mut() {
+                outage.saw(s.signal, s.ts_ms);
+            }
             let seen = rt.last_seen_ms.entry(s.signal).or_insert(s.ts_ms);
             *seen = (*seen).max(s.ts_ms);
             rt.aligner.push(s.signal, ms_to_s(s.ts_ms), s.value);
@@ -469,20 +544,27 @@ impl Writer {
             min_settling_time_s = r.min_settling_time_s,
             "setpoint change scored"
         );
-        if let Some(alert) = alerts::missed_change(tag, r, is_final) {
-            self.raise(alert).await;
+        // One alert per change: raised or updated in place by a miss, returned by a look that
+        // finds none (a final verdict that is no miss, or a marginal one).
+        match alerts::missed_change(tag, r, is_final) {
+            Some(alert) => self.raise(alert, true).await,
+            None => self.settle(alerts::change_cleared(tag, r, is_final)).await,
         }
     }
 
-    /// Records an alert (one open per loop and kind), logs it and publishes it.
-    async fn raise(&mut self, alert: AlertInput) {
+    /// Records a sighting of an alert condition (a new alert, or an update of the one it
+    /// belongs to); when `announce`, logs it and publishes the alert.
+    async fn raise(&mut self, alert: AlertInput, announce: bool) {
         let (tag, kind) = (alert.loop_tag.clone(), alert.kind.clone());
         match self.store.raise_alert(alert).await {
             Ok(row) => {
-                self.counters.alerts_raised += 1;
-                tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, count = row.count, "alert: {}", row.message);
-                if let Some(topic) = self.settings.alert_topic.clone() {
-                    self.publish(topic, alerts::payload(&row)).await;
+                if row.is_new {
+                    self.counters.alerts_raised += 1;
+                }
+                if announce {
+                    let what = if row.is_new { "raised" } else { "updated" };
+                    tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, state = row.state.as_str(), "alert {what}: {}", row.message);
+                    self.announce(&row).await;
                 }
             }
             Err(e) => {
@@ -491,45 +573,80 @@ impl Writer {
         }
     }
 
-    /// Raises a `stale_tag` alert for each loop with a signal silent for longer than its limit.
-    async fn check_stale(&mut self) {
+    /// Records that an alert's condition has gone (if an alert is following it), logs it and
+    /// publishes the alert.
+    async fn settle(&mut self, alert: AlertInput) {
+        let (tag, kind) = (alert.loop_tag.clone(), alert.kind.clone());
+        match self.store.return_alert(alert).await {
+            Ok(Some(row)) => {
+                tracing::info!(alert_id = row.id, loop_tag = %tag, kind = row.kind, state = row.state.as_str(), "alert condition gone: {}", row.message);
+                self.announce(&row).await;
+            }
+            Ok(None) => {}
+            Err(e) => {
+                tracing::error!(loop_tag = %tag, kind, error = %e, "could not record that an alert's condition has gone")
+            }
+        }
+    }
+
+    async fn announce(&self, row: &store::AlertRow) {
+        if let Some(topic) = self.settings.alert_topic.clone() {
+            self.publish(topic, alerts::payload(row)).await;
+        }
+    }
+
+    /// Follows each loop's outage: raises its `stale_tag` alert when a signal has been silent
+    /// for longer than its limit, updates it when another falls silent (and its end, quietly,
+    /// when `refresh`), and returns it once every signal flows again.
+    async fn check_stale(&mut self, refresh: bool) {
         let Some(now) = self.clock.now_ms() else {
             return;
         };
         // A signal never seen counts as silent from where watching began, not as silent
         // forever: one that starts a little after the others is not stale.
         let watched_from = self.clock.first_ms.unwrap_or(now);
-        let mut newly: Vec<AlertInput> = Vec::new();
+        let mut sightings: Vec<(AlertInput, bool)> = Vec::new();
+        let mut ended: Vec<AlertInput> = Vec::new();
         for (tag, rt) in self.loops.iter_mut() {
             let limit_ms = rt.stale_after_ms;
             let silent: Vec<Signal> = rt
                 .expected
                 .iter()
                 .copied()
-                .filter(|s| {
-                    let since = rt.last_seen_ms.get(s).copied().unwrap_or(watched_from);
-                    now - since > limit_ms
+                .filter(|&s| {
+                    let since = rt.last_seen_ms.get(&s).copied().unwrap_or(watched_from);
+                    rt.outage.as_ref().is_some_and(|o| o.holds(s)) || now - since > limit_ms
                 })
                 .collect();
-            let fresh: Vec<Signal> = silent
-                .iter()
-                .copied()
-                .filter(|s| !rt.stale.contains(s))
-                .collect();
-            if !fresh.is_empty() {
-                let silent: Vec<Silent> = silent
-                    .iter()
-                    .map(|&signal| Silent {
-                        signal,
-                        last_sample_ms: rt.last_seen_ms.get(&signal).copied(),
-                    })
-                    .collect();
-                newly.push(alerts::stale_tag(tag, &fresh, &silent, now));
+            if silent.is_empty() {
+                if let Some(o) = rt.outage.take() {
+                    let back = o
+                        .signals
+                        .iter()
+                        .filter_map(|s| s.back_ms)
+                        .max()
+                        .unwrap_or(now);
+                    ended.push(alerts::stale_tag_returned(
+                        tag, &o.signals, o.since_ms, back,
+                    ));
+                }
+                continue;
             }
-            rt.stale = silent;
+            let outage = rt.outage.get_or_insert(Outage {
+                signals: Vec::new(),
+                since_ms: i64::MAX,
+            });
+            let news = outage.extend(&silent, &rt.last_seen_ms, watched_from);
+            if news || refresh {
+                let alert = alerts::stale_tag(tag, &outage.signals, outage.since_ms, now);
+                sightings.push((alert, news));
+            }
         }
-        for alert in newly {
-            self.raise(alert).await;
+        for (alert, news) in sightings {
+            self.raise(alert, news).await;
+        }
+        for alert in ended {
+            self.settle(alert).await;
         }
     }
 
