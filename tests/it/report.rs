@@ -14,9 +14,9 @@ use std::process::Command;
 use std::sync::Arc;
 
 /// Monday 2026-11-23 00:00 UTC: the start of ISO week 2026-W48.
-const W48_MS: i64 = 1_795_392_000_000;
+pub(crate) const W48_MS: i64 = 1_795_392_000_000;
 const WEEK_MS: i64 = 7 * 86_400_000;
-const HOUR_MS: i64 = 3_600_000;
+pub(crate) const HOUR_MS: i64 = 3_600_000;
 
 /// The Wrenmoor pilot plant's loops as the report sees them (no sources: the store is seeded).
 const CONFIG: &str = r#"
@@ -57,7 +57,7 @@ folder = "reports"
 "#;
 
 #[allow(clippy::too_many_arguments)]
-fn episode(
+pub(crate) fn episode(
     verdict: Verdict,
     sp_from: f64,
     sp_to: f64,
@@ -103,7 +103,7 @@ fn episode(
     }
 }
 
-fn model(gain: f64, tau: f64, theta: f64) -> Model {
+pub(crate) fn model(gain: f64, tau: f64, theta: f64) -> Model {
     Model::first_order(
         headroom::analysis::Fopdt {
             gain,
@@ -117,7 +117,7 @@ fn model(gain: f64, tau: f64, theta: f64) -> Model {
 }
 
 /// Samples of one simulated setpoint change starting at `t0_ms` (10 s apart), for the plot.
-async fn simulated_change(
+pub(crate) async fn simulated_change(
     store: &Store,
     tag: &str,
     t0_ms: i64,
@@ -294,13 +294,13 @@ async fn seeded_store(path: &Path) -> Store {
     store
 }
 
-struct Fixture {
-    dir: tempfile::TempDir,
-    db: PathBuf,
-    config: PathBuf,
+pub(crate) struct Fixture {
+    pub(crate) dir: tempfile::TempDir,
+    pub(crate) db: PathBuf,
+    pub(crate) config: PathBuf,
 }
 
-async fn fixture() -> Fixture {
+pub(crate) async fn fixture() -> Fixture {
     let dir = tempfile::tempdir().unwrap();
     let db = dir.path().join("headroom.db");
     let config = dir.path().join("headroom.toml");
@@ -309,13 +309,13 @@ async fn fixture() -> Fixture {
     Fixture { dir, db, config }
 }
 
-fn report(args: &[&str]) -> (i32, String, String) {
+pub(crate) fn report(args: &[&str]) -> (i32, String, String) {
     run_headroom_text(&[&["report"], args].concat())
 }
 
 /// Writes the W48 summary in all three formats into a folder that does not exist yet (the
 /// command makes it, with its parents); returns the folder.
-fn write_all(f: &Fixture) -> PathBuf {
+pub(crate) fn write_all(f: &Fixture) -> PathBuf {
     let out = f.dir.path().join("out").join("weekly");
     assert!(!out.exists());
     let (code, stdout, stderr) = report(&[
@@ -335,7 +335,17 @@ fn write_all(f: &Fixture) -> PathBuf {
     out
 }
 
-fn loop_json<'a>(j: &'a serde_json::Value, tag: &str) -> &'a serde_json::Value {
+/// The HTML's text with the template's escapes undone (`/` is written `&#x2f;`), for searching.
+pub(crate) fn unescaped(html: &str) -> String {
+    html.replace("&#x2f;", "/")
+        .replace("&#x27;", "'")
+        .replace("&quot;", "\"")
+        .replace("&lt;", "<")
+        .replace("&gt;", ">")
+        .replace("&amp;", "&")
+}
+
+pub(crate) fn loop_json<'a>(j: &'a serde_json::Value, tag: &str) -> &'a serde_json::Value {
     j["loops"]
         .as_array()
         .unwrap()
@@ -357,7 +367,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     )
     .unwrap();
     let md = std::fs::read_to_string(out.join("loop-health-2026-W48.md")).unwrap();
-    let html = std::fs::read_to_string(out.join("loop-health-2026-W48.html")).unwrap();
+    let html = unescaped(&std::fs::read_to_string(out.join("loop-health-2026-W48.html")).unwrap());
 
     assert_eq!(json["period"]["label"], "2026-W48");
     assert_eq!(json["schema_version"], 2);
@@ -479,21 +489,24 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
         "{quality}"
     );
 
-    // The same numbers in the Markdown and the HTML.
+    // The same numbers in the Markdown and the HTML, each with its unit to three significant
+    // figures (1280 s = 21.3 min, 1400 s = 23.3 min; the OP's unit defaults to %, Kc is in OP
+    // units per PV unit).
+    use headroom::units::quantity;
     for (name, text) in [("md", &md), ("html", &html)] {
         for expected in [
-            "1280 s",
-            "1400 s",
-            "25 %",
-            "3.5 %",
-            &format!("{:.1}", limit),
-            &format!("{:.2}×", limit / 100.0),
-            &format!("{:.3}", largest),
-            &format!("{:.4}", pi["gain"].as_f64().unwrap()),
+            "21.3 min",
+            "23.3 min",
+            "25.0 %",
+            "3.50 %",
+            &quantity(limit, "%"),
+            &format!("{} times", headroom::units::sig(limit / 100.0, 3)),
+            &quantity(largest, "°C"),
+            &quantity(pi["gain"].as_f64().unwrap(), "%/°C"),
             "+10.0 %",
             "qualified engineers",
-            "Upgrade the actuator",
-            "Retune",
+            "upgrade the actuator",
+            "retune",
         ] {
             assert!(text.contains(expected), "{name} lacks {expected:?}");
         }
@@ -508,14 +521,14 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
         );
     }
     assert!(
-        md.contains("| median settling time | 1280 s | spec 900 s |"),
+        md.contains("| median settling time | 21.3 min | spec 15.0 min |"),
         "{md}"
     );
 }
 
 /// Checks the HTML with an HTML5 parser (html5ever, the parser of a browser engine) and every
 /// inline SVG with an XML parser. Returns the number of SVGs.
-fn check_html(html: &str) -> usize {
+pub(crate) fn check_html(html: &str) -> usize {
     use html5ever::tendril::TendrilSink;
     let dom = html5ever::parse_document(markup5ever_rcdom::RcDom::default(), Default::default())
         .one(html);
