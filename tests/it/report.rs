@@ -313,6 +313,25 @@ pub(crate) fn report(args: &[&str]) -> (i32, String, String) {
     run_headroom_text(&[&["report"], args].concat())
 }
 
+/// One week's summary printed in one format, with the configuration and the store given.
+pub(crate) fn week_report(
+    config: &Path,
+    db: &Path,
+    week: &str,
+    format: &str,
+) -> (i32, String, String) {
+    report(&[
+        "--config",
+        config.to_str().unwrap(),
+        "--db",
+        db.to_str().unwrap(),
+        "--week",
+        week,
+        "--format",
+        format,
+    ])
+}
+
 /// Writes the W48 summary in all three formats into a folder that does not exist yet (the
 /// command makes it, with its parents); returns the folder.
 pub(crate) fn write_all(f: &Fixture) -> PathBuf {
@@ -641,16 +660,7 @@ fn find_browser() -> Option<PathBuf> {
 async fn an_empty_week_gives_clear_lines_not_an_empty_page() {
     let f = fixture().await;
     for format in ["json", "md", "html"] {
-        let (code, out, err) = report(&[
-            "--config",
-            f.config.to_str().unwrap(),
-            "--db",
-            f.db.to_str().unwrap(),
-            "--week",
-            "2026-W30",
-            "--format",
-            format,
-        ]);
+        let (code, out, err) = week_report(&f.config, &f.db, "2026-W30", format);
         assert_eq!(code, 0, "{err}");
         match format {
             "json" => {

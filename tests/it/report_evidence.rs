@@ -5,8 +5,8 @@
 //! with an unreachable change and no model.
 
 use super::report::{
-    HOUR_MS, W48_MS, check_html, episode, fixture, loop_json, model, report, simulated_change,
-    unescaped, write_all,
+    HOUR_MS, W48_MS, check_html, episode, fixture, loop_json, model, simulated_change, unescaped,
+    week_report, write_all,
 };
 use crate::common::run_headroom_text;
 use headroom::analysis::Verdict;
@@ -115,16 +115,7 @@ async fn the_summary_and_episodes_json_carry_versions_and_the_settings_hash() {
         assert!(text.contains(all), "{name} lacks the settings hash");
     }
     // The same settings give the same hash in another run.
-    let (code, again, err) = report(&[
-        "--config",
-        f.config.to_str().unwrap(),
-        "--db",
-        f.db.to_str().unwrap(),
-        "--week",
-        "2026-W48",
-        "--format",
-        "json",
-    ]);
+    let (code, again, err) = week_report(&f.config, &f.db, "2026-W48", "json");
     assert_eq!(code, 0, "{err}");
     let again: Value = serde_json::from_str(&again).unwrap();
     assert_eq!(again["settings_hash"], all);
@@ -284,16 +275,7 @@ async fn an_unreachable_change_without_a_model_reads_without_nan_or_inf() {
 
     let mut texts = Vec::new();
     for format in ["json", "md", "html"] {
-        let (code, out, err) = report(&[
-            "--config",
-            config.to_str().unwrap(),
-            "--db",
-            db.to_str().unwrap(),
-            "--week",
-            "2026-W48",
-            "--format",
-            format,
-        ]);
+        let (code, out, err) = week_report(&config, &db, "2026-W48", format);
         assert_eq!(code, 0, "{err}");
         assert!(not_a_number_words(&out).is_empty(), "{format}: {out}");
         texts.push(out);
