@@ -502,9 +502,10 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     assert_eq!(alerts[0]["count"], 1);
     let quality = json["plant"]["data_quality"].to_string();
     assert!(quality.contains("LIC-301: stale tag"), "{quality}");
-    // The level loop's 30-minute silence (threshold 10 × 10 s).
+    // The level loop's 30-minute silence (threshold 10 × 10 s): the gap runs from the 119th
+    // to the 300th sample, 181 × 10 s = 1,810 s = 30.2 min.
     assert!(
-        quality.contains("LIC-301 OP, PV, SP: 1 gap longer than 100 s, 30 min in all"),
+        quality.contains("LIC-301 OP, PV, SP: 1 gap longer than 100.0 s, 30.2 min in all"),
         "{quality}"
     );
 
