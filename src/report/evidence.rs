@@ -211,7 +211,8 @@ fn data_commands(
             "--loop",
             tag,
             "--from",
-            &rfc3339(start_ms - lead_in_ms(end_ms - start_ms)),
+            // From a whole second: easier to read, and a little more lead-in does no harm.
+            &rfc3339((start_ms - lead_in_ms(end_ms - start_ms)).div_euclid(1_000) * 1_000),
             "--to",
             &rfc3339(end_ms),
         ]),

@@ -160,28 +160,14 @@ pub(super) fn loop_notes(f: &LoopFacts) -> Vec<String> {
     notes
 }
 
-/// "45 s", "12 min", "1 h 20 min", "2 d 3 h".
-pub fn duration_words(ms: i64) -> String {
-    let s = crate::units::ms_to_s(ms) as i64;
-    match s {
-        _ if s < 120 => format!("{s} s"),
-        _ if s < 3_600 => format!("{} min", s / 60),
-        _ if s < 86_400 => format!("{} h {} min", s / 3_600, (s % 3_600) / 60),
-        _ => format!("{} d {} h", s / 86_400, (s % 86_400) / 3_600),
-    }
+/// A span of milliseconds for people, by the one rule of [`crate::units::human_duration`].
+fn duration_words(ms: i64) -> String {
+    crate::units::human_duration(crate::units::ms_to_s(ms))
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn durations_read_in_the_largest_sensible_units() {
-        assert_eq!(duration_words(45_000), "45 s");
-        assert_eq!(duration_words(12 * 60_000), "12 min");
-        assert_eq!(duration_words(80 * 60_000), "1 h 20 min");
-        assert_eq!(duration_words((51 * 3_600) * 1000), "2 d 3 h");
-    }
 
     #[test]
     fn signals_sharing_a_finding_are_named_on_one_line() {
@@ -209,7 +195,7 @@ mod tests {
         assert_eq!(
             lines,
             [
-                "TIC-1 SP, PV: 2 gaps longer than 30 s, 10 min in all (longest 5 min)",
+                "TIC-1 SP, PV: 2 gaps longer than 30.0 s, 10.0 min in all (longest 5.0 min)",
                 "TIC-1 OP: no samples in this period"
             ]
         );

@@ -33,3 +33,4 @@ mod daemon_stale;
 mod daemon_tls;
 mod queries;
 mod report;
+mod report_evidence;

@@ -14,9 +14,9 @@ use std::process::Command;
 use std::sync::Arc;
 
 /// Monday 2026-11-23 00:00 UTC: the start of ISO week 2026-W48.
-const W48_MS: i64 = 1_795_392_000_000;
+pub(crate) const W48_MS: i64 = 1_795_392_000_000;
 const WEEK_MS: i64 = 7 * 86_400_000;
-const HOUR_MS: i64 = 3_600_000;
+pub(crate) const HOUR_MS: i64 = 3_600_000;
 
 /// The Wrenmoor pilot plant's loops as the report sees them (no sources: the store is seeded).
 const CONFIG: &str = r#"
@@ -57,7 +57,7 @@ folder = "reports"
 "#;
 
 #[allow(clippy::too_many_arguments)]
-fn episode(
+pub(crate) fn episode(
     verdict: Verdict,
     sp_from: f64,
     sp_to: f64,
@@ -103,7 +103,7 @@ fn episode(
     }
 }
 
-fn model(gain: f64, tau: f64, theta: f64) -> Model {
+pub(crate) fn model(gain: f64, tau: f64, theta: f64) -> Model {
     Model::first_order(
         headroom::analysis::Fopdt {
             gain,
@@ -117,7 +117,7 @@ fn model(gain: f64, tau: f64, theta: f64) -> Model {
 }
 
 /// Samples of one simulated setpoint change starting at `t0_ms` (10 s apart), for the plot.
-async fn simulated_change(
+pub(crate) async fn simulated_change(
     store: &Store,
     tag: &str,
     t0_ms: i64,
@@ -298,13 +298,13 @@ async fn seeded_store(path: &Path) -> Store {
     store
 }
 
-struct Fixture {
-    dir: tempfile::TempDir,
-    db: PathBuf,
-    config: PathBuf,
+pub(crate) struct Fixture {
+    pub(crate) dir: tempfile::TempDir,
+    pub(crate) db: PathBuf,
+    pub(crate) config: PathBuf,
 }
 
-async fn fixture() -> Fixture {
+pub(crate) async fn fixture() -> Fixture {
     let dir = tempfile::tempdir().unwrap();
     let db = dir.path().join("headroom.db");
     let config = dir.path().join("headroom.toml");
@@ -313,13 +313,32 @@ async fn fixture() -> Fixture {
     Fixture { dir, db, config }
 }
 
-fn report(args: &[&str]) -> (i32, String, String) {
+pub(crate) fn report(args: &[&str]) -> (i32, String, String) {
     run_headroom_text(&[&["report"], args].concat())
+}
+
+/// One week's summary printed in one format, with the configuration and the store given.
+pub(crate) fn week_report(
+    config: &Path,
+    db: &Path,
+    week: &str,
+    format: &str,
+) -> (i32, String, String) {
+    report(&[
+        "--config",
+        config.to_str().unwrap(),
+        "--db",
+        db.to_str().unwrap(),
+        "--week",
+        week,
+        "--format",
+        format,
+    ])
 }
 
 /// Writes the W48 summary in all three formats into a folder that does not exist yet (the
 /// command makes it, with its parents); returns the folder.
-fn write_all(f: &Fixture) -> PathBuf {
+pub(crate) fn write_all(f: &Fixture) -> PathBuf {
     let out = f.dir.path().join("out").join("weekly");
     assert!(!out.exists());
     let (code, stdout, stderr) = report(&[
@@ -339,7 +358,17 @@ fn write_all(f: &Fixture) -> PathBuf {
     out
 }
 
-fn loop_json<'a>(j: &'a serde_json::Value, tag: &str) -> &'a serde_json::Value {
+/// The HTML's text with the template's escapes undone (`/` is written `&#x2f;`), for searching.
+pub(crate) fn unescaped(html: &str) -> String {
+    html.replace("&#x2f;", "/")
+        .replace("&#x27;", "'")
+        .replace("&quot;", "\"")
+        .replace("&lt;", "<")
+        .replace("&gt;", ">")
+        .replace("&amp;", "&")
+}
+
+pub(crate) fn loop_json<'a>(j: &'a serde_json::Value, tag: &str) -> &'a serde_json::Value {
     j["loops"]
         .as_array()
         .unwrap()
@@ -361,7 +390,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     )
     .unwrap();
     let md = std::fs::read_to_string(out.join("loop-health-2026-W48.md")).unwrap();
-    let html = std::fs::read_to_string(out.join("loop-health-2026-W48.html")).unwrap();
+    let html = unescaped(&std::fs::read_to_string(out.join("loop-health-2026-W48.html")).unwrap());
 
     assert_eq!(json["period"]["label"], "2026-W48");
     assert_eq!(json["schema_version"], 3);
@@ -477,27 +506,31 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
     assert_eq!(alerts[0]["count"], 1);
     let quality = json["plant"]["data_quality"].to_string();
     assert!(quality.contains("LIC-301: stale tag"), "{quality}");
-    // The level loop's 30-minute silence (threshold 10 × 10 s).
+    // The level loop's 30-minute silence (threshold 10 × 10 s): the gap runs from the 119th
+    // to the 300th sample, 181 × 10 s = 1,810 s = 30.2 min.
     assert!(
-        quality.contains("LIC-301 OP, PV, SP: 1 gap longer than 100 s, 30 min in all"),
+        quality.contains("LIC-301 OP, PV, SP: 1 gap longer than 100.0 s, 30.2 min in all"),
         "{quality}"
     );
 
-    // The same numbers in the Markdown and the HTML.
+    // The same numbers in the Markdown and the HTML, each with its unit to three significant
+    // figures (1280 s = 21.3 min, 1400 s = 23.3 min; the OP's unit defaults to %, Kc is in OP
+    // units per PV unit).
+    use headroom::units::quantity;
     for (name, text) in [("md", &md), ("html", &html)] {
         for expected in [
-            "1280 s",
-            "1400 s",
-            "25 %",
-            "3.5 %",
-            &format!("{:.1}", limit),
-            &format!("{:.2}×", limit / 100.0),
-            &format!("{:.3}", largest),
-            &format!("{:.4}", pi["gain"].as_f64().unwrap()),
+            "21.3 min",
+            "23.3 min",
+            "25.0 %",
+            "3.50 %",
+            &quantity(limit, "%"),
+            &format!("{} times", headroom::units::sig(limit / 100.0, 3)),
+            &quantity(largest, "°C"),
+            &quantity(pi["gain"].as_f64().unwrap(), "%/°C"),
             "+10.0 %",
             "qualified engineers",
-            "Upgrade the actuator",
-            "Retune",
+            "upgrade the actuator",
+            "retune",
         ] {
             assert!(text.contains(expected), "{name} lacks {expected:?}");
         }
@@ -512,14 +545,14 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
         );
     }
     assert!(
-        md.contains("| median settling time | 1280 s | spec 900 s |"),
+        md.contains("| median settling time | 21.3 min | spec 15.0 min |"),
         "{md}"
     );
 }
 
 /// Checks the HTML with an HTML5 parser (html5ever, the parser of a browser engine) and every
 /// inline SVG with an XML parser. Returns the number of SVGs.
-fn check_html(html: &str) -> usize {
+pub(crate) fn check_html(html: &str) -> usize {
     use html5ever::tendril::TendrilSink;
     let dom = html5ever::parse_document(markup5ever_rcdom::RcDom::default(), Default::default())
         .one(html);
@@ -632,16 +665,7 @@ fn find_browser() -> Option<PathBuf> {
 async fn an_empty_week_gives_clear_lines_not_an_empty_page() {
     let f = fixture().await;
     for format in ["json", "md", "html"] {
-        let (code, out, err) = report(&[
-            "--config",
-            f.config.to_str().unwrap(),
-            "--db",
-            f.db.to_str().unwrap(),
-            "--week",
-            "2026-W30",
-            "--format",
-            format,
-        ]);
+        let (code, out, err) = week_report(&f.config, &f.db, "2026-W30", format);
         assert_eq!(code, 0, "{err}");
         match format {
             "json" => {
