@@ -187,7 +187,7 @@ mod tests {
     fn the_canonical_text_sorts_keys_and_loops() {
         let text = canonical_settings([&setup("B", 60.0), &setup("A", 60.0)]);
         assert!(
-            text.starts_with("[{\"op\":{\"max\":100.0,\"min\":0.0},\"options\":{"),
+            text.starts_with("[{\"actuator\":null,\"controller\":null,\"op\":{\"max\":100.0,"),
             "{text}"
         );
         assert!(

@@ -534,6 +534,7 @@ pub(crate) fn judge(
         pv_noise_sd: s.noise,
         op_start: s.op_start,
         data_problem: unfit_words.as_deref(),
+        units: &setup.units,
     };
     let b = point.as_ref().map(|(b, _)| b).filter(|_| !beaten_now);
     EpisodeResult {

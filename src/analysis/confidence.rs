@@ -68,9 +68,11 @@ fn model_doubts(e: &Evidence) -> Vec<String> {
                 if lo <= e.spec_s && e.spec_s <= hi =>
             {
                 why.push(format!(
-                    "the spec time of {:.0} s lies inside the range of the fastest possible \
-                     settling, {lo:.0}–{hi:.0} s",
-                    e.spec_s
+                    "the spec time of {} lies inside the range of the fastest possible \
+                     settling, {} to {}",
+                    human_duration(e.spec_s),
+                    human_duration(lo),
+                    human_duration(hi)
                 ));
             }
             (Verdict::ActuatorLimited | Verdict::TuningLimited, None) => why.push(
@@ -245,7 +247,7 @@ mod tests {
         let (inside, above) = (spread(870.0, 1010.0), spread(1000.0, 1200.0));
         let (c, why) = confidence(&evidence(Verdict::ActuatorLimited, &inside, 0.5));
         assert_eq!(c, Some(Confidence::Marginal));
-        assert!(why[0].contains("870–1010 s"), "{why:?}");
+        assert!(why[0].contains("14.5 min to 16.8 min"), "{why:?}");
         assert_eq!(
             confidence(&evidence(Verdict::ActuatorLimited, &above, 0.5)).0,
             Some(Confidence::Clear)

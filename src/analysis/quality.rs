@@ -21,6 +21,7 @@
 use super::Series;
 use super::setup::OpRange;
 use super::stats::median_in_place;
+use crate::units::{DISPLAY_DIGITS, human_duration, sig};
 use serde::{Deserialize, Serialize};
 
 /// What a finding does to the verdicts it touches.
@@ -111,21 +112,25 @@ impl Finding {
                 period_s,
                 dead_time_s,
             } => format!(
-                "sampled every {period_s:.3} s, but the dead time is only {dead_time_s:.3} s: \
-                 the bound rests on one or two samples"
+                "sampled every {} s, but the dead time is only {} s: the bound rests on one or \
+                 two samples",
+                sig(*period_s, DISPLAY_DIGITS),
+                sig(*dead_time_s, DISPLAY_DIGITS)
             ),
             Issue::IrregularTimestamps {
                 median_interval_s,
                 longest_interval_s,
                 irregular_fraction,
             } => format!(
-                "irregular time stamps ({:.0} % of intervals far from the usual {median_interval_s:.3} s, \
-                 the longest {longest_interval_s:.1} s), as a historian recording by exception \
-                 writes them",
-                irregular_fraction * 100.0
+                "irregular time stamps ({:.0} % of intervals far from the usual {} s, the \
+                 longest {}), as a historian recording by exception writes them",
+                irregular_fraction * 100.0,
+                sig(*median_interval_s, DISPLAY_DIGITS),
+                human_duration(*longest_interval_s)
             ),
             Issue::QuantisedPv { step, band } => format!(
-                "the PV moves in steps of {step}{pv}, against a settling band of ±{band:.4}{pv}"
+                "the PV moves in steps of {step}{pv}, against a settling band of ±{}{pv}",
+                sig(*band, DISPLAY_DIGITS)
             ),
             Issue::CoarseOp { ratio } if ratio.is_finite() => format!(
                 "the OP is logged more coarsely than the PV (one OP change per {ratio:.0} PV \
@@ -141,26 +146,26 @@ impl Finding {
                 end_s,
                 value,
             } => format!(
-                "the PV stayed at exactly {value}{pv} for {:.0} s while the OP moved",
-                end_s - start_s
+                "the PV stayed at exactly {value}{pv} for {} while the OP moved",
+                human_duration(end_s - start_s)
             ),
             Issue::FrozenOp {
                 start_s,
                 end_s,
                 value,
             } => format!(
-                "the OP stayed at exactly {value} for {:.0} s, away from its limits, while the \
+                "the OP stayed at exactly {value} for {}, away from its limits, while the \
                  control error moved",
-                end_s - start_s
+                human_duration(end_s - start_s)
             ),
             Issue::ClippedPv {
                 start_s,
                 end_s,
                 value,
             } => format!(
-                "the PV sat at {value}{pv}, the end of its recorded range, for {:.0} s: the \
+                "the PV sat at {value}{pv}, the end of its recorded range, for {}: the \
                  transmitter may have been at the end of its range",
-                end_s - start_s
+                human_duration(end_s - start_s)
             ),
         }
     }

@@ -19,8 +19,9 @@
 
 use super::quality::Finding;
 use super::segment::{ChangeShape, WindowEnd};
-use super::setup::Spec;
+use super::setup::{Spec, Units};
 use super::trust::{Confidence, Experiment};
+use crate::units::quantity;
 use serde::{Deserialize, Serialize};
 
 /// The outcome of one setpoint change.
@@ -408,6 +409,8 @@ pub struct Context<'a> {
     pub op_start: f64,
     /// The data-quality problem that makes the change unjudgeable, in words.
     pub data_problem: Option<&'a str>,
+    /// The units people read the loop's numbers in.
+    pub units: &'a Units,
 }
 
 /// One sentence on why the change got its verdict.
@@ -415,9 +418,10 @@ pub fn explain(j: &Judgement, f: &Facts, spec: &Spec, cx: &Context) -> String {
     let spec_s = secs(spec.settle_within_s);
     match j.ground {
         Ground::BandInsideNoise => format!(
-            "the settling band (±{:.3}) lies inside the PV noise (σ ≈ {:.3}): the change is too \
-             small to score",
-            f.band_abs, cx.pv_noise_sd
+            "the settling band (±{}) lies inside the PV noise (σ ≈ {}): the change is too small \
+             to score",
+            quantity(f.band_abs, &cx.units.pv),
+            quantity(cx.pv_noise_sd, &cx.units.pv)
         ),
         Ground::CutShort => format!(
             "the window ended ({}) {} after the change, before the spec time of {spec_s}",
@@ -432,11 +436,11 @@ pub fn explain(j: &Judgement, f: &Facts, spec: &Spec, cx: &Context) -> String {
             miss_phrase(miss, f, spec)
         ),
         Ground::BeyondReach(miss, c) => format!(
-            "{}; the change of {:.3} exceeds the actuator's reach of {:.3} from OP {:.1}",
+            "{}; the change of {} exceeds the actuator's reach of {} from OP {}",
             miss_phrase(miss, f, spec),
-            f.distance,
-            c.reach,
-            cx.op_start
+            quantity(f.distance, &cx.units.pv),
+            quantity(c.reach, &cx.units.pv),
+            quantity(cx.op_start, &cx.units.op)
         ),
         Ground::TooSlowAtLimit(miss, fastest) => format!(
             "{}; even with the OP held at its limit the fastest settling is {}",
@@ -473,15 +477,15 @@ fn miss_phrase(miss: Miss, f: &Facts, spec: &Spec) -> String {
         ),
         Miss::NeverSettled => format!("never settled within {}", secs(f.covered_s)),
         Miss::Overshoot => format!(
-            "overshoot {:.1} % (spec {:.1} %)",
-            f.overshoot_pct,
-            spec.max_overshoot_pct.unwrap_or(f64::INFINITY)
+            "overshoot {} (spec {})",
+            quantity(f.overshoot_pct, "%"),
+            quantity(spec.max_overshoot_pct.unwrap_or(f64::INFINITY), "%")
         ),
     }
 }
 
 fn secs(x: f64) -> String {
-    format!("{x:.0} s")
+    crate::units::human_duration(x)
 }
 
 /// Why a window ended, as a phrase.
@@ -807,13 +811,18 @@ mod tests {
 
     #[test]
     fn the_explanation_quotes_the_facts_the_verdict_read() {
+        let units = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
         let cx = Context {
             pv_noise_sd: 0.2,
             op_start: 61.3,
             data_problem: None,
+            units: &units,
         };
         let say = |f: Facts| explain(&decide(&f, &spec()), &f, &spec(), &cx);
-        assert_eq!(say(facts()), "settled in 400 s (spec 600 s)");
+        assert_eq!(say(facts()), "settled in 6.7 min (spec 10.0 min)");
         assert_eq!(
             say(Facts {
                 settling_time_s: None,
@@ -821,7 +830,7 @@ mod tests {
                 window_end: WindowEnd::DataGap,
                 ..facts()
             }),
-            "the window ended (data gap) 450 s after the change, before the spec time of 600 s"
+            "the window ended (data gap) 7.5 min after the change, before the spec time of 10.0 min"
         );
         assert_eq!(
             say(Facts {
@@ -833,8 +842,8 @@ mod tests {
                 }),
                 ..facts()
             }),
-            "never settled within 1800 s; the change of 9.000 exceeds the actuator's reach of \
-             8.000 from OP 61.3"
+            "never settled within 30.0 min; the change of 9.00 °C exceeds the actuator's reach \
+             of 8.00 °C from OP 61.3 %"
         );
         assert_eq!(
             say(Facts {
@@ -843,7 +852,7 @@ mod tests {
                 ..facts()
             }),
             "overshoot 12.5 % (spec 10.0 %), faster than the process model allows (its fastest \
-             possible settling is 700 s): the model is wrong for this change, so it cannot tell \
+             possible settling is 11.7 min): the model is wrong for this change, so it cannot tell \
              tuning from actuator"
         );
         assert_eq!(
@@ -852,16 +861,16 @@ mod tests {
                 capability: with_fastest(700.0),
                 ..facts()
             }),
-            "never settled within 1800 s; even with the OP held at its limit the fastest \
-             settling is 700 s"
+            "never settled within 30.0 min; even with the OP held at its limit the fastest \
+             settling is 11.7 min"
         );
         assert_eq!(
             say(Facts {
                 residual_noise: 0.5,
                 ..facts()
             }),
-            "the settling band (±0.100) lies inside the PV noise (σ ≈ 0.200): the change is too \
-             small to score"
+            "the settling band (±0.100 °C) lies inside the PV noise (σ ≈ 0.200 °C): the change \
+             is too small to score"
         );
     }
 

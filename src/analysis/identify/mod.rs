@@ -72,14 +72,16 @@ pub enum Refusal {
     )]
     PoorFit { r2: f64, min_r2: f64 },
     #[error(
-        "the time constant is longer than the episodes can show (over {limit_s:.0} s); the process \
-         may be integrating, or the episodes are too short"
+        "the time constant is longer than the episodes can show (over {}); the process may be \
+         integrating, or the episodes are too short",
+        crate::units::human_duration(*limit_s)
     )]
     TimeConstantUndetermined { limit_s: f64 },
     #[error(
-        "the time constant is longer than the episodes can show (over {limit_s:.0} s), and an \
-         integrating model explains only {:.0} % of the PV variation (at least {:.0} % needed); \
-         longer episodes or larger setpoint changes are needed",
+        "the time constant is longer than the episodes can show (over {}), and an integrating \
+         model explains only {:.0} % of the PV variation (at least {:.0} % needed); longer \
+         episodes or larger setpoint changes are needed",
+        crate::units::human_duration(*limit_s),
         r2 * 100.0,
         min_r2 * 100.0
     )]
