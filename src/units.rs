@@ -129,6 +129,50 @@ fn with_unit(number: String, unit: &str) -> String {
     }
 }
 
+/// The engineering units people read a loop's numbers in (display only: the analysis works in
+/// whatever units the data comes in).
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+pub struct Units {
+    /// The PV's unit, e.g. `°C`; empty when not known.
+    pub pv: String,
+    /// The OP's unit, `%` unless the loop says otherwise.
+    pub op: String,
+}
+
+impl Default for Units {
+    fn default() -> Self {
+        Units {
+            pv: String::new(),
+            op: Units::DEFAULT_OP.to_owned(),
+        }
+    }
+}
+
+impl Units {
+    /// The OP's unit when none is given: % of output (common practice).
+    pub const DEFAULT_OP: &'static str = "%";
+
+    /// The unit of a process gain, PV units per OP unit: `°C/%`.
+    pub fn process_gain(&self) -> String {
+        ratio(&self.pv, &self.op)
+    }
+
+    /// The unit of a controller gain, OP units per PV unit: `%/°C`.
+    pub fn controller_gain(&self) -> String {
+        ratio(&self.op, &self.pv)
+    }
+}
+
+/// `a/b` for a gain's unit; a missing unit reads "per b" or "a per unit" rather than vanishing.
+fn ratio(a: &str, b: &str) -> String {
+    match (a.is_empty(), b.is_empty()) {
+        (false, false) => format!("{a}/{b}"),
+        (true, false) => format!("per {b}"),
+        (false, true) => format!("{a} per unit"),
+        (true, true) => String::new(),
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -201,5 +245,20 @@ mod tests {
         assert_eq!(signed_quantity(9.0, "°C"), "+9.00 °C");
         assert_eq!(signed_quantity(-0.5, "bar"), "-0.500 bar");
         assert_eq!(quantity(f64::NEG_INFINITY, "%"), "not defined");
+    }
+
+    #[test]
+    fn gain_units_read_as_ratios_and_never_vanish_half() {
+        let u = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
+        assert_eq!(
+            (u.process_gain(), u.controller_gain()),
+            ("°C/%".into(), "%/°C".into())
+        );
+        let bare = Units::default();
+        assert_eq!(bare.process_gain(), "per %");
+        assert_eq!(bare.controller_gain(), "% per unit");
     }
 }

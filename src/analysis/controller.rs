@@ -23,7 +23,8 @@
 //! with e = SP − PV a positive-gain process needs reverse action (the OP rises when the PV falls
 //! below the setpoint), a negative-gain process direct action.
 
-use super::setup::{OpRange, Problem, Setting, Units};
+use super::problem::{Problem, Setting};
+use crate::units::Units;
 use crate::units::{DISPLAY_DIGITS, sig};
 use serde::{Deserialize, Serialize};
 
@@ -184,11 +185,12 @@ impl ControllerSetup {
         }
     }
 
-    /// The spans % of span is read against, when the PV range is given.
-    pub fn spans(&self, op: OpRange) -> Option<Spans> {
+    /// The spans % of span is read against, when the PV range is given; `op_span` is the
+    /// loop's OP range (upper − lower limit).
+    pub fn spans(&self, op_span: f64) -> Option<Spans> {
         self.pv_range.map(|[lo, hi]| Spans {
             pv_span: hi - lo,
-            op_span: op.span(),
+            op_span,
         })
     }
 
@@ -196,7 +198,7 @@ impl ControllerSetup {
     /// they are read with the action a process of gain `process_gain` needs.
     pub fn current(
         &self,
-        op: OpRange,
+        op_span: f64,
         process_gain: f64,
     ) -> Option<Result<Ideal, ConversionError>> {
         let gain = self.gain?;
@@ -209,7 +211,7 @@ impl ControllerSetup {
                 .action
                 .unwrap_or_else(|| Action::for_process_gain(process_gain)),
         };
-        Some(read(&written, self.spans(op)))
+        Some(read(&written, self.spans(op_span)))
     }
 
     /// Every problem with the description's numbers.

@@ -24,6 +24,7 @@ pub mod live;
 pub mod metrics;
 pub mod mode;
 pub mod optimal;
+pub mod problem;
 pub mod quality;
 pub mod regulation;
 pub mod segment;

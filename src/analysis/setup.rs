@@ -5,6 +5,8 @@
 
 use super::controller::ControllerSetup;
 use super::identify;
+pub use super::problem::{Problem, Setting};
+pub use crate::units::Units;
 use serde::{Deserialize, Serialize};
 
 /// A loop's design spec for setpoint changes. The config file's `spec = { ... }` is read into it
@@ -266,50 +268,6 @@ impl Default for AnalysisOptions {
     }
 }
 
-/// The engineering units people read a loop's numbers in (display only: the analysis works in
-/// whatever units the data comes in).
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
-pub struct Units {
-    /// The PV's unit, e.g. `°C`; empty when not known.
-    pub pv: String,
-    /// The OP's unit, `%` unless the loop says otherwise.
-    pub op: String,
-}
-
-impl Default for Units {
-    fn default() -> Self {
-        Units {
-            pv: String::new(),
-            op: Units::DEFAULT_OP.to_owned(),
-        }
-    }
-}
-
-impl Units {
-    /// The OP's unit when none is given: % of output (common practice).
-    pub const DEFAULT_OP: &'static str = "%";
-
-    /// The unit of a process gain, PV units per OP unit: `°C/%`.
-    pub fn process_gain(&self) -> String {
-        ratio(&self.pv, &self.op)
-    }
-
-    /// The unit of a controller gain, OP units per PV unit: `%/°C`.
-    pub fn controller_gain(&self) -> String {
-        ratio(&self.op, &self.pv)
-    }
-}
-
-/// `a/b` for a gain's unit; a missing unit reads "per b" or "a per unit" rather than vanishing.
-fn ratio(a: &str, b: &str) -> String {
-    match (a.is_empty(), b.is_empty()) {
-        (false, false) => format!("{a}/{b}"),
-        (true, false) => format!("per {b}"),
-        (false, true) => format!("{a} per unit"),
-        (true, true) => String::new(),
-    }
-}
-
 /// The actuator's rating at the full OP range (from the lower to the upper OP limit), in a
 /// physical unit of its own: a heater's kW, a valve's Cv, a pump's flow. Capacity advice is
 /// then also given in that unit, assuming the actuator's effect is linear in its OP.
@@ -390,103 +348,6 @@ impl LoopSetup {
     }
 }
 
-/// A setting of a loop that a [`Problem`] can name. Each edge spells it its own way: the config
-/// file by [`Setting::key`], the command line by its flag.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
-pub enum Setting {
-    SettleBandPct,
-    SettleBand,
-    SettleWithinS,
-    MaxOvershootPct,
-    OpMin,
-    OpMax,
-    SpDeadband,
-    SpHoldS,
-    MaxGapS,
-    ExpectedPeriodS,
-    UpgradeRatioLimit,
-    PvRange,
-    ControllerGain,
-    ControllerIntegral,
-    ControllerDerivative,
-    ActuatorRating,
-}
-
-impl Setting {
-    /// The setting's name in the config file (and in JSON).
-    pub fn key(self) -> &'static str {
-        match self {
-            Setting::SettleBandPct => "settle_band_pct",
-            Setting::SettleBand => "settle_band",
-            Setting::SettleWithinS => "settle_within_s",
-            Setting::MaxOvershootPct => "max_overshoot_pct",
-            Setting::OpMin => "op_min",
-            Setting::OpMax => "op_max",
-            Setting::SpDeadband => "sp_deadband",
-            Setting::SpHoldS => "sp_hold_s",
-            Setting::MaxGapS => "max_gap_s",
-            Setting::ExpectedPeriodS => "expected_period_s",
-            Setting::UpgradeRatioLimit => "upgrade_ratio_limit",
-            Setting::PvRange => "pv_range",
-            Setting::ControllerGain => "gain",
-            Setting::ControllerIntegral => "integral",
-            Setting::ControllerDerivative => "derivative",
-            Setting::ActuatorRating => "rating",
-        }
-    }
-}
-
-/// A refused setting: which one, what it must be, and the value given (and, for a pair such as
-/// the OP range, the other end). [`Problem::message`] words it with the edge's spelling.
-#[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("{}", self.message(|s| s.key()))]
-pub struct Problem {
-    pub setting: Setting,
-    pub requirement: &'static str,
-    /// The value given; `None` when the setting is missing.
-    pub got: Option<f64>,
-    pub other: Option<(Setting, f64)>,
-}
-
-impl Problem {
-    pub(crate) fn new(setting: Setting, requirement: &'static str, got: f64) -> Problem {
-        Problem {
-            setting,
-            requirement,
-            got: Some(got),
-            other: None,
-        }
-    }
-
-    /// A setting that is needed but not given.
-    pub(crate) fn missing(setting: Setting, requirement: &'static str) -> Problem {
-        Problem {
-            setting,
-            requirement,
-            got: None,
-            other: None,
-        }
-    }
-
-    /// The problem in words, each setting spelled by `name`: e.g. with flags,
-    /// `--settle-band-pct must be above 0 and below 100 % (got 0)`.
-    pub fn message(&self, name: impl Fn(Setting) -> &'static str) -> String {
-        match self.other {
-            Some((other, value)) => format!(
-                "{} ({}) must be below {} ({})",
-                name(self.setting),
-                self.got.unwrap_or(f64::NAN),
-                name(other),
-                value
-            ),
-            None => match self.got {
-                Some(got) => format!("{} {} (got {got})", name(self.setting), self.requirement),
-                None => format!("{} {}", name(self.setting), self.requirement),
-            },
-        }
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -529,21 +390,6 @@ mod tests {
             let problem = s.validate().expect_err("refused");
             assert_eq!(problem.setting, setting, "{problem}");
         }
-    }
-
-    #[test]
-    fn gain_units_read_as_ratios_and_never_vanish_half() {
-        let u = Units {
-            pv: "°C".into(),
-            op: "%".into(),
-        };
-        assert_eq!(
-            (u.process_gain(), u.controller_gain()),
-            ("°C/%".into(), "%/°C".into())
-        );
-        let bare = Units::default();
-        assert_eq!(bare.process_gain(), "per %");
-        assert_eq!(bare.controller_gain(), "% per unit");
     }
 
     #[test]

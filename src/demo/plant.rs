@@ -23,7 +23,7 @@
 //! | TIC-120 | cook kettle, 12 kW electric heater      | the heater saturates: actuator-limited;  |
 //! |         |                                         | one trial step it can never reach        |
 //! | TIC-130 | hot-water tank, steam valve             | sluggish tuning with headroom to spare   |
-//! | TIC-140 | product cooler, chilled-glycol valve    | reverse acting (more OP, lower PV)       |
+//! | TIC-140 | product cooler, chilled-glycol valve    | negative-gain process: more OP, lower PV|
 //! | LIC-150 | buffer tank level, inlet valve          | its level transmitter drops out one night|
 //!
 //! Physical values are for a pilot line of about 6 L/min (a third of a tonne an hour). Where a
@@ -296,7 +296,7 @@ fn product_cooler() -> LoopDef {
     };
     LoopDef {
         tag: "TIC-140",
-        description: "Product cooler E-140 outlet temperature; chilled-glycol valve TV-140 (reverse acting)",
+        description: "Product cooler E-140 outlet temperature; chilled-glycol valve TV-140 (negative-gain process)",
         pv_unit: "°C",
         area: "cool",
         link: Link::Mqtt,

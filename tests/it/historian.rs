@@ -19,11 +19,14 @@ fn analyze_json(name: &str, extra: &[&str]) -> Value {
 }
 
 /// `analyze FILE` (the table) with the spec and `extra` flags.
+/// The text output of `analyze FILE` with `extra` flags, its lines joined (the text wraps at
+/// the terminal's width).
 fn analyze_text(name: &str, extra: &[&str]) -> String {
     let file = data(name);
     let mut args = vec!["analyze", &file, "--settle-within-s", "900"];
     args.extend_from_slice(extra);
-    String::from_utf8(run_headroom_ok(&args).stdout).unwrap()
+    let text = String::from_utf8(run_headroom_ok(&args).stdout).unwrap();
+    text.split_whitespace().collect::<Vec<_>>().join(" ")
 }
 
 /// The exit code and error text of `analyze FILE` with `extra` flags.

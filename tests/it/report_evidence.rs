@@ -110,7 +110,11 @@ async fn the_summary_and_episodes_json_carry_versions_and_the_settings_hash() {
     assert_ne!(h101, h102);
     assert_ne!(h101, all);
     for (name, text) in [("md", &md), ("html", &html)] {
-        let footer = format!("schema_version 2 · headroom {}", env!("CARGO_PKG_VERSION"));
+        let footer = format!(
+            "schema_version {} · headroom {}",
+            headroom::summary_format::SCHEMA_VERSION,
+            env!("CARGO_PKG_VERSION")
+        );
         assert!(text.contains(&footer), "{name} lacks {footer}");
         assert!(text.contains(all), "{name} lacks the settings hash");
     }
@@ -137,7 +141,10 @@ async fn the_summary_and_episodes_json_carry_versions_and_the_settings_hash() {
     let listed = episodes(&f.config);
     assert_eq!(listed.as_array().unwrap().len(), 7, "{listed:#}");
     for e in listed.as_array().unwrap() {
-        assert_eq!(e["schema_version"], 2);
+        assert_eq!(
+            e["schema_version"],
+            headroom::summary_format::SCHEMA_VERSION
+        );
         assert_eq!(e["version"], env!("CARGO_PKG_VERSION"));
         assert_eq!(e["settings_hash"], h101);
     }
@@ -153,7 +160,10 @@ async fn the_summary_and_episodes_json_carry_versions_and_the_settings_hash() {
     let (_, bare, _) = run_headroom_text(&["episodes", "--db", f.db.to_str().unwrap(), "--json"]);
     let bare: Value = serde_json::from_str(&bare).unwrap();
     assert_eq!(bare[0]["settings_hash"], Value::Null);
-    assert_eq!(bare[0]["schema_version"], 2);
+    assert_eq!(
+        bare[0]["schema_version"],
+        headroom::summary_format::SCHEMA_VERSION
+    );
 }
 
 #[tokio::test]

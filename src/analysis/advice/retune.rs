@@ -57,13 +57,20 @@ pub struct Current {
     pub verified: Verified,
 }
 
-/// The advice for the typical tuning-limited change; `Err` with the reason when no setting is
-/// safe at all.
+/// No PI setting on the model is both safe (Ms ≤ 2) and no slower than today.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{reason}")]
+pub(super) struct NoSafeSetting {
+    reason: String,
+}
+
+/// The advice for the typical tuning-limited change; an error with the reason when no setting
+/// is safe at all.
 pub(super) fn advise(
     episodes: &[EpisodeResult],
     model: &Model,
     b: &Basis,
-) -> Result<Retune, String> {
+) -> Result<Retune, NoSafeSetting> {
     let setup = b.setup;
     let (step, u0) = super::typical(episodes, |v| v == Verdict::TuningLimited);
     let settled: Vec<f64> = episodes
@@ -83,9 +90,11 @@ pub(super) fn advise(
     };
     let suggestion = tuning::retune(model, &target, b.sample_s);
     let Some(chosen) = suggestion.settings() else {
-        return Err(match suggestion {
-            Suggestion::NeedsMs { reason, .. } | Suggestion::NoPi { reason, .. } => reason,
-            Suggestion::Meets { .. } => unreachable!("a suggestion that meets has settings"),
+        return Err(NoSafeSetting {
+            reason: match suggestion {
+                Suggestion::NeedsMs { reason, .. } | Suggestion::NoPi { reason, .. } => reason,
+                Suggestion::Meets { .. } => unreachable!("a suggestion that meets has settings"),
+            },
         });
     };
     let (outcome, reason) = match &suggestion {
@@ -95,13 +104,13 @@ pub(super) fn advise(
     };
     let described = setup.controller;
     let convention = described.map_or(Convention::CANONICAL, |c| c.convention());
-    let spans = described.and_then(|c| c.spans(setup.op));
+    let spans = described.and_then(|c| c.spans(setup.op.span()));
     let (settings, settings_problem) = match controller::write(chosen.ideal, convention, spans) {
         Ok(w) => (Some(w), None),
         Err(e) => (None, Some(e.to_string())),
     };
     let current = described
-        .and_then(|c| c.current(setup.op, model.gain))
+        .and_then(|c| c.current(setup.op.span(), model.gain))
         .and_then(Result::ok)
         .and_then(|ideal| {
             let settings = controller::write(ideal, convention, spans).ok()?;

@@ -10,7 +10,7 @@ use super::super::optimal::Plant;
 /// A first-order-plus-dead-time model.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Fopdt {
-    /// Steady-state gain K, PV units per OP unit (negative for reverse-acting processes).
+    /// Steady-state gain K, PV units per OP unit (negative for a negative-gain process, e.g. cooling).
     pub gain: f64,
     /// Time constant τ, seconds.
     pub time_constant_s: f64,

@@ -17,7 +17,7 @@ pub use dynamics::{Dynamics, IntegratingProcess, TwoDirectionProcess, ValveProce
 /// A process: `PV = bias + x`, where `x` follows `K·u(t − θ)` through one or two first-order lags.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Process {
-    /// Steady-state gain K, PV units per OP unit. Negative for reverse-acting processes (cooling).
+    /// Steady-state gain K, PV units per OP unit. Negative for a negative-gain process (cooling).
     pub gain: f64,
     /// Dominant time constant τ₁ in seconds (> 0).
     pub time_constant_s: f64,
