@@ -155,6 +155,66 @@ pub fn config_text(defs: &[LoopDef], mqtt_port: u16, modbus_port: u16, speed: f6
         if let Some(o) = d.max_overshoot_pct {
             let _ = writeln!(t, "max_overshoot_pct = {o:?}");
         }
+        t.push_str(&controller_toml(d));
+    }
+    t
+}
+
+/// A demo loop's controller as its config describes it, with today's settings: the temperature
+/// loops' controllers take a proportional band and minutes in the series form, read on a
+/// 0–150 °C transmitter range (a choice of this invented plant); the others take the canonical
+/// convention. The kettle's heater is rated 12 kW.
+fn controller_toml(d: &LoopDef) -> String {
+    use crate::analysis::controller::{self, Convention, Form, GainUnit, Ideal, IntegralUnit};
+    let pi = &d.sim.controller;
+    let temperature = d.pv_unit == "°C";
+    let pv_range = [0.0, 150.0];
+    let convention = if temperature {
+        Convention {
+            form: Form::Series,
+            gain: GainUnit::ProportionalBand,
+            integral: IntegralUnit::Minutes,
+            ..Convention::CANONICAL
+        }
+    } else {
+        Convention::CANONICAL
+    };
+    let ideal = Ideal {
+        gain: pi.gain,
+        integral_time_s: pi.integral_time_s,
+        derivative_time_s: 0.0,
+    };
+    let spans = controller::Spans {
+        pv_span: pv_range[1] - pv_range[0],
+        op_span: pi.op_max - pi.op_min,
+    };
+    let Ok(w) = controller::write(ideal, convention, Some(spans)) else {
+        return String::new();
+    };
+    // The words as the config reads them: the serde spelling of each choice.
+    let word = |v: serde_json::Result<String>| v.unwrap_or_default();
+    let mut t = format!(
+        "\n[loops.{}.controller]\nform = {}\ngain_unit = {}\nintegral_unit = {}\naction = {}\n\
+         gain = {:?}\n",
+        d.tag,
+        word(serde_json::to_string(&convention.form)),
+        word(serde_json::to_string(&convention.gain)),
+        word(serde_json::to_string(&convention.integral)),
+        word(serde_json::to_string(&w.action)),
+        w.gain
+    );
+    if let Some(i) = w.integral {
+        let _ = writeln!(t, "integral = {i:?}");
+    }
+    if temperature {
+        let _ = writeln!(t, "pv_range = [{:?}, {:?}]", pv_range[0], pv_range[1]);
+    }
+    if d.tag == "TIC-120" {
+        let _ = write!(
+            t,
+            "\n[loops.{}.actuator]\nrating = 12.0\nunit = \"kW\"\n",
+            d.tag
+        );
     }
     t
 }

@@ -29,6 +29,8 @@ pub struct LoopSummary {
     pub counts: VerdictCounts,
     pub model: Option<Model>,
     pub recommendation: Recommendation,
+    /// The units the loop's numbers are read in.
+    pub units: crate::analysis::Units,
     /// Alerts raised for the loop: (kind, times raised).
     pub alerts: Vec<(String, u64)>,
 }
@@ -101,6 +103,7 @@ pub async fn gather(
             unreadable,
             model,
             recommendation,
+            units: setup.units.clone(),
             alerts: alerts_by_kind(&alerts, d.tag),
         });
     }
@@ -181,7 +184,8 @@ fn misses(c: &VerdictCounts) -> String {
     }
 }
 
-/// Writes `text` wrapped at `width` columns, every line after the first indented by `indent`.
+/// Writes `text` wrapped at `width` columns after `first`, every line after the first indented
+/// by `indent` spaces.
 fn wrapped(
     out: &mut dyn Write,
     first: &str,
@@ -189,23 +193,14 @@ fn wrapped(
     indent: usize,
     width: usize,
 ) -> std::io::Result<()> {
-    let mut line = first.to_string();
-    let mut col = line.chars().count();
-    for word in text.split_whitespace() {
-        let w = word.chars().count();
-        if col > indent && col + 1 + w > width {
-            writeln!(out, "{line}")?;
-            line = " ".repeat(indent);
-            col = indent;
-        }
-        if col > indent {
-            line.push(' ');
-            col += 1;
-        }
-        line.push_str(word);
-        col += w;
+    let rest = " ".repeat(indent);
+    let options = textwrap::Options::new(width)
+        .initial_indent(first)
+        .subsequent_indent(&rest);
+    for line in textwrap::wrap(text, options) {
+        writeln!(out, "{}", line.trim_end())?;
     }
-    writeln!(out, "{line}")
+    Ok(())
 }
 
 /// One row per loop: changes, share met, typical settling against the spec, misses, advice.
@@ -293,6 +288,9 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
             11,
             100,
         )?;
+        for line in crate::analysis::advice::settings_lines(&l.recommendation, &l.units) {
+            wrapped(out, "           ", &line, 11, 100)?;
+        }
     }
     // Every recommendation above carries the same caution; it is shown once, right below them.
     wrapped(out, "  ", CAUTION, 2, 100)?;
@@ -314,7 +312,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     writeln!(out)?;
     wrapped(
         out,
-        "Alerts raised:",
+        "Alerts raised: ",
         &if raised.is_empty() {
             "none".to_string()
         } else {

@@ -38,6 +38,15 @@ pub struct Period {
 }
 
 impl Period {
+    /// How the period's start and end read at the ends of a run of periods: the week itself for
+    /// an ISO week (`2026-W41`), else its start and end times.
+    pub fn ends(&self) -> (String, String) {
+        match self.week {
+            Some(_) => (self.label.clone(), self.label.clone()),
+            None => (short(&self.from), short(&self.to)),
+        }
+    }
+
     /// The ISO week `year`-W`week` in `tz`.
     pub fn iso_week(year: i16, week: i8, tz: &TimeZone) -> Result<Period, PeriodError> {
         let given = format!("{year:04}-W{week:02}");

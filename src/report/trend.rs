@@ -80,6 +80,9 @@ pub struct WeekStats {
 #[derive(Debug, Clone, Serialize)]
 pub struct TrendWeek {
     pub label: String,
+    /// How the week reads at the start and the end of a run of weeks ([`Period::ends`]).
+    #[serde(skip)]
+    pub ends: (String, String),
     pub changes: usize,
     pub judged: usize,
     pub met_share: Option<f64>,
@@ -110,11 +113,14 @@ pub(super) fn rows(weeks: &[TrendWeek]) -> Vec<TrendRow> {
     let flush = |quiet: &mut Vec<&TrendWeek>, out: &mut Vec<TrendRow>| {
         let words = match quiet.as_slice() {
             [] => return,
-            [one] => format!("no setpoint changes in {}", one.label),
+            [one] if one.ends.0 == one.ends.1 => {
+                format!("no setpoint changes in {}", one.label)
+            }
+            [one] => format!("no setpoint changes from {} to {}", one.ends.0, one.ends.1),
             [first, .., last] => format!(
                 "no setpoint changes from {} to {} ({} weeks)",
-                first.label,
-                last.label,
+                first.ends.0,
+                last.ends.1,
                 quiet.len()
             ),
         };
@@ -202,6 +208,7 @@ pub(super) fn trend(
             let m = model_at(models, p.to_ms());
             TrendWeek {
                 label: p.label.clone(),
+                ends: p.ends(),
                 changes: s.changes,
                 judged: s.judged,
                 met_share: s.met_share,
@@ -220,8 +227,10 @@ mod tests {
     use super::*;
 
     fn week(label: &str, changes: usize) -> TrendWeek {
+        let ends = (label.to_string(), label.to_string());
         TrendWeek {
             label: label.into(),
+            ends,
             changes,
             judged: changes,
             met_share: None,
@@ -260,6 +269,22 @@ mod tests {
             ]
         );
         assert!(rows(&[]).is_empty());
+        // Free ranges read from the first one's start to the last one's end.
+        let range = |from: &str, to: &str| TrendWeek {
+            label: format!("{from} to {to}"),
+            ends: (from.into(), to.into()),
+            ..week("", 0)
+        };
+        let lines: Vec<String> = rows(&[range("10-01", "10-08"), range("10-08", "10-15")])
+            .into_iter()
+            .filter_map(|r| r.quiet)
+            .collect();
+        assert_eq!(lines, ["no setpoint changes from 10-01 to 10-15 (2 weeks)"]);
+        let one: Vec<String> = rows(&[range("10-01", "10-08")])
+            .into_iter()
+            .filter_map(|r| r.quiet)
+            .collect();
+        assert_eq!(one, ["no setpoint changes from 10-01 to 10-08"]);
     }
 
     #[test]
