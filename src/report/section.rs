@@ -9,7 +9,7 @@ use super::trend::{self, Episode, TrendRow, TrendWeek, WeekStats};
 use crate::analysis::advice::{Action, Recommendation, recommend};
 use crate::analysis::{EpisodeResult, Fopdt, LoopSetup, OpRange, Spec, Verdict};
 use crate::store::{EpisodeRow, ModelRow, SeriesCoverage};
-use crate::units::{human_duration, quantity, signed_quantity};
+use crate::units::human_duration;
 use jiff::tz::TimeZone;
 use serde::Serialize;
 
@@ -492,71 +492,35 @@ impl Units {
 
 /// The recommendation's numbers with labels and units, for the HTML and Markdown tables.
 fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> Vec<Figure> {
-    let mut out: Vec<(&str, String)> = Vec::new();
+    use crate::analysis::advice::{actuator_figures, retune_figures};
     let people = crate::analysis::Units {
         pv: u.pv.clone(),
         op: u.op.clone(),
     };
-    let retune: Vec<(&str, String)> = r
+    let mut out: Vec<(String, String)> = r
         .retune
         .as_ref()
-        .map(|rt| crate::analysis::advice::retune_figures(rt, &people))
-        .unwrap_or_default();
-    out.extend(retune);
-    if let Some(a) = &r.actuator {
-        out.extend([
-            (
-                "Typical change (held back by the actuator)",
-                format!(
-                    "{} from OP {}",
-                    signed_quantity(a.typical_step, &u.pv),
-                    quantity(a.typical_op_start, &u.op)
-                ),
-            ),
-            (
-                "Fastest possible settling t*",
-                a.fastest_settling_time_s.map_or(
-                    "none: unreachable with today's OP limit".into(),
-                    human_duration,
-                ),
-            ),
-            (
-                "Settling achievable for the typical change (SIMC PI, τc = θ)",
-                a.practical_settling_time_s
-                    .map_or("not known".into(), human_duration),
-            ),
-            (
-                "Largest change that meets today's spec",
-                a.largest_compliant_step
-                    .map_or("none".into(), |d| quantity(d, &u.pv)),
-            ),
-            (
-                "OP limit needed for the typical change",
-                a.required_op_limit.map_or(
-                    "no actuator can: the spec time is within the dead time".into(),
-                    |l| quantity(l, &u.op),
-                ),
-            ),
-            (
-                "Capacity needed, as a ratio of today's",
-                a.capacity_ratio.map_or("not known".into(), |k| {
-                    format!(
-                        "{} times",
-                        crate::units::sig(k, crate::units::DISPLAY_DIGITS)
-                    )
-                }),
-            ),
-        ]);
-    }
+        .map(|rt| retune_figures(rt, &people))
+        .unwrap_or_default()
+        .into_iter()
+        .map(|(label, value)| (label.to_string(), value))
+        .collect();
+    out.extend(
+        r.per_direction
+            .iter()
+            .flat_map(|e| actuator_figures(e, &people)),
+    );
     if let Some(s) = setup.map(|s| s.spec.settle_within_s)
         && !out.is_empty()
     {
-        out.push(("Spec settling time", human_duration(s)));
+        out.push(("Spec settling time".to_string(), human_duration(s)));
     }
+    out.extend(
+        r.cautions
+            .iter()
+            .map(|c| ("Check before acting".to_string(), c.clone())),
+    );
     out.into_iter()
-        .map(|(label, value)| Figure {
-            label: label.to_string(),
-            value,
-        })
+        .map(|(label, value)| Figure { label, value })
         .collect()
 }

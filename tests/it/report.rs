@@ -529,7 +529,7 @@ async fn the_summary_of_a_seeded_week_has_the_expected_numbers_in_every_format()
             "25.0 %",
             "3.50 %",
             &quantity(limit, "%"),
-            &format!("{} times", headroom::units::sig(limit / 100.0, 3)),
+            &format!("{}×", headroom::units::sig(limit / 100.0, 3)),
             &quantity(largest, "°C"),
             &quantity(pi["ideal"]["gain"].as_f64().unwrap(), "%/°C"),
             "+10.0 %",

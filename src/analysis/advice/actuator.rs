@@ -277,6 +277,60 @@ fn action_words(action: super::Action, e: &ActuatorEvidence, b: &Basis) -> Strin
     )
 }
 
+/// One direction's figures with labels, for tables (the weekly summary); labels name the
+/// direction (`Rises: fastest possible settling t*`).
+pub fn figures(e: &ActuatorEvidence, units: &crate::analysis::Units) -> Vec<(String, String)> {
+    let dir = capitalised(e.direction.changes());
+    let mut out = vec![
+        (
+            format!("{dir}: typical change held back by the actuator"),
+            format!(
+                "{} from OP {} ({})",
+                signed_quantity(e.typical_step, &units.pv),
+                quantity(e.typical_op_start, &units.op),
+                count(e.misses, "miss", "misses")
+            ),
+        ),
+        (
+            format!("{dir}: fastest possible settling t*"),
+            e.fastest_settling_time_s.map_or(
+                "none: unreachable with today's OP limit".to_string(),
+                human_duration,
+            ),
+        ),
+        (
+            format!("{dir}: settling to ask of typical changes"),
+            e.achievable_settling_time_s
+                .map_or("not known".to_string(), human_duration),
+        ),
+        (
+            format!("{dir}: largest change that meets today's spec"),
+            e.largest_compliant_step
+                .map_or("none".to_string(), |d| quantity(d, &units.pv)),
+        ),
+        (
+            format!("{dir}: OP limit needed for the typical change"),
+            e.required_op_limit.map_or(
+                "no actuator can: the spec time is within the dead time".to_string(),
+                |l| quantity(l, &units.op),
+            ),
+        ),
+    ];
+    if let Some(k) = e.capacity_ratio {
+        out.push((
+            format!("{dir}: capacity needed, as a ratio of today's"),
+            format!("{}×", crate::units::sig(k, crate::units::DISPLAY_DIGITS)),
+        ));
+    }
+    if let (Some(r), Some(unit)) = (e.required_rating, &e.rating_unit) {
+        out.push((
+            format!("{dir}: capacity needed in the actuator's rating"),
+            quantity(r, unit),
+        ));
+    }
+    out
+}
+
 /// The cautions capacity advice needs: limits that may be clamps, and linear sizing.
 pub(super) fn cautions(e: &ActuatorEvidence, b: &Basis) -> Vec<String> {
     let op = b.setup.op;

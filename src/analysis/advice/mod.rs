@@ -12,7 +12,7 @@
 mod actuator;
 mod retune;
 
-pub use actuator::{ActuatorEvidence, Direction, actuator_action};
+pub use actuator::{ActuatorEvidence, Direction, actuator_action, figures as actuator_figures};
 pub use retune::{Current, Outcome as RetuneOutcome, Retune, figures as retune_figures};
 
 use super::CAUTION;
