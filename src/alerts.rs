@@ -41,7 +41,7 @@ use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION};
 use crate::units::{human_duration, ms_to_s, rfc3339, s_to_ms};
 use serde_json::{Map, Value, json};
 
-/// What kind of condition an alert is about: one open alert per loop and kind.
+/// What kind of condition an alert is about.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum AlertKind {
     /// A setpoint change missed its spec for a known reason (a verdict that

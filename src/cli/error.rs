@@ -104,7 +104,7 @@ pub enum Usage {
     SeveralFormatsNeedOut,
     #[error("{} is there but is not a folder", .0.display())]
     NotAFolder(PathBuf),
-    #[error("no open alert with id {0}")]
+    #[error("no alert waiting for acknowledgement with id {0}")]
     NoOpenAlert(i64),
     #[error("no alert with id {0} (headroom alerts --all lists every alert)")]
     NoAlert(i64),

@@ -53,7 +53,7 @@ pub async fn loops(args: &StoreArgs, out: &mut dyn Write) -> Result<(), Failure>
             )?,
             None => writeln!(out, "  model:        none yet")?,
         }
-        writeln!(out, "  open alerts:  {}", r.open_alerts)?;
+        writeln!(out, "  alerts not acknowledged: {}", r.open_alerts)?;
     }
     Ok(())
 }

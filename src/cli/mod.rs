@@ -49,7 +49,7 @@ pub enum Command {
     Demo(demo::DemoArgs),
     /// Validate a configuration file and print what it would watch.
     CheckConfig(check_config::CheckConfigArgs),
-    /// Each loop's status: last samples, last episode, model, open alerts.
+    /// Each loop's status: last samples, last episode, model, alerts not yet acknowledged.
     Loops(store::StoreArgs),
     /// Scored setpoint changes from the store.
     Episodes(episodes::EpisodesArgs),

@@ -87,7 +87,7 @@ pub struct PlantSummary {
     pub tiles: Vec<Tile>,
     /// Loops by need for attention, most urgent first.
     pub ranking: Vec<RankRow>,
-    /// Open alerts by kind.
+    /// Alerts not yet acknowledged, by kind.
     pub open_alerts: Vec<AlertCount>,
     pub data_quality: Vec<String>,
 }
@@ -247,7 +247,7 @@ fn tiles(
     ]
 }
 
-/// Open alerts by kind: raised before the period ended and still open.
+/// Alerts not yet acknowledged, by kind: raised before the period ended and not acknowledged.
 fn open_alerts(alerts: &[AlertRow], period: &Period) -> Vec<AlertCount> {
     let mut by_kind: BTreeMap<String, (usize, Vec<String>)> = BTreeMap::new();
     for a in alerts

@@ -77,7 +77,7 @@ async fn query_commands_show_and_acknowledge_what_the_store_holds() {
     let (code, out, err) = run(&["loops", "--db", db_s]);
     assert_eq!(code, 0, "{err}");
     assert!(
-        out.contains("TIC-9") && out.contains("open alerts:  1"),
+        out.contains("TIC-9") && out.contains("alerts not acknowledged: 1"),
         "{out}"
     );
     assert!(
