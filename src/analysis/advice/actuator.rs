@@ -336,7 +336,7 @@ pub(super) fn cautions(e: &ActuatorEvidence, b: &Basis) -> Vec<String> {
     let op = b.setup.op;
     let u = &b.setup.units;
     let mut out = vec![format!(
-        "The OP limits {}–{} are read as the actuator's physical ends. If a limit is a clamp set \
+        "The OP limits {} and {} are read as the actuator's physical ends. If a limit is a clamp set \
          in the controller or the control system, raising it may give the capacity without new \
          hardware; check before sizing.",
         quantity(op.min, &u.op),
