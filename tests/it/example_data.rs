@@ -76,11 +76,10 @@ fn the_example_export_is_what_the_generator_makes() {
     );
 }
 
-#[test]
-fn the_example_shows_both_tuning_and_actuator_limits() {
-    let root = env!("CARGO_MANIFEST_DIR");
+/// `headroom analyze` of the example with the example config's loop TIC-101, as JSON.
+fn analyze_example() -> serde_json::Value {
     let out = std::process::Command::new(headroom_bin())
-        .current_dir(root)
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
         .args([
             "analyze",
             FILE,
@@ -97,7 +96,12 @@ fn the_example_shows_both_tuning_and_actuator_limits() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    serde_json::from_slice(&out.stdout).unwrap()
+}
+
+#[test]
+fn the_example_shows_both_tuning_and_actuator_limits() {
+    let v = analyze_example();
     let count = |k: &str| v["counts"][k].as_u64().unwrap();
     assert_eq!(v["episodes"].as_array().unwrap().len(), 12);
     assert!(count("tuning_limited") >= 2, "{}", v["counts"]);
@@ -122,28 +126,7 @@ fn the_example_shows_both_tuning_and_actuator_limits() {
 /// Kc 3.0 %/°C, Ti 600 s written that way).
 #[test]
 fn the_example_advice_is_typed_in_the_controllers_own_form_and_units() {
-    let root = env!("CARGO_MANIFEST_DIR");
-    let out = std::process::Command::new(headroom_bin())
-        .current_dir(root)
-        .args([
-            "analyze",
-            FILE,
-            "--config",
-            "config/headroom.toml",
-            "--loop",
-            "TIC-101",
-            "--settle-within-s",
-            "900",
-            "--json",
-        ])
-        .output()
-        .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let v = analyze_example();
     let r = &v["recommendation"];
     assert_eq!(r["action"], "retune", "{r}");
     let rt = &r["retune"];
