@@ -161,12 +161,38 @@ fn write_loop(o: &mut String, tag: &str, l: &LoopConfig) -> Result {
     };
     write!(
         o,
-        "    OP {} to {} {}; spec: PV{unit} within ±{} % of each setpoint change by {} s",
-        l.op_min, l.op_max, l.op_unit, l.spec.settle_band_pct, l.spec.settle_within_s
+        "    OP {} to {} {}; spec: PV{unit} within {} by {}",
+        l.op_min,
+        l.op_max,
+        l.op_unit,
+        l.spec.band_words(&l.pv_unit),
+        crate::units::human_duration(l.spec.settle_within_s)
     )?;
     match l.spec.max_overshoot_pct {
         Some(p) => writeln!(o, ", overshoot at most {p} %")?,
         None => writeln!(o, ", no overshoot limit")?,
+    }
+    if let Some(c) = &l.controller {
+        let word = |v: serde_json::Result<String>| v.unwrap_or_default().replace('"', "");
+        write!(
+            o,
+            "    controller: {} form, gain as {}, integral in {}",
+            word(serde_json::to_string(&c.form)),
+            word(serde_json::to_string(&c.gain_unit)),
+            word(serde_json::to_string(&c.integral_unit))
+        )?;
+        match (c.gain, c.integral) {
+            (Some(g), Some(i)) => writeln!(o, "; today gain {g}, integral {i}")?,
+            (Some(g), None) => writeln!(o, "; today gain {g}, no integral action")?,
+            _ => writeln!(o)?,
+        }
+    }
+    if let Some(a) = &l.actuator {
+        writeln!(
+            o,
+            "    actuator rated {} {} over its OP range",
+            a.rating, a.unit
+        )?;
     }
     if !l.is_watched() {
         return writeln!(
@@ -284,7 +310,7 @@ mod tests {
             "FIC-201",
             "plant/r1/TIC-101/pv",
             "json, value \"value\", time \"ts\"",
-            "by 900 s",
+            "by 15.0 min",
             "AUTO, CAS (any case) or one of 1",
             "QoS 1",
             "max_queued_messages 0",
