@@ -68,7 +68,19 @@ pub async fn alerts(args: &AlertsArgs, out: &mut dyn Write) -> Result<(), Failur
     let rows = store.alerts(!args.all).await?;
     store.close().await;
     if args.store.json {
-        let listed: Vec<serde_json::Value> = rows.iter().map(crate::alerts::listing).collect();
+        // With `--config`, each alert also carries the hash of its loop's settings there.
+        let facts = super::store::loop_facts(&args.store)?;
+        let listed: Vec<serde_json::Value> = rows
+            .iter()
+            .map(|row| {
+                let mut v = crate::alerts::listing(row);
+                v["settings_hash"] = facts
+                    .get(&row.loop_tag)
+                    .and_then(|f| f.settings_hash.clone())
+                    .into();
+                v
+            })
+            .collect();
         return write_json(&listed, out);
     }
     if rows.is_empty() {

@@ -3,12 +3,10 @@
 use super::Failure;
 use super::store::{StoreArgs, open_read_only, write_json};
 use super::time::parse_time;
-use crate::config::Config;
 use crate::report::evidence::change_words;
-use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION, settings_hash};
+use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION};
 use crate::units::{human_duration, quantity, rfc3339};
 use clap::Args;
-use std::collections::BTreeMap;
 use std::io::Write;
 
 #[derive(Debug, Args)]
@@ -26,36 +24,11 @@ pub struct EpisodesArgs {
     pub until: Option<String>,
 }
 
-/// What the configuration says about a loop, when `--config` gave one: its unit and the hash of
-/// its settings.
-struct LoopFacts {
-    pv_unit: String,
-    settings_hash: Option<String>,
-}
-
-fn loop_facts(args: &StoreArgs) -> Result<BTreeMap<String, LoopFacts>, Failure> {
-    let Some(path) = &args.config else {
-        return Ok(BTreeMap::new());
-    };
-    let config = Config::load(path)?;
-    Ok(config
-        .loops
-        .iter()
-        .map(|(tag, l)| {
-            let facts = LoopFacts {
-                pv_unit: l.pv_unit.clone(),
-                settings_hash: l.setup(tag).ok().map(|s| settings_hash([&s])),
-            };
-            (tag.clone(), facts)
-        })
-        .collect())
-}
-
 pub async fn episodes(args: &EpisodesArgs, out: &mut dyn Write) -> Result<(), Failure> {
     let time = |flag, given: &Option<String>| given.as_deref().map(|s| parse_time(flag, s));
     let since = time("--since", &args.since).transpose()?;
     let until = time("--until", &args.until).transpose()?;
-    let facts = loop_facts(&args.store)?;
+    let facts = super::store::loop_facts(&args.store)?;
     let store = open_read_only(&args.store).await?;
     let mut rows = store.episodes(args.loop_tag.as_deref(), since).await?;
     rows.retain(|r| until.is_none_or(|u| r.start_ms < u));

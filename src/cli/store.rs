@@ -5,6 +5,7 @@ use super::{Failure, Usage};
 use crate::config::Config;
 use crate::store::Store;
 use clap::Args;
+use std::collections::BTreeMap;
 use std::io::Write;
 use std::path::PathBuf;
 
@@ -44,4 +45,32 @@ pub fn write_json(value: &impl serde::Serialize, out: &mut dyn Write) -> Result<
     serde_json::to_writer_pretty(&mut *out, value)?;
     writeln!(out)?;
     Ok(())
+}
+
+/// What the configuration says about a loop, when `--config` gave one: its unit and the hash of
+/// its settings.
+pub(super) struct LoopFacts {
+    pub pv_unit: String,
+    pub settings_hash: Option<String>,
+}
+
+pub(super) fn loop_facts(args: &StoreArgs) -> Result<BTreeMap<String, LoopFacts>, Failure> {
+    let Some(path) = &args.config else {
+        return Ok(BTreeMap::new());
+    };
+    let config = Config::load(path)?;
+    Ok(config
+        .loops
+        .iter()
+        .map(|(tag, l)| {
+            let facts = LoopFacts {
+                pv_unit: l.pv_unit.clone(),
+                settings_hash: l
+                    .setup(tag)
+                    .ok()
+                    .map(|s| crate::summary_format::settings_hash([&s])),
+            };
+            (tag.clone(), facts)
+        })
+        .collect())
 }

@@ -164,6 +164,26 @@ async fn the_summary_and_episodes_json_carry_versions_and_the_settings_hash() {
         bare[0]["schema_version"],
         headroom::summary_format::SCHEMA_VERSION
     );
+    // `alerts --json` with the configuration: each alert carries its loop's hash too.
+    let (code, out, err) = run_headroom_text(&[
+        "alerts",
+        "--config",
+        f.config.to_str().unwrap(),
+        "--all",
+        "--json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let alerts: Value = serde_json::from_str(&out).unwrap();
+    let alerts = alerts.as_array().unwrap();
+    assert!(!alerts.is_empty(), "the seeded store has alerts");
+    for a in alerts {
+        let want = loop_json(&json, a["loop_tag"].as_str().unwrap())["settings_hash"].clone();
+        assert_eq!(a["settings_hash"], want, "{a}");
+        assert_eq!(
+            a["schema_version"],
+            headroom::summary_format::SCHEMA_VERSION
+        );
+    }
 }
 
 #[tokio::test]
