@@ -34,15 +34,10 @@ pub struct LoopFlags {
     /// How it takes its derivative action: seconds or minutes.
     #[arg(long, value_name = "UNIT", value_parser = word::<DerivativeUnit>)]
     pub derivative_unit: Option<DerivativeUnit>,
-    /// The PV's measuring range LOW,HIGH (needed for % of span and a proportional band).
-    #[arg(
-        long,
-        value_name = "LOW,HIGH",
-        value_delimiter = ',',
-        num_args = 2,
-        allow_negative_numbers = true
-    )]
-    pub pv_range: Option<Vec<f64>>,
+    /// The PV's measuring range LOW,HIGH, e.g. 0,150 (needed for % of span and a proportional
+    /// band).
+    #[arg(long, value_name = "LOW,HIGH", value_parser = range, allow_hyphen_values = true)]
+    pub pv_range: Option<[f64; 2]>,
     /// Today's action: direct or reverse.
     #[arg(long, value_name = "ACTION", value_parser = word::<Action>)]
     pub current_action: Option<Action>,
@@ -62,6 +57,18 @@ pub struct LoopFlags {
     /// The unit of --actuator-rating, e.g. kW, Cv, m3/h.
     #[arg(long, value_name = "UNIT", requires = "actuator_rating")]
     pub actuator_unit: Option<String>,
+}
+
+/// A range that is not two numbers separated by a comma.
+#[derive(Debug, thiserror::Error)]
+#[error("give two numbers LOW,HIGH, e.g. 0,150")]
+struct BadRange;
+
+/// `LOW,HIGH` as two numbers (whether low is below high is the setup's check).
+fn range(text: &str) -> Result<[f64; 2], BadRange> {
+    let (lo, hi) = text.split_once(',').ok_or(BadRange)?;
+    let number = |s: &str| s.trim().parse::<f64>().map_err(|_| BadRange);
+    Ok([number(lo)?, number(hi)?])
 }
 
 /// A word in the config file's spelling (`proportional_band`), as a flag's value.
@@ -97,8 +104,8 @@ impl LoopFlags {
         set(&mut c.gain_unit, self.gain_unit);
         set(&mut c.integral_unit, self.integral_unit);
         set(&mut c.derivative_unit, self.derivative_unit);
-        if let Some(&[lo, hi]) = self.pv_range.as_deref() {
-            c.pv_range = Some([lo, hi]);
+        if self.pv_range.is_some() {
+            c.pv_range = self.pv_range;
         }
         c.action = self.current_action.or(c.action);
         c.gain = self.current_gain.or(c.gain);
@@ -142,6 +149,15 @@ mod tests {
     }
 
     #[test]
+    fn a_range_is_two_numbers_with_a_comma() {
+        assert_eq!(range("0,150").unwrap(), [0.0, 150.0]);
+        assert_eq!(range("-20, 80.5").unwrap(), [-20.0, 80.5]);
+        for bad in ["150", "0;150", "a,b", ""] {
+            assert!(range(bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
     fn flags_describe_the_controller_over_the_config() {
         let mut setup = LoopSetup::new("TIC-1", Spec::within(60.0));
         setup.controller = Some(ControllerSetup {
@@ -151,7 +167,7 @@ mod tests {
         });
         let flags = LoopFlags {
             gain_unit: Some(GainUnit::ProportionalBand),
-            pv_range: Some(vec![0.0, 150.0]),
+            pv_range: Some([0.0, 150.0]),
             current_gain: Some(80.0),
             pv_unit: Some("°C".into()),
             ..LoopFlags::default()

@@ -179,3 +179,62 @@ fn the_example_advice_is_typed_in_the_controllers_own_form_and_units() {
     );
     assert!(v["settings_hash"].as_str().is_some_and(|h| !h.is_empty()));
 }
+
+/// The controller described by flags: another form and units, and an action that contradicts
+/// the identified process is called out; a malformed range is refused naming its flag.
+#[test]
+fn flags_describe_the_controller_and_a_wrong_action_is_called_out() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let run = |extra: &[&str]| {
+        let mut args = vec![
+            "analyze",
+            FILE,
+            "--settle-within-s",
+            "600",
+            "--pv-unit",
+            "°C",
+        ];
+        args.extend_from_slice(extra);
+        std::process::Command::new(headroom_bin())
+            .current_dir(root)
+            .args(&args)
+            .output()
+            .unwrap()
+    };
+    let out = run(&[
+        "--form",
+        "parallel",
+        "--gain-unit",
+        "percent_per_percent",
+        "--integral-unit",
+        "repeats_per_minute",
+        "--pv-range",
+        "0,150",
+        "--current-gain",
+        "4.5",
+        "--current-integral",
+        "0.1",
+        "--current-action",
+        "direct",
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8(out.stdout).unwrap();
+    let text = text.split_whitespace().collect::<Vec<_>>().join(" ");
+    assert!(
+        text.contains("Suggested settings: parallel form, reverse action: Kp"),
+        "{text}"
+    );
+    assert!(
+        text.contains("Today's settings: parallel form, direct action: Kp 4.50 %/%"),
+        "{text}"
+    );
+    assert!(text.contains("described as direct acting"), "{text}");
+    let refused = run(&["--pv-range", "0"]);
+    assert_eq!(refused.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&refused.stderr);
+    assert!(err.contains("--pv-range"), "{err}");
+}

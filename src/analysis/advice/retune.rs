@@ -202,9 +202,9 @@ pub(super) fn lines(r: &Retune, units: &crate::analysis::Units) -> Vec<String> {
     }
     if let Some(c) = &r.current {
         out.push(format!(
-            "Today's settings: {}; on the model they {}.",
+            "Today's settings: {}; on the model: {}.",
             c.settings.words(units),
-            response_words(&c.verified).replacen("settles", "settle", 1)
+            response_words(&c.verified)
         ));
     }
     if !r.controller_described {
