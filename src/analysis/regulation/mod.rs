@@ -30,6 +30,10 @@
 //!   AR model of the PV deviation, its impulse response ψ, σ²_mv = σ²_a·Σ_{i<d} ψ_i² with
 //!   d = ⌊θ/Ts⌋ + 1 samples of dead time.
 
+mod holds;
+
+pub use holds::{Busy, holds};
+
 use super::Series;
 use super::linalg::solve;
 use super::setup::OpRange;
