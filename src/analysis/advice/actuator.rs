@@ -85,8 +85,16 @@ pub struct ActuatorEvidence {
     pub rating_unit: Option<String>,
 }
 
+/// The evidence for each direction of change with actuator-side misses, rises first.
+pub(super) fn per_direction(episodes: &[EpisodeResult], b: &Basis) -> Vec<ActuatorEvidence> {
+    [Direction::Up, Direction::Down]
+        .into_iter()
+        .filter_map(|d| evidence(episodes, d, b))
+        .collect()
+}
+
 /// The evidence for the actuator-limited changes of one direction; `None` when there are none.
-pub(super) fn evidence(
+fn evidence(
     episodes: &[EpisodeResult],
     direction: Direction,
     b: &Basis,
@@ -103,13 +111,7 @@ pub(super) fn evidence(
     let u0 = median(misses.iter().map(|e| e.op_start));
     let settled: Vec<f64> = misses.iter().filter_map(|e| e.settling_time_s).collect();
     let observed = (!settled.is_empty()).then(|| median(settled.into_iter()));
-    let mut e = numbers(step, u0, b);
-    e.misses = misses.len();
-    e.observed_settling_time_s = observed;
-    e.achievable_settling_time_s = match (e.practical_settling_time_s, observed) {
-        (Some(p), Some(o)) => Some(p.min(o)),
-        (p, o) => p.or(o),
-    };
+    let mut e = numbers(step, u0, misses.len(), observed, b);
     // The typical change's capacity ratio, spread as the changes' own ratios spread over the
     // model's plausible variants (medians of their relative range ends).
     let spreads: Vec<(f64, f64)> = misses
@@ -126,8 +128,15 @@ pub(super) fn evidence(
     Some(e)
 }
 
-/// The model's numbers for a typical change `step` from OP `u0`.
-fn numbers(step: f64, u0: f64, b: &Basis) -> ActuatorEvidence {
+/// The model's numbers for `misses` changes of typical size `step` from OP `u0`, which settled
+/// in `observed` (median) today.
+fn numbers(
+    step: f64,
+    u0: f64,
+    misses: usize,
+    observed: Option<f64>,
+    b: &Basis,
+) -> ActuatorEvidence {
     let (f, op, spec) = (&b.f, b.setup.op, &b.setup.spec);
     let band = spec.band_fraction(step);
     let dir = feasibility::op_direction(f.gain, step);
@@ -136,7 +145,8 @@ fn numbers(step: f64, u0: f64, b: &Basis) -> ActuatorEvidence {
         Reach::Reachable { t_star_s } => Some(t_star_s),
         Reach::Unreachable { .. } => None,
     };
-    let tight = tuning::tau_c_for_headroom(f, step, f64::INFINITY, b.sample_s).max(f.dead_time_s);
+    // SIMC's tight choice τc = θ (never below a sample interval).
+    let tight = f.dead_time_s.max(b.sample_s);
     let (kc, ti) = tuning::simc_pi(f, tight);
     let practical =
         fastest.and_then(|_| tuning::predict(f, kc, ti, step, u0, op, band, b.sample_s).0);
@@ -146,13 +156,17 @@ fn numbers(step: f64, u0: f64, b: &Basis) -> ActuatorEvidence {
     let rating = b.setup.actuator.as_ref().filter(|_| dir > 0.0);
     ActuatorEvidence {
         direction: Direction::of(step),
-        misses: 0,
+        misses,
         typical_step: step,
         typical_op_start: u0,
         fastest_settling_time_s: fastest,
         practical_settling_time_s: practical,
-        observed_settling_time_s: None,
-        achievable_settling_time_s: practical,
+        observed_settling_time_s: observed,
+        // Never slower than what the loop already achieves.
+        achievable_settling_time_s: match (practical, observed) {
+            (Some(p), Some(o)) => Some(p.min(o)),
+            (p, o) => p.or(o),
+        },
         largest_compliant_step: feasibility::largest_compliant_step(f, h, spec),
         required_op_limit: required_limit,
         capacity_ratio,

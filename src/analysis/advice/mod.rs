@@ -260,10 +260,7 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
     };
     if b.tally.actuator_misses() > 0 {
         // The minority of misses that retuning cannot fix, with the step sizes that would.
-        r.per_direction = [Direction::Up, Direction::Down]
-            .into_iter()
-            .filter_map(|d| actuator::evidence(episodes, d, b))
-            .collect();
+        r.per_direction = actuator::per_direction(episodes, b);
         let sizes: Vec<String> = r
             .per_direction
             .iter()
@@ -290,10 +287,7 @@ fn retune(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
 }
 
 fn actuator(episodes: &[EpisodeResult], b: &Basis) -> Recommendation {
-    let per_direction: Vec<ActuatorEvidence> = [Direction::Up, Direction::Down]
-        .into_iter()
-        .filter_map(|d| actuator::evidence(episodes, d, b))
-        .collect();
+    let per_direction = actuator::per_direction(episodes, b);
     // The direction with more misses decides (rises on a tie: heating up is the usual limit).
     let Some(main) = per_direction
         .iter()

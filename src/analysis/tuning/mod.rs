@@ -7,13 +7,12 @@
 //!   today; or a refusal saying why, with the best safe settings.
 //! - [`verify`] ([`verify`](mod@verify)): settings simulated on the model in its own family, the
 //!   OP clamped with clamping anti-windup, with their maximum sensitivity ([`sensitivity`]).
-//! - [`suggest`] and [`predict`]: the earlier suggestion, τc chosen so the controller's initial
-//!   OP move fits the actuator headroom, on the first-order equivalent.
+//! - [`simc_pi`] and [`predict`]: the first-order rule and a response on the first-order
+//!   equivalent, for what a tight PI achieves beside the actuator's bound.
 
 use super::controller::Ideal;
 use super::identify::{Family, Fopdt, Model};
 use super::metrics::OpRange;
-use serde::Serialize;
 
 mod choose;
 mod sensitivity;
@@ -50,93 +49,11 @@ pub fn simc_for(model: &Model, step: f64, tau_c: f64) -> Ideal {
     }
 }
 
-/// Suggested PI settings with the reasoning numbers behind them.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct PiSuggestion {
-    /// Proportional gain Kc in OP units per PV unit; negative means reverse (direct-acting
-    /// process sign conventions differ between controllers — the sign here is Kc·K > 0).
-    pub gain: f64,
-    pub integral_time_s: f64,
-    /// The SIMC tuning parameter τc that was chosen.
-    pub closed_loop_time_constant_s: f64,
-    /// Settling time these settings give for the typical change, simulated on the identified model
-    /// with the OP limits; `None` when the simulated response does not settle.
-    pub expected_settling_time_s: Option<f64>,
-    pub expected_overshoot_pct: f64,
-    /// Whether the controller's initial OP move Kc·|Δ| fits the headroom; when it does not, the
-    /// OP saturates briefly after a change and the controller needs anti-windup.
-    pub initial_move_fits_headroom: bool,
-}
-
 /// SIMC PI for an FOPDT: Kc = (1/K)·τ/(τc + θ), τI = min(τ, 4(τc + θ)).
 pub fn simc_pi(m: &Fopdt, tau_c: f64) -> (f64, f64) {
     let kc = m.time_constant_s / (m.gain * (tau_c + m.dead_time_s));
     let ti = m.time_constant_s.min(4.0 * (tau_c + m.dead_time_s));
     (kc, ti)
-}
-
-/// The τc for which the initial OP move Kc·|Δ| equals the headroom `h`, but never below the SIMC
-/// "tight" choice τc = θ, nor below `floor_s` (a sample interval, so a process without dead time
-/// does not get an infinite gain).
-pub fn tau_c_for_headroom(m: &Fopdt, delta: f64, h: f64, floor_s: f64) -> f64 {
-    let kick_limited = if h > 0.0 {
-        m.time_constant_s * delta.abs() / (m.gain.abs() * h) - m.dead_time_s
-    } else {
-        f64::INFINITY
-    };
-    kick_limited.max(m.dead_time_s).max(floor_s)
-}
-
-/// Suggests PI settings for a typical change `delta` from operating point `u0`, and predicts the
-/// response on the model with the actuator range. `sample_s` is the loop's sample interval.
-///
-/// τc starts where the controller's initial OP move fits the headroom (never below θ). If the
-/// response predicted with those settings misses `spec_s`, τc is tightened step by step towards θ
-/// and the largest τc that meets the spec is taken: the OP then saturates briefly after a change,
-/// which a controller with anti-windup handles (the prediction includes the clamp). If even τc = θ
-/// misses, that fastest robust setting is returned with its predicted settling time.
-#[allow(clippy::too_many_arguments)]
-pub fn suggest(
-    m: &Fopdt,
-    delta: f64,
-    u0: f64,
-    op: OpRange,
-    band: f64,
-    sample_s: f64,
-    spec_s: f64,
-) -> PiSuggestion {
-    let dir = super::feasibility::op_direction(m.gain, delta);
-    let h = super::feasibility::headroom(u0, dir, op.min, op.max);
-    let floor = m.dead_time_s.max(sample_s.max(1e-6));
-    let fitted = tau_c_for_headroom(m, delta, h, floor);
-    let evaluate = |tau_c: f64| -> PiSuggestion {
-        let (kc, ti) = simc_pi(m, tau_c);
-        let (settle, overshoot) = predict(m, kc, ti, delta, u0, op, band, sample_s);
-        PiSuggestion {
-            gain: kc,
-            integral_time_s: ti,
-            closed_loop_time_constant_s: tau_c,
-            expected_settling_time_s: settle,
-            expected_overshoot_pct: overshoot,
-            initial_move_fits_headroom: (kc * delta).abs() <= h * (1.0 + 1e-9),
-        }
-    };
-    let meets = |s: &PiSuggestion| s.expected_settling_time_s.is_some_and(|t| t <= spec_s);
-    let first = evaluate(fitted);
-    if meets(&first) || fitted <= floor {
-        return first;
-    }
-    const STEPS: usize = 12;
-    let mut fastest = first;
-    for k in 1..=STEPS {
-        let tau_c = fitted * (floor / fitted).powf(k as f64 / STEPS as f64);
-        let s = evaluate(tau_c);
-        if meets(&s) {
-            return s;
-        }
-        fastest = s;
-    }
-    fastest
 }
 
 /// Simulates a setpoint change on the first-order model under the given PI with the OP limits
