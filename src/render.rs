@@ -91,11 +91,23 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
 
 /// A paragraph wrapped at `width`, each line indented by `indent`.
 fn para(out: &mut dyn Write, width: usize, indent: &str, text: &str) -> anyhow::Result<()> {
-    let options = textwrap::Options::new(width.max(40))
-        .initial_indent(indent)
-        .subsequent_indent(indent);
+    Ok(paragraph(out, width.max(40), indent, indent, text)?)
+}
+
+/// `text` wrapped at `width` columns (`textwrap`), its first line after `first` and every other
+/// line after `rest`; the one way the product's text output wraps.
+pub fn paragraph(
+    out: &mut dyn Write,
+    width: usize,
+    first: &str,
+    rest: &str,
+    text: &str,
+) -> std::io::Result<()> {
+    let options = textwrap::Options::new(width)
+        .initial_indent(first)
+        .subsequent_indent(rest);
     for line in textwrap::wrap(text, options) {
-        writeln!(out, "{line}")?;
+        writeln!(out, "{}", line.trim_end())?;
     }
     Ok(())
 }

@@ -269,11 +269,34 @@ impl ControllerSetup {
 }
 
 impl Form {
+    /// The form as the config and the JSON spell it.
     pub fn as_str(self) -> &'static str {
         match self {
             Form::Ideal => "ideal",
             Form::Parallel => "parallel",
             Form::Series => "series",
+        }
+    }
+}
+
+impl GainUnit {
+    /// The convention as the config and the JSON spell it.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            GainUnit::OutputPerPv => "output_per_pv",
+            GainUnit::PercentPerPercent => "percent_per_percent",
+            GainUnit::ProportionalBand => "proportional_band",
+        }
+    }
+}
+
+impl IntegralUnit {
+    /// The convention as the config and the JSON spell it.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            IntegralUnit::Seconds => "seconds",
+            IntegralUnit::Minutes => "minutes",
+            IntegralUnit::RepeatsPerMinute => "repeats_per_minute",
         }
     }
 }
@@ -711,5 +734,30 @@ mod tests {
             )),
             "parallel form, direct action: Kp 3.00 %/%, Ki 1.50 %/% per min, no derivative action"
         );
+    }
+
+    #[test]
+    fn the_written_spellings_are_the_configs() {
+        let serde = |v: serde_json::Value| v.as_str().unwrap().to_owned();
+        for f in [Form::Ideal, Form::Parallel, Form::Series] {
+            assert_eq!(serde(serde_json::to_value(f).unwrap()), f.as_str());
+        }
+        for g in [
+            GainUnit::OutputPerPv,
+            GainUnit::PercentPerPercent,
+            GainUnit::ProportionalBand,
+        ] {
+            assert_eq!(serde(serde_json::to_value(g).unwrap()), g.as_str());
+        }
+        for i in [
+            IntegralUnit::Seconds,
+            IntegralUnit::Minutes,
+            IntegralUnit::RepeatsPerMinute,
+        ] {
+            assert_eq!(serde(serde_json::to_value(i).unwrap()), i.as_str());
+        }
+        for a in [Action::Direct, Action::Reverse] {
+            assert_eq!(serde(serde_json::to_value(a).unwrap()), a.as_str());
+        }
     }
 }

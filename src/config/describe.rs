@@ -173,13 +173,12 @@ fn write_loop(o: &mut String, tag: &str, l: &LoopConfig) -> Result {
         None => writeln!(o, ", no overshoot limit")?,
     }
     if let Some(c) = &l.controller {
-        let word = |v: serde_json::Result<String>| v.unwrap_or_default().replace('"', "");
         write!(
             o,
             "    controller: {} form, gain as {}, integral in {}",
-            word(serde_json::to_string(&c.form)),
-            word(serde_json::to_string(&c.gain_unit)),
-            word(serde_json::to_string(&c.integral_unit))
+            c.form.as_str(),
+            c.gain_unit.as_str(),
+            c.integral_unit.as_str()
         )?;
         match (c.gain, c.integral) {
             (Some(g), Some(i)) => writeln!(o, "; today gain {g}, integral {i}")?,

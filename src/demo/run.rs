@@ -191,16 +191,14 @@ fn controller_toml(d: &LoopDef) -> String {
     let Ok(w) = controller::write(ideal, convention, Some(spans)) else {
         return String::new();
     };
-    // The words as the config reads them: the serde spelling of each choice.
-    let word = |v: serde_json::Result<String>| v.unwrap_or_default();
     let mut t = format!(
-        "\n[loops.{}.controller]\nform = {}\ngain_unit = {}\nintegral_unit = {}\naction = {}\n\
-         gain = {:?}\n",
+        "\n[loops.{}.controller]\nform = {:?}\ngain_unit = {:?}\nintegral_unit = {:?}\n\
+         action = {:?}\ngain = {:?}\n",
         d.tag,
-        word(serde_json::to_string(&convention.form)),
-        word(serde_json::to_string(&convention.gain)),
-        word(serde_json::to_string(&convention.integral)),
-        word(serde_json::to_string(&w.action)),
+        convention.form.as_str(),
+        convention.gain.as_str(),
+        convention.integral.as_str(),
+        w.action.as_str(),
         w.gain
     );
     if let Some(i) = w.integral {

@@ -36,11 +36,6 @@ pub struct LoopSummary {
 }
 
 impl LoopSummary {
-    /// Conclusive changes that met the spec, as a share of the conclusive ones.
-    pub fn met_share(&self) -> Option<f64> {
-        self.counts.met_share()
-    }
-
     /// The median settling time of the conclusive changes; infinite when most never settled.
     pub fn typical_settling_s(&self) -> Option<f64> {
         let mut t: Vec<f64> = self
@@ -161,7 +156,7 @@ fn settling(s: Option<f64>) -> String {
 /// `3 of 4`: the judged changes that met the spec, out of the judged ones (a share would hide
 /// how few there were).
 fn met_of_judged(c: &VerdictCounts) -> String {
-    let judged = c.met + c.tuning_limited + c.actuator_limited + c.unreachable;
+    let judged = c.conclusive();
     if judged == 0 {
         "—".into()
     } else {
@@ -193,14 +188,7 @@ fn wrapped(
     indent: usize,
     width: usize,
 ) -> std::io::Result<()> {
-    let rest = " ".repeat(indent);
-    let options = textwrap::Options::new(width)
-        .initial_indent(first)
-        .subsequent_indent(&rest);
-    for line in textwrap::wrap(text, options) {
-        writeln!(out, "{}", line.trim_end())?;
-    }
-    Ok(())
+    crate::render::paragraph(out, width, first, &" ".repeat(indent), text)
 }
 
 /// One row per loop: changes, share met, typical settling against the spec, misses, advice.

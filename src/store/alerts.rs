@@ -43,13 +43,9 @@ impl AlertState {
         }
     }
 
-    /// The spelling people read: plain words.
+    /// The spelling people read: plain words, which for a state are the stored ones.
     pub fn label(self) -> &'static str {
-        match self {
-            AlertState::Active => "active",
-            AlertState::Returned => "returned",
-            AlertState::Acknowledged => "acknowledged",
-        }
+        self.as_str()
     }
 
     pub fn parse(s: &str) -> Option<AlertState> {
