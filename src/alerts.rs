@@ -68,6 +68,11 @@ impl AlertKind {
         }
     }
 
+    /// The display spelling of a stored kind; an unknown stored kind reads as stored.
+    pub fn label_of(stored: &str) -> &str {
+        AlertKind::parse(stored).map_or(stored, |k| k.label())
+    }
+
     /// The kind from its stored spelling.
     pub fn parse(stored: &str) -> Option<AlertKind> {
         if stored == AlertKind::StaleTag.as_str() {

@@ -189,8 +189,7 @@ fn acked(row: &AlertRow) -> String {
 /// One alert for people: id, loop, kind and state; its span (times in RFC 3339, as stored);
 /// its message; who acknowledged it.
 fn describe(a: &AlertRow) -> String {
-    // People read the kind's display spelling; an unknown stored kind as stored.
-    let kind = AlertKind::parse(&a.kind).map_or(a.kind.as_str(), |k| k.label());
+    let kind = AlertKind::label_of(&a.kind);
     let length = human_duration(ms_to_s(a.last_seen_ms - a.first_seen_ms));
     // A change's span is the change itself; a loop-wide condition may still be going on.
     let span = if a.ongoing && a.change_start_ms.is_none() {

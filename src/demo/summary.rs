@@ -287,8 +287,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
         .iter()
         .flat_map(|l| {
             l.alerts.iter().map(move |(k, n)| {
-                // People read the kind's display spelling; an unknown stored kind as stored.
-                let kind = AlertKind::parse(k).map_or_else(|| k.clone(), |k| k.label().into());
+                let kind = AlertKind::label_of(k);
                 format!(
                     "{} {kind} ({})",
                     l.tag,

@@ -263,9 +263,7 @@ fn open_alerts(alerts: &[AlertRow], period: &Period) -> Vec<AlertCount> {
     by_kind
         .into_iter()
         .map(|(kind, (count, loops))| AlertCount {
-            // An unknown stored kind reads as stored.
-            label: crate::alerts::AlertKind::parse(&kind)
-                .map_or_else(|| kind.clone(), |k| k.label().to_string()),
+            label: crate::alerts::AlertKind::label_of(&kind).to_string(),
             kind,
             count,
             loops,

@@ -154,16 +154,16 @@ fn fastest_response(
 ) -> Option<Fastest> {
     let delta = e.sp_to - e.sp_from;
     let m = e.model?;
-    let b = spec?.band_fraction(delta);
+    let band = spec?.band_abs(delta);
     // The curve starts where the plant was at the change.
     let y0 = e.start_pv.unwrap_or(e.sp_from);
     let reach = m.gain.abs() * e.op_headroom;
     let sign = (e.sp_to - y0).signum();
     let unreachable = e.verdict == crate::analysis::Verdict::Unreachable;
-    let t_star = match e.min_settling_time_s {
-        Some(t) if !unreachable => t,
-        _ if unreachable => f64::INFINITY,
-        _ => return None,
+    let t_star = if unreachable {
+        f64::INFINITY
+    } else {
+        e.min_settling_time_s?
     };
     let n = 200;
     let curve = (0..=n)
@@ -175,7 +175,7 @@ fn fastest_response(
                 y0 + sign * reach * (1.0 - (-(t - m.dead_time_s) / m.time_constant_s).exp())
             } else {
                 // Inside the band the OP backs off and the PV closes on the setpoint.
-                e.sp_to - sign * b * delta.abs() * (-(t - t_star) / m.time_constant_s).exp()
+                e.sp_to - sign * band * (-(t - t_star) / m.time_constant_s).exp()
             };
             (t / per, y)
         })

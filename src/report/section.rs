@@ -312,7 +312,10 @@ pub(super) fn build_loop(
         data_quality.push(quality::not_configured(&l.tag));
     }
 
-    let units = Units::of(l);
+    let units = crate::analysis::Units {
+        pv: l.pv_unit.clone(),
+        op: l.op_unit.clone(),
+    };
     let advice = recommendation
         .as_ref()
         .map(|r| advice_figures(r, l.setup.as_ref(), &units))
@@ -334,8 +337,8 @@ pub(super) fn build_loop(
         status_symbol: status.symbol(),
         status_class: status.class(),
         advises_change: status.advises_change(),
-        gain_unit: units.gain,
-        controller_gain_unit: units.controller_gain,
+        gain_unit: units.process_gain(),
+        controller_gain_unit: units.controller_gain(),
         settings_hash: l
             .setup
             .as_ref()
@@ -465,42 +468,17 @@ fn pick_telling<'a>(week: &[&'a Episode<'a>], status: Status) -> Option<(&'a Epi
         .or_else(|| slowest(&|_| true).map(|e| (e, "the slowest change of the period".to_string())))
 }
 
-/// The units a loop's numbers are read in.
-struct Units {
-    pv: String,
-    op: String,
-    /// Process gain K: PV unit per OP unit.
-    gain: String,
-    /// Controller gain Kc: OP unit per PV unit.
-    controller_gain: String,
-}
-
-impl Units {
-    fn of(l: &LoopInput) -> Units {
-        let u = crate::analysis::Units {
-            pv: l.pv_unit.clone(),
-            op: l.op_unit.clone(),
-        };
-        Units {
-            gain: u.process_gain(),
-            controller_gain: u.controller_gain(),
-            pv: u.pv,
-            op: u.op,
-        }
-    }
-}
-
 /// The recommendation's numbers with labels and units, for the HTML and Markdown tables.
-fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> Vec<Figure> {
+fn advice_figures(
+    r: &Recommendation,
+    setup: Option<&LoopSetup>,
+    people: &crate::analysis::Units,
+) -> Vec<Figure> {
     use crate::analysis::advice::{actuator_figures, retune_figures};
-    let people = crate::analysis::Units {
-        pv: u.pv.clone(),
-        op: u.op.clone(),
-    };
     let mut out: Vec<(String, String)> = r
         .retune
         .as_ref()
-        .map(|rt| retune_figures(rt, &people))
+        .map(|rt| retune_figures(rt, people))
         .unwrap_or_default()
         .into_iter()
         .map(|(label, value)| (label.to_string(), value))
@@ -508,7 +486,7 @@ fn advice_figures(r: &Recommendation, setup: Option<&LoopSetup>, u: &Units) -> V
     out.extend(
         r.per_direction
             .iter()
-            .flat_map(|e| actuator_figures(e, &people)),
+            .flat_map(|e| actuator_figures(e, people)),
     );
     if let Some(s) = setup.map(|s| s.spec.settle_within_s)
         && !out.is_empty()
