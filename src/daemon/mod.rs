@@ -101,7 +101,7 @@ impl Daemon {
         let report = match &config.report {
             Some(r) => Some((
                 config.clone(),
-                crate::report::schedule::Schedule::from_settings(r)
+                crate::report::schedule::Schedule::from_settings(r, config_path)
                     .map_err(|e| anyhow::anyhow!("[report]: {e}"))?,
             )),
             None => None,

@@ -237,6 +237,7 @@ fn data_commands(
             flag("--op-min", Some(s.op.min));
             flag("--op-max", Some(s.op.max));
             flag("--settle-band-pct", Some(s.spec.settle_band_pct));
+            flag("--settle-band", s.spec.settle_band);
             flag("--settle-within-s", Some(s.spec.settle_within_s));
             flag("--max-overshoot-pct", s.spec.max_overshoot_pct);
             flag("--sp-deadband", s.options.sp_deadband);

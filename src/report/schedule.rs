@@ -12,7 +12,7 @@ use crate::store::Store;
 use jiff::civil::{Time, Weekday};
 use jiff::tz::TimeZone;
 use jiff::{SignedDuration, Timestamp, ToSpan, Zoned};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::time::Duration;
 use tokio::sync::watch;
 
@@ -38,17 +38,25 @@ pub struct Schedule {
     pub time_zone: TimeZone,
     pub folder: PathBuf,
     pub formats: Vec<Format>,
+    /// The configuration file the settings came from, so each summary's reproduce commands can
+    /// name it (`analyze --config FILE --loop TAG`).
+    pub config_file: PathBuf,
 }
 
 impl Schedule {
-    /// From the checked config section (its time zone and formats were validated there).
-    pub fn from_settings(s: &ReportSettings) -> Result<Schedule, ScheduleError> {
+    /// From the checked config section (its time zone and formats were validated there) of the
+    /// configuration file `config_file`.
+    pub fn from_settings(
+        s: &ReportSettings,
+        config_file: &Path,
+    ) -> Result<Schedule, ScheduleError> {
         Ok(Schedule {
             weekday: s.weekday,
             time: s.time,
             time_zone: crate::units::time_zone(&s.time_zone)?,
             folder: s.folder.clone(),
             formats: s.formats.clone(),
+            config_file: config_file.to_path_buf(),
         })
     }
 
@@ -89,7 +97,14 @@ pub async fn generate_once(
     period: &Period,
 ) -> Result<Vec<PathBuf>, ReportError> {
     let now = Timestamp::now();
-    let report = gather(store, Some(config), None, period, now).await?;
+    let report = gather(
+        store,
+        Some(config),
+        Some(&schedule.config_file),
+        period,
+        now,
+    )
+    .await?;
     let written = write_files(&report, period, &schedule.formats, &schedule.folder)?;
     for ((_, text), f) in written.iter().zip(&schedule.formats) {
         store
@@ -170,6 +185,7 @@ mod tests {
                 .expect("the tests need the tzdata package (/usr/share/zoneinfo)"),
             folder: PathBuf::from("reports"),
             formats: vec![Format::Html],
+            config_file: PathBuf::from("headroom.toml"),
         }
     }
 
