@@ -3,6 +3,7 @@
 
 use crate::analysis::LoopSetup;
 use crate::analysis::assess::{LoopReport, Verdict};
+use crate::analysis::regulation;
 use crate::csvload::LoadReport;
 use crate::units::{fraction_to_pct, human_duration, quantity};
 use std::io::Write;
@@ -86,6 +87,12 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
         para(out, width, "  ", &format!("Check: {c}"))?;
     }
     para(out, width, "  ", r.caution)?;
+    writeln!(out)?;
+    writeln!(out, "Between setpoint changes:")?;
+    let dead_time_s = report.model.as_ref().map(|m| m.dead_time_s);
+    for line in regulation::words::lines(&report.regulation, &report.units, dead_time_s) {
+        para(out, width, "  ", &line)?;
+    }
     Ok(())
 }
 

@@ -10,6 +10,7 @@ use super::feasibility;
 use super::identify::{self, IdSegment, Model, Refusal};
 use super::metrics::{self, OpRange, Response};
 use super::quality::{self, Effect, Finding, Survey};
+use super::regulation::{self, Busy, Hold, Regulation, RegulationSettings};
 use super::segment::{self, EpisodeWindow, SegmentSettings};
 use super::verdict::{self, Capability, Context, Facts};
 use super::{LoopSetup, Series, Spec, Units, stats};
@@ -69,6 +70,8 @@ pub struct LoopReport {
     pub counts: VerdictCounts,
     pub episodes: Vec<EpisodeResult>,
     pub recommendation: Recommendation,
+    /// How the loop held its setpoint between changes.
+    pub regulation: Regulation,
 }
 
 /// Episodes, model and data facts of one loop: everything but the recommendation.
@@ -77,6 +80,8 @@ pub struct Assessment {
     pub episodes: Vec<EpisodeResult>,
     pub model: Result<Model, Refusal>,
     pub data: DataSummary,
+    /// The held-setpoint stretches between the responses to changes.
+    pub holds: Vec<Hold>,
 }
 
 /// Analyses one loop's data end to end: [`assess`] then [`recommend`].
@@ -87,6 +92,11 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         a.model.as_ref().ok(),
         setup,
         a.data.median_sample_s,
+    );
+    let regulation = regulation::regulation(
+        series,
+        &a.holds,
+        &regulation_settings(setup, a.model.as_ref().ok()),
     );
     LoopReport {
         tag: setup.tag.clone(),
@@ -100,7 +110,46 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         counts: VerdictCounts::of(&a.episodes),
         episodes: a.episodes,
         recommendation,
+        regulation,
     }
+}
+
+/// What the regulation analysis of a loop takes from its setup and model.
+pub fn regulation_settings(setup: &LoopSetup, model: Option<&Model>) -> RegulationSettings {
+    RegulationSettings {
+        op: setup.op,
+        hold_band: setup.spec.hold_band,
+        recover_within_s: setup.spec.recover_within_s,
+        dead_time_s: model.map(|m| m.dead_time_s),
+    }
+}
+
+/// The holds of a series between its setpoint changes: each change keeps the loop busy until
+/// its response settled, or to the end of its window when it never did (or was not scored).
+pub(crate) fn holds_between(
+    series: &Series,
+    windows: &[EpisodeWindow],
+    scored: &[Scored],
+    settings: &SegmentSettings,
+) -> Vec<Hold> {
+    let t = series.time_s();
+    let mut next = scored.iter().peekable();
+    let busy: Vec<Busy> = windows
+        .iter()
+        .map(|w| {
+            let from_s = t[w.start];
+            let settled = next
+                .next_if(|s| s.w.start == w.start)
+                .and_then(|s| s.m.settling_time_s);
+            // The window's last sample is still busy when it never settled.
+            let window_end = t.get(w.end).copied().unwrap_or(f64::INFINITY);
+            Busy {
+                from_s,
+                until_s: settled.map_or(window_end, |ts| from_s + ts),
+            }
+        })
+        .collect();
+    regulation::holds(series, &busy, settings.max_gap_s, settings.deadband)
 }
 
 /// Scores every setpoint change, identifies the process and gives each change its verdict.
@@ -124,6 +173,7 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
         .filter_map(|s| PoolEntry::new(series, s, setup))
         .collect();
     let models = identify_pool(&pool, setup);
+    let holds = holds_between(series, &seg.windows, &scored, &seg_settings);
     let pv_noise_sd = pv_noise_sd(series.pv());
     let survey = quality::survey(series, setup.op, pv_noise_sd);
     let mut knowledge = Knowledge {
@@ -177,6 +227,7 @@ pub fn assess(series: &Series, setup: &LoopSetup) -> Assessment {
         },
         episodes,
         model: models.map(|ms| ms.model),
+        holds,
     }
 }
 

@@ -412,6 +412,8 @@ mod tests {
                 settle_band: None,
                 settle_within_s: 600.0,
                 max_overshoot_pct: Some(15.0),
+                hold_band: None,
+                recover_within_s: None,
             },
             options: AnalysisOptions {
                 expected_period_s: Some(2.0),

@@ -25,6 +25,14 @@ pub struct Spec {
     pub settle_within_s: f64,
     /// Largest allowed overshoot as a percentage of |Δ|; `None` when the spec sets none.
     pub max_overshoot_pct: Option<f64>,
+    /// While the setpoint is held, the PV counts as away from it beyond max(4σ of its noise,
+    /// this many PV units); `None` leaves the noise alone to set the band.
+    #[serde(default)]
+    pub hold_band: Option<f64>,
+    /// While the setpoint is held, a load disturbance must be recovered from within this many
+    /// seconds; `None` when the spec sets no such time.
+    #[serde(default)]
+    pub recover_within_s: Option<f64>,
 }
 
 impl Spec {
@@ -38,6 +46,8 @@ impl Spec {
             settle_band: None,
             settle_within_s,
             max_overshoot_pct: None,
+            hold_band: None,
+            recover_within_s: None,
         }
     }
 
@@ -102,6 +112,24 @@ impl Spec {
                 Setting::MaxOvershootPct,
                 "must be 0 % or more",
                 o,
+            ));
+        }
+        if let Some(b) = self.hold_band
+            && !(b.is_finite() && b > 0.0)
+        {
+            out.push(Problem::new(
+                Setting::HoldBand,
+                "must be a positive number of PV units",
+                b,
+            ));
+        }
+        if let Some(r) = self.recover_within_s
+            && !(r.is_finite() && r > 0.0)
+        {
+            out.push(Problem::new(
+                Setting::RecoverWithinS,
+                "must be a positive number of seconds",
+                r,
             ));
         }
         out
@@ -366,7 +394,7 @@ mod tests {
     #[test]
     fn each_bad_number_is_named_by_its_setting() {
         type Spoil = fn(&mut LoopSetup);
-        let cases: [(Spoil, Setting); 10] = [
+        let cases: [(Spoil, Setting); 12] = [
             (|s| s.spec.settle_band = Some(0.0), Setting::SettleBand),
             (|s| s.spec.settle_band_pct = 0.0, Setting::SettleBandPct),
             (|s| s.spec.settle_band_pct = 100.0, Setting::SettleBandPct),
@@ -383,6 +411,11 @@ mod tests {
             (|s| s.options.sp_deadband = Some(-1.0), Setting::SpDeadband),
             (|s| s.options.sp_hold_s = Some(f64::NAN), Setting::SpHoldS),
             (|s| s.op.max = f64::INFINITY, Setting::OpMax),
+            (|s| s.spec.hold_band = Some(-0.1), Setting::HoldBand),
+            (
+                |s| s.spec.recover_within_s = Some(f64::INFINITY),
+                Setting::RecoverWithinS,
+            ),
         ];
         for (spoil, setting) in cases {
             let mut s = setup();

@@ -510,6 +510,8 @@ mod tests {
             settle_band: None,
             settle_within_s: 600.0,
             max_overshoot_pct: Some(10.0),
+            hold_band: None,
+            recover_within_s: None,
         }
     }
 
@@ -719,6 +721,8 @@ mod tests {
         // Without an overshoot limit any overshoot is within spec.
         let spec = Spec {
             max_overshoot_pct: None,
+            hold_band: None,
+            recover_within_s: None,
             ..spec()
         };
         assert_eq!(decide(&at(80.0), &spec).verdict(), Verdict::Met);

@@ -105,6 +105,16 @@ fn analysis_part(args: &BenchOptions, dir: &Path, out: &mut dyn Write) -> anyhow
     let judged = median_time(repeat, || {
         std::hint::black_box(analysis::assess::assess(&series, &setup));
     });
+    // The regulation analysis of the holds between the changes, on its own.
+    let assessed = analysis::assess::assess(&series, &setup);
+    let reg_settings = analysis::assess::regulation_settings(&setup, assessed.model.as_ref().ok());
+    let regulation = median_time(repeat, || {
+        std::hint::black_box(analysis::regulation::regulation(
+            &series,
+            &assessed.holds,
+            &reg_settings,
+        ));
+    });
     let csv = dir.join("week.csv");
     write_csv(&series, &csv)?;
     let from_csv = median_time(repeat, || {
@@ -126,7 +136,13 @@ fn analysis_part(args: &BenchOptions, dir: &Path, out: &mut dyn Write) -> anyhow
         out,
         "{:<24}{:>10.1} ms   (settings chosen and verified by simulation)",
         "    of which the advice",
-        (core - judged).max(0.0) * 1e3
+        (core - judged - regulation).max(0.0) * 1e3
+    )?;
+    writeln!(
+        out,
+        "{:<24}{:>10.1} ms   (holds between the changes: disturbances, oscillation, Harris index)",
+        "    of which regulation",
+        regulation * 1e3
     )?;
     row(
         out,
@@ -262,6 +278,8 @@ pub fn week_of_one_loop() -> (Series, LoopSetup) {
         "TIC-900",
         Spec {
             max_overshoot_pct: Some(10.0),
+            hold_band: None,
+            recover_within_s: None,
             ..Spec::within(600.0)
         },
     );
@@ -362,6 +380,8 @@ fn ours_per_episode(dir: &Path, repeat: usize) -> anyhow::Result<f64> {
                 settle_band: None,
                 settle_within_s: num("settle_within_s")?,
                 max_overshoot_pct: None,
+                hold_band: None,
+                recover_within_s: None,
             },
             options: AnalysisOptions::default(),
         };

@@ -144,6 +144,8 @@ pub fn analyze_flag(setting: Setting) -> &'static str {
         Setting::SpDeadband => "--sp-deadband",
         Setting::MaxGapS => "--max-gap-s",
         Setting::SettleBand => "--settle-band",
+        Setting::HoldBand => "--hold-band",
+        Setting::RecoverWithinS => "--recover-within-s",
         Setting::PvRange => "--pv-range",
         Setting::ControllerGain => "--current-gain",
         Setting::ControllerIntegral => "--current-integral",

@@ -123,7 +123,9 @@ fn setting_keys<'a>(tag: &'a str, p: &analysis::Problem) -> Vec<&'a str> {
         Setting::SettleBandPct
         | Setting::SettleBand
         | Setting::SettleWithinS
-        | Setting::MaxOvershootPct => Some("spec"),
+        | Setting::MaxOvershootPct
+        | Setting::HoldBand
+        | Setting::RecoverWithinS => Some("spec"),
         Setting::PvRange
         | Setting::ControllerGain
         | Setting::ControllerIntegral

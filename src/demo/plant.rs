@@ -651,6 +651,8 @@ mod tests {
                 settle_band: None,
                 settle_within_s: d.settle_within_s,
                 max_overshoot_pct: d.max_overshoot_pct,
+                hold_band: None,
+                recover_within_s: None,
             },
             options: AnalysisOptions {
                 expected_period_s: Some(d.sample_period_s),

@@ -106,6 +106,8 @@ fn random_loop(rng: &mut Rng) -> CorpusLoop {
             settle_band: None,
             settle_within_s: spec_s,
             max_overshoot_pct: Some(25.0),
+            hold_band: None,
+            recover_within_s: None,
         },
     }
 }

@@ -36,6 +36,8 @@ async fn filled_store(path: &std::path::Path) -> (Store, i64) {
                 settle_band: None,
                 settle_within_s: 900.0,
                 max_overshoot_pct: None,
+                hold_band: None,
+                recover_within_s: None,
             },
             options: AnalysisOptions::default(),
         },

@@ -54,6 +54,8 @@ fn vessel(kc: f64, ti: f64, op_max: f64, schedule: Vec<(f64, f64)>) -> Scenario 
             settle_band: None,
             settle_within_s: 600.0,
             max_overshoot_pct: Some(10.0),
+            hold_band: None,
+            recover_within_s: None,
         },
     }
 }

@@ -31,6 +31,7 @@
 //!   d = ⌊θ/Ts⌋ + 1 samples of dead time.
 
 mod holds;
+pub mod words;
 
 pub use holds::{Busy, holds};
 
@@ -78,6 +79,69 @@ pub struct Disturbance {
     pub recovery_time_s: Option<f64>,
     pub op_at_limit_frac: f64,
     pub verdict: DisturbanceVerdict,
+    /// When the spec sets a time to recover and the disturbance missed it (recovered later, or
+    /// not at all): what limited the recovery — the actuator when the OP sat at its limit
+    /// (`actuator_limited`), else the tuning (`tuning_limited`), as for a setpoint change.
+    pub missed_spec: Option<RecoveryLimit>,
+}
+
+/// What kept a disturbance from being recovered within the spec's time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RecoveryLimit {
+    TuningLimited,
+    ActuatorLimited,
+}
+
+impl DisturbanceVerdict {
+    /// The verdict as people read it (DESIGN.md, "Words and units").
+    pub fn label(self) -> &'static str {
+        match self {
+            DisturbanceVerdict::Recovered => "recovered",
+            DisturbanceVerdict::ActuatorLimited => "actuator-limited",
+            DisturbanceVerdict::NotRecovered => "not recovered",
+            DisturbanceVerdict::Inconclusive => "inconclusive",
+        }
+    }
+}
+
+impl RecoveryLimit {
+    /// As people read it: the verdict words of a setpoint change that missed for this reason.
+    pub fn label(self) -> &'static str {
+        match self {
+            RecoveryLimit::TuningLimited => "tuning-limited",
+            RecoveryLimit::ActuatorLimited => "actuator-limited",
+        }
+    }
+}
+
+impl Cause {
+    /// The cause as people read it.
+    pub fn label(self) -> &'static str {
+        match self {
+            Cause::Valve => "the valve (stiction or deadband)",
+            Cause::Tuning => "the tuning (too aggressive for the process)",
+            Cause::Load => "a load from outside the loop",
+        }
+    }
+}
+
+impl Disturbance {
+    /// What limited a recovery that missed `recover_within_s`, or `None` when it met it, no
+    /// time is set, or the disturbance ended by a gap or manual before it could be judged.
+    fn missed(&self, recover_within_s: Option<f64>) -> Option<RecoveryLimit> {
+        let spec = recover_within_s?;
+        let missed = match (self.verdict, self.recovery_time_s) {
+            (DisturbanceVerdict::Inconclusive, _) => return None,
+            (_, Some(r)) => r > spec,
+            (_, None) => self.end_s - self.start_s > spec,
+        };
+        missed.then_some(if self.verdict == DisturbanceVerdict::ActuatorLimited {
+            RecoveryLimit::ActuatorLimited
+        } else {
+            RecoveryLimit::TuningLimited
+        })
+    }
 }
 
 /// What probably drives an oscillation.
@@ -109,6 +173,9 @@ pub struct Regulation {
     pub op_travel_per_h: Option<f64>,
     pub op_reversals_per_h: Option<f64>,
     pub min_variance_index: Option<f64>,
+    /// The standard deviation of the PV about its setpoint over the holds (PV units), to set
+    /// beside the hold band.
+    pub pv_sd: Option<f64>,
     /// The band used (PV units, half-width) and the PV noise σ behind it.
     pub hold_band: Option<f64>,
     pub pv_noise_sd: Option<f64>,
@@ -122,6 +189,8 @@ pub struct RegulationSettings {
     pub op: OpRange,
     /// A configured absolute hold band (PV units), if any.
     pub hold_band: Option<f64>,
+    /// The spec's time to recover from a disturbance, if it sets one.
+    pub recover_within_s: Option<f64>,
     /// The identified dead time, if a model exists.
     pub dead_time_s: Option<f64>,
 }
@@ -137,6 +206,9 @@ const REVERSAL_SHARE: f64 = 0.001;
 /// Hägglund's alarm count, and the supervision time in periods.
 const N_LIM: f64 = 10.0;
 const SUPERVISION_PERIODS: f64 = 50.0;
+/// The cross-correlation behind an oscillation's cause is taken over at most this many of its
+/// last periods.
+const CAUSE_PERIODS: f64 = 20.0;
 /// AR order of the minimum-variance estimate (10–30 typical — from memory), and the largest
 /// order [`harris_index`] takes.
 const AR_ORDER: usize = 15;
@@ -183,6 +255,9 @@ pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings
             };
         }
     }
+    for d in &mut disturbances {
+        d.missed_spec = d.missed(settings.recover_within_s);
+    }
     let per_hour = |x: f64| (hold_hours > 0.0).then(|| x / hold_hours);
     let (at_limit, travel, reversals) = op_figures(series, &holds, settings.op);
     Regulation {
@@ -192,22 +267,47 @@ pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings
         op_travel_per_h: per_hour(travel),
         op_reversals_per_h: per_hour(reversals as f64),
         min_variance_index: min_variance_index(series, &holds, settings.dead_time_s),
+        pv_sd: pv_sd(series, &holds),
         hold_band: band,
         pv_noise_sd: sigma,
         hold_hours,
     }
 }
 
-/// The PV noise σ from second differences inside holds, by the median absolute deviation.
+/// The PV noise σ from second differences inside holds, by the median absolute deviation (of
+/// at most [`ROBUST_SAMPLES`] of them, evenly spread).
 pub fn noise_sd(pv: &[f64], holds: &[Hold]) -> Option<f64> {
+    let stride = evenly(holds);
     let mut d2: Vec<f64> = holds
         .iter()
         .flat_map(|h| (h.start + 1..h.end - 1).map(move |i| pv[i + 1] - 2.0 * pv[i] + pv[i - 1]))
+        .step_by(stride)
         .collect();
     if d2.len() < 10 {
         return None;
     }
     Some(robust_sd(&mut d2) / 6f64.sqrt())
+}
+
+/// The root-mean-square of PV − SP over the holds.
+fn pv_sd(series: &Series, holds: &[Hold]) -> Option<f64> {
+    let (sp, pv) = (series.sp(), series.pv());
+    let (sum, n) = holds.iter().fold((0.0, 0usize), |(s, n), h| {
+        let sq: f64 = (h.start..h.end).map(|i| (pv[i] - sp[i]).powi(2)).sum();
+        (s + sq, n + h.end - h.start)
+    });
+    (n > 0).then(|| (sum / n as f64).sqrt())
+}
+
+/// Robust statistics over the holds (a median, a median absolute deviation) take at most this
+/// many values: their standard error is then well below a percent, and a week at 1 Hz costs no
+/// more than an hour.
+const ROBUST_SAMPLES: usize = 50_000;
+
+/// The stride that takes at most [`ROBUST_SAMPLES`] samples of the holds, evenly spread.
+fn evenly(holds: &[Hold]) -> usize {
+    let n: usize = holds.iter().map(|h| h.end - h.start).sum();
+    n.div_ceil(ROBUST_SAMPLES).max(1)
 }
 
 /// The disturbances of one hold.
@@ -267,6 +367,7 @@ fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Dis
             recovery_time_s: recovered.map(|r| t[r] - t[start]),
             op_at_limit_frac: frac,
             verdict,
+            missed_spec: None,
         });
         i = stop.max(start + 1);
     }
@@ -396,10 +497,12 @@ fn cause_of(
     dead_time_s: Option<f64>,
 ) -> (Option<Cause>, String) {
     let (from, to) = (fit.from.max(h.start), fit.to.min(h.end));
-    let u = &series.op()[from..to];
-    let y = &series.pv()[from..to];
     let t = series.time_s();
     let dt = (t[to - 1] - t[from]) / (to - from - 1).max(1) as f64;
+    // The last CAUSE_PERIODS cycles are enough for the shape and keep the cost bounded.
+    let from = from.max(to.saturating_sub((CAUSE_PERIODS * fit.period_s / dt) as usize));
+    let u = &series.op()[from..to];
+    let y = &series.pv()[from..to];
     let max_lag = ((fit.period_s / dt) as usize).clamp(1, u.len() / 2);
     let xc = CrossCorrelation::new(u, y);
     let ccf = |lag: isize| xc.at(lag);
@@ -550,6 +653,7 @@ pub fn min_variance_index(
     let mut dts: Vec<f64> = holds
         .iter()
         .flat_map(|h| (h.start + 1..h.end).map(move |i| t[i] - t[i - 1]))
+        .step_by(evenly(holds))
         .collect();
     if dts.is_empty() {
         return None;
@@ -572,41 +676,67 @@ pub fn min_variance_index(
 
 /// η for zero-mean series (pooled), an AR(`order`) fit by least squares and `d` samples of
 /// dead time.
+///
+/// The least-squares normal equations are built from the lagged sums S(ℓ) = Σ y[m]·y[m−ℓ] over
+/// each whole series, less the few edge terms the regression leaves out, so the fit costs
+/// O(n·order) rather than O(n·order²) and equals the direct sums up to rounding.
 pub fn harris_index(series: &[Vec<f64>], order: usize, d: usize) -> Option<f64> {
     let p = order;
-    if p > MAX_AR_ORDER {
+    if p == 0 || p > MAX_AR_ORDER {
         return None;
     }
-    // Normal equations of y[k] = Σ a_i·y[k−i] + ε.
+    // Normal equations of y[k] = Σ a_i·y[k−1−i] + ε over k in p..n:
+    // m[i][j] = Σ_k y[k−1−i]·y[k−1−j], r[i] = Σ_k y[k−1−i]·y[k], s0 = Σ_k y[k]².
     let mut m = [[0.0; MAX_AR_ORDER]; MAX_AR_ORDER];
     let mut r = [0.0; MAX_AR_ORDER];
-    let (mut count, mut sum_sq) = (0usize, 0.0);
+    let (mut count, mut sum_sq, mut s0, mut n_res) = (0usize, 0.0, 0.0, 0usize);
     for y in series {
-        for k in p..y.len() {
-            for i in 0..p {
-                r[i] += y[k - i - 1] * y[k];
-                for j in 0..p {
-                    m[i][j] += y[k - i - 1] * y[k - j - 1];
+        let n = y.len();
+        sum_sq += y.iter().map(|v| v * v).sum::<f64>();
+        count += n;
+        if n <= p {
+            continue;
+        }
+        n_res += n - p;
+        // Partial lagged sum over later indices `from..=to`.
+        let part = |lag: usize, from: usize, to: usize| -> f64 {
+            (from.max(lag)..=to.min(n - 1))
+                .map(|k| y[k] * y[k - lag])
+                .sum()
+        };
+        let full: Vec<f64> = (0..=p)
+            .map(|lag| y[lag..].iter().zip(y).map(|(a, b)| a * b).sum())
+            .collect();
+        s0 += full[0] - part(0, 0, p - 1);
+        for i in 0..p {
+            // The later index k−1−i runs over p−1−i..=n−2−i.
+            r[i] += full[i + 1] - part(i + 1, 0, p - 1);
+            for (lag, full_lag) in full.iter().enumerate().take(p - i) {
+                let j = i + lag;
+                // Leave out the later indices below p−1−i and above n−2−i.
+                let below = if i + 2 <= p {
+                    part(lag, 0, p - 2 - i)
+                } else {
+                    0.0
+                };
+                let v = full_lag - below - part(lag, n - 1 - i, n - 1);
+                m[i][j] += v;
+                if lag > 0 {
+                    m[j][i] += v;
                 }
             }
         }
-        sum_sq += y.iter().map(|v| v * v).sum::<f64>();
-        count += y.len();
     }
-    if count < 10 * p {
+    if count < 10 * p || n_res == 0 {
         return None;
     }
     let a = solve(m, r, p)?;
-    // Residual variance.
-    let (mut res, mut n_res) = (0.0, 0usize);
-    for y in series {
-        for k in p..y.len() {
-            let pred: f64 = (0..p).map(|i| a[i] * y[k - i - 1]).sum();
-            res += (y[k] - pred).powi(2);
-            n_res += 1;
-        }
-    }
-    let var_a = res / n_res as f64;
+    // Residual sum of squares Σ(y − a·φ)² = s0 − 2·a·r + a·M·a.
+    let ar: f64 = (0..p).map(|i| a[i] * r[i]).sum();
+    let ama: f64 = (0..p)
+        .map(|i| a[i] * (0..p).map(|j| m[i][j] * a[j]).sum::<f64>())
+        .sum();
+    let var_a = ((s0 - 2.0 * ar + ama) / n_res as f64).max(0.0);
     let var_y = sum_sq / count as f64;
     // Impulse response of 1/(1 − Σ a_i q^−i): ψ0 = 1, ψk = Σ a_i ψ_{k−i}.
     let mut psi = vec![0.0; d];

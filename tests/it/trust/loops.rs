@@ -249,6 +249,8 @@ pub(super) fn random_loop(family: Family, rng: &mut Rng) -> TrustLoop {
             // Level loops commonly carry no overshoot limit (averaging level control; common
             // practice), and a PI on an integrating process overshoots a setpoint step.
             max_overshoot_pct: (family != Family::Integrating).then_some(MAX_OVERSHOOT_PCT),
+            hold_band: None,
+            recover_within_s: None,
         },
         hold_s,
     }
