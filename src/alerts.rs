@@ -34,10 +34,12 @@
 //! end advances, and not on acknowledgement (that happens in another process, the command
 //! line, which does not connect to the broker).
 
+use crate::analysis::regulation::{self, Disturbance, Oscillation};
 use crate::analysis::{CAUTION, EpisodeResult, Verdict};
 use crate::sample::Signal;
 use crate::store::{AlertInput, AlertRow};
 use crate::summary_format::{PRODUCT_VERSION, SCHEMA_VERSION};
+use crate::units::Units;
 use crate::units::{human_duration, ms_to_s, rfc3339, s_to_ms};
 use serde_json::{Map, Value, json};
 
@@ -49,6 +51,10 @@ pub enum AlertKind {
     Missed(Verdict),
     /// A signal the configuration expects has been silent for longer than its stale limit.
     StaleTag,
+    /// The loop cycles while its setpoint is held.
+    Oscillation,
+    /// A load disturbance met with the OP at its limit: more than the actuator can counter.
+    ActuatorLimitedDisturbance,
 }
 
 impl AlertKind {
@@ -57,6 +63,8 @@ impl AlertKind {
         match self {
             AlertKind::Missed(v) => v.as_str(),
             AlertKind::StaleTag => "stale_tag",
+            AlertKind::Oscillation => "oscillation",
+            AlertKind::ActuatorLimitedDisturbance => "actuator_limited_disturbance",
         }
     }
 
@@ -65,6 +73,8 @@ impl AlertKind {
         match self {
             AlertKind::Missed(v) => v.label(),
             AlertKind::StaleTag => "stale tag",
+            AlertKind::Oscillation => "oscillation",
+            AlertKind::ActuatorLimitedDisturbance => "actuator-limited disturbance",
         }
     }
 
@@ -75,8 +85,13 @@ impl AlertKind {
 
     /// The kind from its stored spelling.
     pub fn parse(stored: &str) -> Option<AlertKind> {
-        if stored == AlertKind::StaleTag.as_str() {
-            return Some(AlertKind::StaleTag);
+        let loop_wide = [
+            AlertKind::StaleTag,
+            AlertKind::Oscillation,
+            AlertKind::ActuatorLimitedDisturbance,
+        ];
+        if let Some(k) = loop_wide.into_iter().find(|k| k.as_str() == stored) {
+            return Some(k);
         }
         Verdict::ALL
             .into_iter()
@@ -242,6 +257,60 @@ pub fn stale_tag_returned(
     a
 }
 
+/// A sighting of an oscillation in a loop's held setpoint: one alert per spell, followed while
+/// it lasts, returned by [`oscillation_gone`]. `seen_ms` is the newest data time.
+pub fn oscillation(loop_tag: &str, o: &Oscillation, units: &Units, seen_ms: i64) -> AlertInput {
+    AlertInput {
+        loop_tag: loop_tag.to_string(),
+        kind: AlertKind::Oscillation.as_str().to_string(),
+        message: format!("{loop_tag}: {}", regulation::words::oscillation(o, units)),
+        evidence: serde_json::to_value(o).unwrap_or(Value::Null),
+        seen_ms,
+        since_ms: None,
+        change_start_ms: None,
+    }
+}
+
+/// The oscillation's spell is over: the recent held data show none.
+pub fn oscillation_gone(loop_tag: &str, seen_ms: i64) -> AlertInput {
+    AlertInput {
+        loop_tag: loop_tag.to_string(),
+        kind: AlertKind::Oscillation.as_str().to_string(),
+        message: format!("{loop_tag}: no oscillation in the recent held data any more"),
+        evidence: json!({ "detected": false }),
+        seen_ms,
+        since_ms: None,
+        change_start_ms: None,
+    }
+}
+
+/// A sighting of a disturbance met with the OP at its limit: one alert per disturbance, named by
+/// its start (`id_start_ms`), updated while it lasts (`ongoing`); once over it stays active until
+/// acknowledged, like a missed change (it did happen).
+pub fn actuator_limited_disturbance(
+    loop_tag: &str,
+    d: &Disturbance,
+    units: &Units,
+    id_start_ms: i64,
+    ongoing: bool,
+) -> AlertInput {
+    let state = if ongoing { "still going" } else { "over" };
+    let mut evidence = serde_json::to_value(d).unwrap_or(Value::Null);
+    evidence["ongoing"] = ongoing.into();
+    AlertInput {
+        loop_tag: loop_tag.to_string(),
+        kind: AlertKind::ActuatorLimitedDisturbance.as_str().to_string(),
+        message: format!(
+            "{loop_tag}: a load disturbance beyond what the actuator can counter ({state}): {};              no tuning could have held the PV",
+            regulation::words::disturbance(d, units)
+        ),
+        evidence,
+        seen_ms: s_to_ms(d.end_s),
+        since_ms: Some(id_start_ms),
+        change_start_ms: Some(id_start_ms),
+    }
+}
+
 /// The lifecycle of a stored alert in JSON: its state, the times of its span, when it was
 /// raised, when its condition went, and who acknowledged it when (RFC 3339).
 fn lifecycle(row: &AlertRow) -> Map<String, Value> {
@@ -340,14 +409,71 @@ mod tests {
         assert_eq!(k.label(), "actuator-limited");
         assert_eq!(AlertKind::StaleTag.as_str(), "stale_tag");
         assert_eq!(AlertKind::StaleTag.label(), "stale tag");
-        for k in Verdict::ALL
-            .map(AlertKind::Missed)
-            .into_iter()
-            .chain([AlertKind::StaleTag])
-        {
+        for k in Verdict::ALL.map(AlertKind::Missed).into_iter().chain([
+            AlertKind::StaleTag,
+            AlertKind::Oscillation,
+            AlertKind::ActuatorLimitedDisturbance,
+        ]) {
             assert_eq!(AlertKind::parse(k.as_str()), Some(k));
         }
         assert_eq!(AlertKind::parse("nonsense"), None);
+    }
+
+    #[test]
+    fn a_disturbance_alert_is_named_by_its_start_and_words_it_with_units() {
+        use crate::analysis::regulation::{DisturbanceVerdict, RecoveryLimit};
+        let d = Disturbance {
+            start_s: 1_800_000_000.0,
+            end_s: 1_800_000_900.0,
+            peak_deviation: -7.04,
+            recovery_time_s: None,
+            op_at_limit_frac: 0.85,
+            verdict: DisturbanceVerdict::ActuatorLimited,
+            missed_spec: Some(RecoveryLimit::ActuatorLimited),
+        };
+        let units = Units {
+            pv: "°C".into(),
+            op: "%".into(),
+        };
+        let id = 1_799_999_990_000;
+        let a = actuator_limited_disturbance("TIC-120", &d, &units, id, true);
+        assert_eq!(a.kind, "actuator_limited_disturbance");
+        assert_eq!((a.change_start_ms, a.since_ms), (Some(id), Some(id)));
+        assert_eq!(a.seen_ms, 1_800_000_900_000);
+        assert_eq!(a.evidence["ongoing"], true);
+        assert_eq!(a.evidence["verdict"], "actuator_limited");
+        assert!(a.message.contains("still going"), "{}", a.message);
+        assert!(a.message.contains("-7.04 °C from SP"), "{}", a.message);
+        assert!(a.message.contains("85.0 %"), "{}", a.message);
+        let over = actuator_limited_disturbance("TIC-120", &d, &units, id, false);
+        assert!(over.message.contains("(over)"), "{}", over.message);
+    }
+
+    #[test]
+    fn an_oscillation_is_a_loop_wide_spell_with_its_evidence() {
+        let o = Oscillation {
+            detected: true,
+            period_s: Some(120.0),
+            amplitude: Some(0.8),
+            likely_cause: Some(crate::analysis::regulation::Cause::Valve),
+            evidence: Some("the OP–PV cross-correlation is odd".into()),
+        };
+        let units = Units {
+            pv: "m³/h".into(),
+            op: "%".into(),
+        };
+        let a = oscillation("FIC-140", &o, &units, 5_000);
+        assert_eq!((a.kind.as_str(), a.change_start_ms), ("oscillation", None));
+        assert!(a.message.contains("period 2.0 min"), "{}", a.message);
+        assert!(a.message.contains("±0.800 m³/h"), "{}", a.message);
+        assert!(
+            a.message.contains("cross-correlation is odd"),
+            "{}",
+            a.message
+        );
+        assert_eq!(a.evidence["likely_cause"], "valve");
+        let gone = oscillation_gone("FIC-140", 9_000);
+        assert_eq!((gone.kind, gone.seen_ms), (a.kind, 9_000));
     }
 
     #[test]

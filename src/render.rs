@@ -88,7 +88,11 @@ pub fn text(report: &LoopReport, load: &LoadReport, out: &mut dyn Write) -> anyh
     }
     para(out, width, "  ", r.caution)?;
     writeln!(out)?;
-    writeln!(out, "Between setpoint changes:")?;
+    writeln!(
+        out,
+        "Between setpoint changes ({}):",
+        report.spec.hold_words(&report.units.pv)
+    )?;
     let dead_time_s = report.model.as_ref().map(|m| m.dead_time_s);
     for line in regulation::words::lines(&report.regulation, &report.units, dead_time_s) {
         para(out, width, "  ", &line)?;

@@ -79,6 +79,24 @@ impl Spec {
         }
     }
 
+    /// What the spec asks while the SP is held, for people: `held SP: away beyond 4σ of the PV
+    /// noise or ±0.3 °C, whichever is wider; recover within 20.0 min`.
+    pub fn hold_words(&self, pv_unit: &str) -> String {
+        let band = match self.hold_band {
+            Some(b) => format!(
+                "away beyond 4σ of the PV noise or ±{}, whichever is wider",
+                crate::units::quantity(b, pv_unit)
+            ),
+            None => "away beyond 4σ of the PV noise".to_owned(),
+        };
+        let recover = self
+            .recover_within_s
+            .map_or("no recovery time set".to_owned(), |r| {
+                format!("recover within {}", crate::units::human_duration(r))
+            });
+        format!("held SP: {band}; {recover}")
+    }
+
     /// Every problem with the spec's numbers, in the order of its fields.
     pub fn problems(&self) -> Vec<Problem> {
         let mut out = Vec::new();

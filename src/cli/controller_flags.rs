@@ -1,5 +1,5 @@
-//! The `analyze` flags that describe the loop beyond its spec: its units, its controller (form,
-//! units, today's settings) and its actuator's rating. Each flag takes the config file's
+//! The `analyze` flags that describe the loop beyond its spec's times: its units, its absolute
+//! bands, its controller (form, units, today's settings) and its actuator's rating. Each flag takes the config file's
 //! spelling, and wins over the loop's section in `--config`.
 
 use crate::analysis::controller::{
@@ -20,6 +20,14 @@ pub struct LoopFlags {
     /// Spec: settling band as ± this many PV units (replaces --settle-band-pct).
     #[arg(long, value_name = "PV")]
     pub settle_band: Option<f64>,
+    /// Spec between changes: the PV counts as away from a held SP beyond max(4σ of its noise,
+    /// this many PV units).
+    #[arg(long, value_name = "PV")]
+    pub hold_band: Option<f64>,
+    /// Spec between changes: a load disturbance must be recovered from within this many
+    /// seconds.
+    #[arg(long, value_name = "SECONDS")]
+    pub recover_within_s: Option<f64>,
 
     /// The controller's form: ideal, parallel or series.
     #[arg(long, value_name = "FORM", value_parser = word::<Form>)]
@@ -87,6 +95,12 @@ impl LoopFlags {
         }
         if let Some(b) = self.settle_band {
             setup.spec.settle_band = Some(b);
+        }
+        if let Some(b) = self.hold_band {
+            setup.spec.hold_band = Some(b);
+        }
+        if let Some(r) = self.recover_within_s {
+            setup.spec.recover_within_s = Some(r);
         }
         if let (Some(rating), Some(unit)) = (self.actuator_rating, &self.actuator_unit) {
             setup.actuator = Some(ActuatorRating {

@@ -172,6 +172,7 @@ fn write_loop(o: &mut String, tag: &str, l: &LoopConfig) -> Result {
         Some(p) => writeln!(o, ", overshoot at most {p} %")?,
         None => writeln!(o, ", no overshoot limit")?,
     }
+    writeln!(o, "    {}", l.spec.hold_words(&l.pv_unit))?;
     if let Some(c) = &l.controller {
         write!(
             o,

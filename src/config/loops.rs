@@ -286,6 +286,27 @@ mod tests {
         assert!(err.starts_with("p.toml:7:"), "{err}");
     }
 
+    #[test]
+    fn the_regulation_spec_is_read_and_checked_in_the_spec_table() {
+        let with = |extra: &str| {
+            GOOD.replace(
+                "settle_within_s = 900",
+                &format!("settle_within_s = 900\n{extra}"),
+            )
+        };
+        let text = with("hold_band = 0.3\nrecover_within_s = 1200");
+        let cfg = crate::config::Config::parse(&text, "p.toml".as_ref()).expect("valid");
+        let spec = cfg.loops["TIC-101"].spec;
+        assert_eq!(
+            (spec.hold_band, spec.recover_within_s),
+            (Some(0.3), Some(1200.0))
+        );
+        let err = refusal_in(&with("hold_band = -0.3"), "p.toml");
+        assert!(err.contains("spec.hold_band"), "{err}");
+        let err = refusal_in(&with("recover_within_s = 0"), "p.toml");
+        assert!(err.contains("spec.recover_within_s"), "{err}");
+    }
+
     const DESCRIBED: &str = r#"
 [loops.TIC-101.controller]
 form = "series"

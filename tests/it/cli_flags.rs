@@ -37,8 +37,10 @@ fn analyze_refuses_numbers_the_core_cannot_use_naming_the_flag() {
     let dir = tempfile::tempdir().unwrap();
     let csv = small_csv(dir.path());
     let spec = ["--settle-within-s", "600"];
-    let cases: [(&[&str], &str); 7] = [
+    let cases: [(&[&str], &str); 9] = [
         (&["--max-gap-s=-5"], "--max-gap-s"),
+        (&["--hold-band", "0"], "--hold-band"),
+        (&["--recover-within-s=nan"], "--recover-within-s"),
         (&["--sp-deadband=-1"], "--sp-deadband"),
         (&["--settle-band-pct", "0"], "--settle-band-pct"),
         (&["--settle-band-pct", "100"], "--settle-band-pct"),

@@ -27,6 +27,7 @@ mod daemon_end_to_end;
 mod daemon_malformed;
 mod daemon_modbus;
 mod daemon_overload;
+mod daemon_regulation;
 mod daemon_shutdown;
 mod daemon_sigkill;
 mod daemon_stale;

@@ -5,7 +5,7 @@
 
 use crate::alerts::{self, Silent};
 use crate::analysis::assess::EpisodeResult;
-use crate::analysis::live::{Aligner, LiveEvent, LoopTracker, Row};
+use crate::analysis::live::{Aligner, LiveEvent, LoopTracker, RegulationEvent, Row};
 use crate::analysis::{LoopSetup, Model};
 use crate::mqtt::source::Outbound;
 use crate::sample::{Sample, Signal};
@@ -522,6 +522,49 @@ impl Writer {
             LiveEvent::Provisional(r) => {
                 self.store_episode(tag, &r, false, now).await;
             }
+            LiveEvent::Regulation(e) => self.regulation_news(tag, e).await,
+        }
+    }
+
+    /// Raises, follows and returns the regulation alerts: an oscillation's spell, and each load
+    /// disturbance the actuator could not counter.
+    async fn regulation_news(&mut self, tag: &Arc<str>, event: RegulationEvent) {
+        let Some(units) = self
+            .loops
+            .get(tag)
+            .map(|rt| rt.tracker.setup().units.clone())
+        else {
+            return;
+        };
+        let newest = self
+            .clock
+            .newest_ms
+            .unwrap_or_else(|| jiff::Timestamp::now().as_millisecond());
+        match event {
+            RegulationEvent::Oscillating(o) => {
+                tracing::warn!(loop_tag = %tag, period_s = o.period_s, amplitude = o.amplitude, "oscillation found");
+                self.raise(alerts::oscillation(tag, &o, &units, newest), true)
+                    .await;
+            }
+            RegulationEvent::OscillationGone { at_s } => {
+                self.settle(alerts::oscillation_gone(tag, s_to_ms(at_s)))
+                    .await;
+            }
+            RegulationEvent::ActuatorLimited {
+                disturbance,
+                ongoing,
+                id_start_s,
+            } => {
+                let alert = alerts::actuator_limited_disturbance(
+                    tag,
+                    &disturbance,
+                    &units,
+                    s_to_ms(id_start_s),
+                    ongoing,
+                );
+                // Published when raised and when over; quietly followed in between.
+                self.raise(alert, !ongoing).await;
+            }
         }
     }
 
@@ -561,7 +604,7 @@ impl Writer {
                 if row.is_new {
                     self.counters.alerts_raised += 1;
                 }
-                if announce {
+                if announce || row.is_new {
                     let what = if row.is_new { "raised" } else { "updated" };
                     tracing::warn!(alert_id = row.id, loop_tag = %tag, kind, state = row.state.as_str(), "alert {what}: {}", row.message);
                     self.announce(&row).await;

@@ -7,7 +7,12 @@
 //! buffer of rows and, after each batch, runs the same segmentation, scoring, identification and
 //! judging as the offline analysis: an episode is final once its window has closed (next change,
 //! gap, manual, horizon), and reported early as provisional when it has already missed its spec
-//! while its window is still open.
+//! while its window is still open. Between changes, [`RegulationWatch`] runs the regulation core
+//! on the buffered holds.
+
+mod regulation;
+
+pub use regulation::{RegulationEvent, RegulationWatch};
 
 use super::assess::{self, Beaten, Knowledge, ModelSet, PoolEntry};
 use super::identify::Model;
@@ -171,6 +176,8 @@ pub enum LiveEvent {
     Provisional(EpisodeResult),
     /// The loop's model was re-identified with the latest episode.
     Model(Model),
+    /// News of how the loop holds its setpoint between changes.
+    Regulation(RegulationEvent),
 }
 
 /// Tracks one loop live.
@@ -191,6 +198,8 @@ pub struct LoopTracker {
     evaluated_to: f64,
     /// Whether an SP move arrived since the last evaluation.
     sp_moved: bool,
+    /// What the regulation watch has reported so far.
+    regulation: RegulationWatch,
 }
 
 /// At most this many episodes are kept for identification; the oldest drop out, so a drifting
@@ -212,6 +221,7 @@ impl LoopTracker {
             max_abs_sp: 0.0,
             evaluated_to: f64::NEG_INFINITY,
             sp_moved: false,
+            regulation: RegulationWatch::default(),
         }
     }
 
@@ -354,6 +364,13 @@ impl LoopTracker {
                 }
             }
         }
+        let model = self.models.as_ref().map(|ms| &ms.model);
+        events.extend(
+            self.regulation
+                .evaluate(&series, &seg, &settings, &self.setup, model)
+                .into_iter()
+                .map(LiveEvent::Regulation),
+        );
         self.trim(&series, keep_from);
         events
     }
@@ -455,7 +472,7 @@ mod tests {
                 match e {
                     LiveEvent::Final(r) => finals.push(r),
                     LiveEvent::Provisional(r) => provisional.push(r),
-                    LiveEvent::Model(_) => {}
+                    LiveEvent::Model(_) | LiveEvent::Regulation(_) => {}
                 }
             }
         }
