@@ -288,7 +288,7 @@ fn incomplete(inputs: &Inputs, period: &Period) -> Option<String> {
     })
 }
 
-const DEFINITIONS: [Definition; 6] = [
+const DEFINITIONS: [Definition; 9] = [
     Definition {
         term: "settling time",
         meaning: "from the setpoint change until the PV stays inside the band (± the spec's \
@@ -314,6 +314,24 @@ const DEFINITIONS: [Definition; 6] = [
         term: "model",
         meaning: "first order plus dead time fitted to the loop's own OP → PV data: gain K, \
                   time constant τ, dead time θ",
+    },
+    Definition {
+        term: "hold band",
+        meaning: "while the setpoint is held (after a change has settled, until the next one), \
+                  ± the larger of four standard deviations of the PV noise and the configured \
+                  hold band around the setpoint; the regulation figures are over these holds only",
+    },
+    Definition {
+        term: "load disturbance",
+        meaning: "the PV out of the hold band for at least three samples, until it stays inside \
+                  for a minute; actuator-limited when the OP sat at a limit for at least 30 % of \
+                  it, so no tuning could have held the PV",
+    },
+    Definition {
+        term: "Harris index",
+        meaning: "the minimum-variance index: the PV variance the best possible controller would \
+                  leave, given the process dead time, over the PV variance seen (1 = as good as \
+                  any controller can do; near 0 = much room to improve)",
     },
     Definition {
         term: "ranking",

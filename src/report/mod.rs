@@ -3,12 +3,13 @@
 //!
 //! ```text
 //!  store ──gather (reads, the only async part)──> build::Inputs ──build (pure)──> WeeklyReport
-//!                                                                   │ + plot (pure, SVG)
+//!    └─ each loop-week's samples ──reanalysis (core, off the runtime)─┘  │ + plot (pure, SVG)
 //!                                                                   └─> render: html | md | json
 //! ```
 //!
 //! Numbers come from the stored episodes and models and from the analysis core's functions
-//! (`recommend`, `feasibility`), never from a second copy of a definition. `headroom report`
+//! (`recommend`, `feasibility`, and `assess` with `regulation` on each loop-week's stored
+//! samples, [`reanalysis`]), never from a second copy of a definition. `headroom report`
 //! prints or writes a summary; the daemon generates one each week on the schedule in
 //! `[report]` ([`schedule`]), keeps it in the store and writes it to the configured folder.
 
@@ -18,6 +19,8 @@ pub mod period;
 pub mod plot;
 pub mod quality;
 pub mod ranking;
+pub mod reanalysis;
+pub mod regulation;
 pub mod render;
 pub mod schedule;
 pub mod section;
@@ -33,7 +36,7 @@ use crate::config::Config;
 use crate::sample::Signal;
 use crate::store::Store;
 use jiff::Timestamp;
-use std::collections::BTreeSet;
+use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
 
 /// Why a summary could not be made or written.
@@ -83,11 +86,22 @@ pub async fn gather(
     tags.extend(series.iter().map(|(t, _)| t.clone()));
 
     let mut loops = Vec::new();
+    // The samples around each loop's largest disturbance of the period, for its plot.
+    let mut disturbances = BTreeMap::new();
     for tag in tags {
         let cfg = config.and_then(|c| c.loops.get(&tag));
         let setup = cfg.and_then(|l| l.setup(&tag).ok());
         let coverage = coverage(store, setup.as_ref(), &tag, &series, period).await?;
-        loops.push(loop_input(tag, cfg, setup, coverage, &episodes, &models));
+        let mut input = loop_input(tag, cfg, setup, coverage, &episodes, &models);
+        if let Some(setup) = &input.setup {
+            let (runs, worst) =
+                reanalysis::regulation_runs(store, setup, &input.models, &periods).await?;
+            input.regulation = runs;
+            if let Some(samples) = worst {
+                disturbances.insert(input.tag.clone(), samples);
+            }
+        }
+        loops.push(input);
     }
     let inputs = Inputs {
         periods,
@@ -101,6 +115,7 @@ pub async fn gather(
     };
     let mut report = build(&inputs);
     draw(store, &mut report, &inputs).await?;
+    draw_disturbances(&mut report, &disturbances);
     Ok(report)
 }
 
@@ -165,6 +180,7 @@ fn loop_input(
             .collect(),
         coverage,
         configured: cfg.is_some(),
+        regulation: Vec::new(),
         tag,
     }
 }
@@ -179,12 +195,12 @@ async fn draw(
         let input = inputs.loops.iter().find(|l| l.tag == section.tag);
         let setup = input.and_then(|l| l.setup.as_ref());
         if section.trend.iter().any(|w| w.met_share.is_some()) {
-            match plot::trend_svg(&section.trend, section.spec.as_ref()) {
-                Ok(svg) => section.trend_svg = Some(svg),
-                Err(e) => section
-                    .notes
-                    .push(format!("The trend could not be drawn: {e}")),
-            }
+            place(
+                plot::trend_svg(&section.trend, section.spec.as_ref()),
+                &mut section.trend_svg,
+                &mut section.notes,
+                "The trend",
+            );
         }
         let Some(t) = &section.telling else { continue };
         let from = t.start_ms - evidence::lead_in_ms(t.end_ms - t.start_ms);
@@ -208,7 +224,7 @@ async fn draw(
         let margin = setup.map_or(AnalysisOptions::DEFAULT_SATURATION_MARGIN_PCT, |s| {
             s.options.saturation_margin_pct
         });
-        match plot::episode_svg(
+        let drawn = plot::episode_svg(
             t,
             section.spec.as_ref(),
             section.op_range.as_ref(),
@@ -218,14 +234,57 @@ async fn draw(
                 pv: &section.pv_unit,
                 op: &section.op_unit,
             },
-        ) {
-            Ok(svg) => section.episode_svg = Some(svg),
-            Err(e) => section
-                .notes
-                .push(format!("The telling change could not be drawn: {e}")),
-        }
+        );
+        place(
+            drawn,
+            &mut section.episode_svg,
+            &mut section.notes,
+            "The telling change",
+        );
     }
     Ok(())
+}
+
+/// Adds the plot of each loop's largest load disturbance of the period, from the samples kept
+/// around it when its regulation was analysed.
+fn draw_disturbances(report: &mut WeeklyReport, samples: &BTreeMap<String, plot::EpisodeSamples>) {
+    for section in &mut report.loops {
+        let (Some(r), Some(s)) = (&section.regulation, samples.get(&section.tag)) else {
+            continue;
+        };
+        let Some(worst) = r.largest_disturbances.first() else {
+            continue;
+        };
+        let drawn = plot::disturbance_svg(
+            &worst.disturbance,
+            r.run.regulation.hold_band,
+            section.op_range.as_ref(),
+            s,
+            &plot::PlotUnits {
+                pv: &section.pv_unit,
+                op: &section.op_unit,
+            },
+        );
+        place(
+            drawn,
+            &mut section.disturbance_svg,
+            &mut section.notes,
+            "The largest disturbance",
+        );
+    }
+}
+
+/// Puts a drawn picture in its place, or a note that `what` could not be drawn.
+fn place(
+    drawn: Result<String, plot::PlotError>,
+    slot: &mut Option<String>,
+    notes: &mut Vec<String>,
+    what: &str,
+) {
+    match drawn {
+        Ok(svg) => *slot = Some(svg),
+        Err(e) => notes.push(format!("{what} could not be drawn: {e}")),
+    }
 }
 
 /// The default period of `headroom report`: the last ISO week that ended by the newest data in

@@ -9,8 +9,8 @@ use jiff::tz::TimeZone;
 
 /// The data-quality line when no configuration was given.
 pub(super) const NO_CONFIG: &str = "No configuration was given: the loops' specs and OP ranges \
-are unknown, so settling times stand without their spec and no recommendation is made. Run with \
---config.";
+are unknown, so settling times stand without their spec, no recommendation is made and the \
+regulation between setpoint changes is not analysed. Run with --config.";
 
 /// "was" for one, "were" for more.
 fn were(n: usize) -> &'static str {

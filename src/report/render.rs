@@ -45,6 +45,7 @@ pub fn render(report: &WeeklyReport, format: Format) -> Result<String, RenderErr
             let v = context! {
                 episode => safe(&l.episode_svg),
                 trend => safe(&l.trend_svg),
+                disturbance => safe(&l.disturbance_svg),
             };
             (l.tag.as_str(), v)
         })

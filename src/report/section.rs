@@ -5,6 +5,7 @@
 use super::evidence::{self, Sources, UnreachableChange, WorstMiss};
 use super::period::{Period, local};
 use super::quality::{self, LoopFacts};
+use super::regulation::{self, RegulationRun, RegulationSection};
 use super::trend::{self, Episode, TrendRow, TrendWeek, WeekStats};
 use crate::analysis::advice::{Action, Recommendation, recommend};
 use crate::analysis::{EpisodeResult, Fopdt, LoopSetup, OpRange, Spec, Verdict};
@@ -33,6 +34,9 @@ pub struct LoopInput {
     pub coverage: Vec<SeriesCoverage>,
     /// Whether the loop is in the configuration (false: only in the store).
     pub configured: bool,
+    /// The regulation analysis of each period (as `Inputs::periods`, oldest first; `None` for
+    /// a period without samples); empty when the loop was not analysed (no setup).
+    pub regulation: Vec<Option<RegulationRun>>,
 }
 
 /// What a loop needs, in the summary's words. The order is the ranking's order of urgency.
@@ -149,8 +153,15 @@ pub struct LoopSection {
     pub trend: Vec<TrendWeek>,
     /// The trend for people: weeks without changes run together into one line.
     pub trend_rows: Vec<TrendRow>,
+    /// How the loop held its setpoint between changes; `None` with `regulation_missing` saying
+    /// why.
+    pub regulation: Option<RegulationSection>,
+    pub regulation_missing: Option<&'static str>,
     /// Plain sentences about what is missing or odd (no changes, no model, no spec...).
     pub notes: Vec<String>,
+    /// Inline SVG of the largest load disturbance (HTML only).
+    #[serde(skip)]
+    pub disturbance_svg: Option<String>,
     /// Inline SVG of the telling episode (HTML only).
     #[serde(skip)]
     pub episode_svg: Option<String>,
@@ -325,6 +336,12 @@ pub(super) fn build_loop(
         telling_episode(e, why, m.map(|m| m.model().fopdt()), &l.pv_unit, tz)
     });
     let trend = trend::trend(&episodes, periods, &l.models);
+    let recover_within_s = l.setup.as_ref().and_then(|s| s.spec.recover_within_s);
+    let (regulation, regulation_missing) =
+        match regulation::section(&l.regulation, periods, recover_within_s, &units, tz) {
+            Ok(r) => (Some(r), None),
+            Err(why) => (None, Some(why)),
+        };
     LoopSection {
         tag: l.tag.clone(),
         description: l.description.clone(),
@@ -361,7 +378,10 @@ pub(super) fn build_loop(
         watch: watch_list(&week, &l.pv_unit, tz),
         trend_rows: trend::rows(&trend),
         trend,
+        regulation,
+        regulation_missing,
         notes,
+        disturbance_svg: None,
         episode_svg: None,
         trend_svg: None,
     }

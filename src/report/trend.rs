@@ -94,54 +94,74 @@ pub struct TrendWeek {
     pub dead_time_s: Option<f64>,
 }
 
-/// One line of the trend for people: a week with changes, or a run of weeks without any told in
-/// one line instead of empty rows.
+/// One line of a trend for people: a week, or a run of quiet weeks told in one line instead of
+/// empty rows.
 #[derive(Debug, Clone, Serialize)]
-pub struct TrendRow {
-    /// The week, when it had changes.
-    pub week: Option<TrendWeek>,
-    /// For a run of weeks without changes: `no setpoint changes from 2026-W41 to 2026-W45
-    /// (5 weeks)`, or `no setpoint changes in 2026-W47`.
+pub struct WeekRow<T> {
+    /// The week, when it was not quiet.
+    pub week: Option<T>,
+    /// For a run of quiet weeks: `no setpoint changes from 2026-W41 to 2026-W45 (5 weeks)`, or
+    /// `no setpoint changes in 2026-W47`.
     pub quiet: Option<String>,
 }
+
+/// A line of the changes' trend: a week with changes, or a run of weeks without any.
+pub type TrendRow = WeekRow<TrendWeek>;
 
 /// The trend's weeks for people, oldest first: each run of weeks without changes collapsed
 /// into one line.
 pub(super) fn rows(weeks: &[TrendWeek]) -> Vec<TrendRow> {
+    collapse(
+        weeks,
+        |w| w.changes == 0,
+        |w| (&w.label, &w.ends),
+        "no setpoint changes",
+    )
+}
+
+/// Weeks for people, oldest first, each run of quiet weeks told in one line: `{none} in
+/// 2026-W47`, or `{none} from 2026-W41 to 2026-W45 (5 weeks)`. `label_ends` gives a week's
+/// label and how it reads at the start and the end of a run ([`Period::ends`]).
+pub(super) fn collapse<T: Clone>(
+    weeks: &[T],
+    quiet: impl Fn(&T) -> bool,
+    label_ends: impl Fn(&T) -> (&String, &(String, String)),
+    none: &str,
+) -> Vec<WeekRow<T>> {
     let mut out = Vec::new();
-    let mut quiet: Vec<&TrendWeek> = Vec::new();
-    let flush = |quiet: &mut Vec<&TrendWeek>, out: &mut Vec<TrendRow>| {
-        let words = match quiet.as_slice() {
+    let mut run: Vec<&T> = Vec::new();
+    let flush = |run: &mut Vec<&T>, out: &mut Vec<WeekRow<T>>| {
+        let words = match run.as_slice() {
             [] => return,
-            [one] if one.ends.0 == one.ends.1 => {
-                format!("no setpoint changes in {}", one.label)
-            }
-            [one] => format!("no setpoint changes from {} to {}", one.ends.0, one.ends.1),
+            [one] => match label_ends(one) {
+                (label, (from, to)) if from == to => format!("{none} in {label}"),
+                (_, (from, to)) => format!("{none} from {from} to {to}"),
+            },
             [first, .., last] => format!(
-                "no setpoint changes from {} to {} ({} weeks)",
-                first.ends.0,
-                last.ends.1,
-                quiet.len()
+                "{none} from {} to {} ({} weeks)",
+                label_ends(first).1.0,
+                label_ends(last).1.1,
+                run.len()
             ),
         };
-        out.push(TrendRow {
+        out.push(WeekRow {
             week: None,
             quiet: Some(words),
         });
-        quiet.clear();
+        run.clear();
     };
     for w in weeks {
-        if w.changes == 0 {
-            quiet.push(w);
+        if quiet(w) {
+            run.push(w);
         } else {
-            flush(&mut quiet, &mut out);
-            out.push(TrendRow {
+            flush(&mut run, &mut out);
+            out.push(WeekRow {
                 week: Some(w.clone()),
                 quiet: None,
             });
         }
     }
-    flush(&mut quiet, &mut out);
+    flush(&mut run, &mut out);
     out
 }
 

@@ -35,3 +35,4 @@ mod daemon_tls;
 mod queries;
 mod report;
 mod report_evidence;
+mod report_regulation;

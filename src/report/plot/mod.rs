@@ -1,6 +1,7 @@
-//! The summary's two pictures, drawn with plotters into SVG strings: one setpoint change (SP,
-//! PV inside its spec band, the spec time, the fastest possible response t*, and the OP with
-//! its limits and the stretches it spent at one), and a loop's eight-week trend.
+//! The summary's pictures, drawn with plotters into SVG strings: one setpoint change (SP, PV
+//! inside its spec band, the spec time, the fastest possible response t*, and the OP with its
+//! limits and the stretches it spent at one), one load disturbance (SP, PV in the hold band, and
+//! the same OP panel), and a loop's eight-week trend.
 //!
 //! Pure: samples in, SVG text out. Colours are our own palette (see `report/templates`); every
 //! series is also told apart by line style and named in a legend, so a grey-scale print or a
@@ -13,8 +14,11 @@ use crate::units::{fraction_to_pct, human_duration, pct_to_fraction, quantity};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
+mod disturbance;
+pub use disturbance::disturbance_svg;
+
 /// The stored samples around one change: (ms since the epoch, value), oldest first.
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone, Default, PartialEq)]
 pub struct EpisodeSamples {
     pub sp: Vec<(i64, f64)>,
     pub pv: Vec<(i64, f64)>,
@@ -100,7 +104,7 @@ pub fn episode_svg(
 #[derive(Debug, thiserror::Error)]
 #[error("{source}")]
 pub struct PlotError {
-    /// Which picture: `change` or `trend`.
+    /// Which picture: `change`, `disturbance` or `trend`.
     pub picture: &'static str,
     source: DrawError,
 }
@@ -214,28 +218,8 @@ fn draw_pv_panel(
 ) -> DrawResult {
     let band = spec.map(|sp| sp.band_abs(e.sp_to - e.sp_from));
     let (lo, hi) = pv_axis(e, band, &p);
-    let pv_label = if pv_unit.is_empty() {
-        "SP, PV".to_string()
-    } else {
-        format!("SP, PV ({pv_unit})")
-    };
     let x_end = xs.end;
-    let mut chart = ChartBuilder::on(area)
-        .margin_top(10)
-        .margin_right(16)
-        .x_label_area_size(24)
-        .y_label_area_size(64)
-        .build_cartesian_2d(xs, lo..hi)?;
-    chart
-        .configure_mesh()
-        .light_line_style(WHITE)
-        .bold_line_style(GRID_BOLD)
-        .y_desc(pv_label)
-        .label_style((FONT, 14).into_font().color(&INK))
-        .axis_desc_style((FONT, 15).into_font().color(&INK))
-        .x_labels(10)
-        .y_labels(6)
-        .draw()?;
+    let mut chart = pv_chart(area, xs, lo..hi, pv_unit)?;
     if let Some(w) = band {
         chart
             .draw_series(std::iter::once(Rectangle::new(
@@ -295,6 +279,37 @@ fn draw_pv_panel(
     draw_legend(&mut chart)
 }
 
+/// The axes and grid of an upper panel, SP and PV over time.
+fn pv_chart<'a, 'b>(
+    area: &'a DrawingArea<SVGBackend<'b>, Shift>,
+    xs: std::ops::Range<f64>,
+    ys: std::ops::Range<f64>,
+    pv_unit: &str,
+) -> Result<Chart<'a, 'b>, DrawError> {
+    let pv_label = if pv_unit.is_empty() {
+        "SP, PV".to_string()
+    } else {
+        format!("SP, PV ({pv_unit})")
+    };
+    let mut chart = ChartBuilder::on(area)
+        .margin_top(10)
+        .margin_right(16)
+        .x_label_area_size(24)
+        .y_label_area_size(64)
+        .build_cartesian_2d(xs, ys)?;
+    chart
+        .configure_mesh()
+        .light_line_style(WHITE)
+        .bold_line_style(GRID_BOLD)
+        .y_desc(pv_label)
+        .label_style((FONT, 14).into_font().color(&INK))
+        .axis_desc_style((FONT, 15).into_font().color(&INK))
+        .x_labels(10)
+        .y_labels(6)
+        .draw()?;
+    Ok(chart)
+}
+
 /// The lower panel: OP with its limits and the stretches spent at one.
 fn draw_op_panel(
     area: &DrawingArea<SVGBackend, Shift>,
@@ -306,11 +321,8 @@ fn draw_op_panel(
 ) -> DrawResult {
     let (op_lo, op_hi) = match op {
         Some(r) => (r.min, r.max),
-        None => op_pts
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), (_, y)| {
-                (a.min(*y), b.max(*y))
-            }),
+        // Without a range or samples, the usual one keeps the axes drawable.
+        None => value_range(&op_pts).unwrap_or((OpRange::DEFAULT.min, OpRange::DEFAULT.max)),
     };
     let op_pad = 0.06 * (op_hi - op_lo).abs().max(1e-6);
     let (x_start, x_end) = (xs.start, xs.end);
@@ -367,6 +379,13 @@ fn draw_op_panel(
     }
     line(&mut chart, op_pts, OP_COLOUR.stroke_width(2), "OP")?;
     draw_legend(&mut chart)
+}
+
+/// The lowest and highest value of some points, `None` for none.
+fn value_range<'p>(points: impl IntoIterator<Item = &'p (f64, f64)>) -> Option<(f64, f64)> {
+    points.into_iter().fold(None, |r, (_, y)| {
+        Some(r.map_or((*y, *y), |(lo, hi): (f64, f64)| (lo.min(*y), hi.max(*y))))
+    })
 }
 
 /// A solid line with its legend entry.
