@@ -15,8 +15,9 @@
 //! autocorrelation of Miao & Seborg (1999, ≥ 0.5 is excessively oscillatory — from memory).
 //!
 //! **Period and amplitude**: the counted stretch is cut into cycles where the error rises
-//! through the upper threshold of a hysteresis — half the counted half-cycles' typical peak, at
-//! least half the hold band — so noise near zero does not cut a cycle up. The period is the
+//! through the upper threshold of a hysteresis — on each side half the typical peak of the
+//! counted half-cycles there, at least half the hold band — so noise near zero does not cut a
+//! cycle up. The period is the
 //! stretch's length over its number of cycles; the amplitude the median half peak-to-peak swing
 //! per cycle, read on the error smoothed over a twentieth of the cycle (a sine loses under 1 %
 //! to that, the noise most of its spread).
@@ -92,8 +93,9 @@ struct HalfCycle {
     start: usize,
     end: usize,
     duration: f64,
-    /// Its largest |error|.
+    /// Its largest |error|, and whether the error is positive in it (PV below SP).
     peak: f64,
+    positive: bool,
     /// Whether its IAE exceeds that of a sine of the acceptable amplitude.
     large: bool,
 }
@@ -136,6 +138,7 @@ fn half_cycles(series: &Series, h: &Hold, band: f64) -> Vec<HalfCycle> {
                 end: b,
                 duration,
                 peak: (a..b).map(|i| e(i).abs()).fold(0.0, f64::max),
+                positive: e(a) > 0.0,
                 large: iae > 2.0 * band * duration / std::f64::consts::PI,
             }
         })
@@ -171,24 +174,20 @@ fn forgetting_count(
     (best, first, last)
 }
 
-/// The cycles of the error in samples `[from, to)`: from each rise through `+hyst` (after the
-/// error was below `−hyst`) to the next.
-fn cycles(series: &Series, from: usize, to: usize, hyst: f64) -> Vec<Cycle> {
+/// The cycles of the error in samples `[from, to)`: from each rise through `+up` (after the
+/// error was below `−down`) to the next.
+fn cycles(series: &Series, from: usize, to: usize, up: f64, down: f64) -> Vec<Cycle> {
     let (t, sp, pv) = (series.time_s(), series.sp(), series.pv());
     let e = |i: usize| sp[i] - pv[i];
     let mut rises: Vec<(usize, f64)> = Vec::new();
     let mut low = false;
     for i in from.max(1)..to {
-        if e(i) <= -hyst {
+        if e(i) <= -down {
             low = true;
-        } else if low && e(i) >= hyst {
+        } else if low && e(i) >= up {
             low = false;
             let (e0, e1) = (e(i - 1), e(i));
-            let frac = if e1 > e0 {
-                (hyst - e0) / (e1 - e0)
-            } else {
-                1.0
-            };
+            let frac = if e1 > e0 { (up - e0) / (e1 - e0) } else { 1.0 };
             rises.push((i, t[i - 1] + (t[i] - t[i - 1]) * frac.clamp(0.0, 1.0)));
         }
     }
@@ -257,11 +256,17 @@ pub(super) fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<Osc
         return None;
     }
     let (from, to) = (large[first].start, large[last].end);
-    // The hysteresis: half the typical peak of the counted half-cycles (a sine crosses it at
-    // 30°, steeply), and at least half the hold band (twice the noise).
-    let mut peaks: Vec<f64> = large[first..=last].iter().map(|hc| hc.peak).collect();
-    let hyst = (0.5 * median_in_place(&mut peaks)).max(band / 2.0);
-    let cycles = cycles(series, from, to, hyst);
+    // The hysteresis either side: half the typical peak of the counted half-cycles on that side
+    // (a sine crosses it at 30°, steeply), and at least half the hold band (twice the noise).
+    let threshold = |positive: bool| {
+        let mut peaks: Vec<f64> = large[first..=last]
+            .iter()
+            .filter(|hc| hc.positive == positive)
+            .map(|hc| hc.peak)
+            .collect();
+        (0.5 * median_in_place(&mut peaks)).max(band / 2.0)
+    };
+    let cycles = cycles(series, from, to, threshold(true), threshold(false));
     let (first_cycle, last_cycle) = (cycles.first()?, cycles.last()?);
     let period_s = (last_cycle.t_to - first_cycle.t_from) / cycles.len() as f64;
     let dt = (t[to - 1] - t[from]) / (to - from - 1).max(1) as f64;

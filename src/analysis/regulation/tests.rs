@@ -426,3 +426,27 @@ fn random_loads_through_a_resonant_loop_are_not_an_oscillation() {
         assert!(!r.oscillation.detected, "seed {seed}: {:?}", r.oscillation);
     }
 }
+
+#[test]
+fn a_lopsided_cycle_keeps_its_period() {
+    // Swings of 3 to one side of SP and 0.6 to the other (an OP clipped on one side, say): each
+    // side's hysteresis follows its own peaks, so no cycle is missed, whichever side is larger.
+    for side in [1.0, -1.0] {
+        let lopsided = |phase: f64| {
+            let s = side * sine(phase);
+            side * if s > 0.0 { 3.0 * s } else { 0.6 * s }
+        };
+        let s = shaped(lopsided, |d| 40.0 - 5.0 * d);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        let o = &r.oscillation;
+        assert!(o.detected, "side {side}");
+        assert!(
+            (o.period_s.unwrap() - 200.0).abs() < 2.0,
+            "side {side}: {o:?}"
+        );
+        assert!(
+            (o.amplitude.unwrap() - 1.8).abs() < 0.1,
+            "side {side}: {o:?}"
+        );
+    }
+}
