@@ -15,6 +15,7 @@ mod example_data;
 mod historian;
 mod mode_rule;
 mod reference_python;
+mod regulation_corpus;
 mod retune_corpus;
 mod scenarios;
 mod trust;
