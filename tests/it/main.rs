@@ -16,6 +16,7 @@ mod historian;
 mod mode_rule;
 mod reference_python;
 mod regulation_corpus;
+mod regulation_reference;
 mod retune_corpus;
 mod scenarios;
 mod trust;

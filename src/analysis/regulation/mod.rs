@@ -207,9 +207,9 @@ const RECOVERED_AFTER_S: f64 = 60.0;
 const AT_LIMIT_SHARE: f64 = 0.3;
 /// A reversal of the OP counts when it moves back by more than this share of its span.
 const REVERSAL_SHARE: f64 = 0.001;
-/// AR order of the minimum-variance estimate (10–30 typical — from memory), and the largest
-/// order [`harris_index`] takes.
-const AR_ORDER: usize = 15;
+/// The AR order of the minimum-variance estimate (10–30 is typical — from memory).
+pub const AR_ORDER: usize = 15;
+/// The largest order [`harris_index`] takes.
 const MAX_AR_ORDER: usize = 30;
 
 /// Analyses the holds of a series.
