@@ -19,8 +19,8 @@ d = ⌊θ/Ts⌋ + 1 samples (scipy.signal.dimpulse, checked against statsmodels'
 σ²_mv = σ²_a·Σ ψ²; σ²_y the mean square of the pooled deviations; η = σ²_mv/σ²_y clipped to
 [0, 1]. The estimator is the same least squares as headroom's, so the two must agree to 1e-6.
 
-Output: one line per case, then a last line exactly `N passed, M failed`.
-Exit status: 0 all passed, 1 any failure, 3 a required Python package is missing.
+Prints a line per case and, last, `N passed, M failed`; exits with 0 when every case passes, 1
+on any failure and 3 when statsmodels, scipy or numpy is missing.
 """
 
 from __future__ import annotations
@@ -87,26 +87,25 @@ def eta_of(case: dict) -> tuple[float, str]:
     return eta, f"{note}, d = {d}"
 
 
+def check(case: dict) -> tuple[bool, str]:
+    """Whether headroom's index matches the reference, and a line saying so."""
+    try:
+        eta, note = eta_of(case)
+    except Exception as e:  # a case the reference cannot compute is a failure, not a skip
+        return False, f"{case['name']}: {e}"
+    line = f"{case['name']}: headroom {case['eta']:.8f}, reference {eta:.8f} ({note})"
+    return abs(eta - case["eta"]) <= TOLERANCE, line
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--cases", required=True)
-    args = parser.parse_args()
-    with open(args.cases, encoding="utf-8") as f:
-        cases = json.load(f)
-    passed = failed = 0
-    for case in cases:
-        try:
-            eta, note = eta_of(case)
-        except Exception as e:  # a case the reference cannot compute is a failure, not a skip
-            print(f"FAIL  {case['name']}: {e}")
-            failed += 1
-            continue
-        ok = abs(eta - case["eta"]) <= TOLERANCE
-        print(f"{'PASS' if ok else 'FAIL'}  {case['name']}: headroom {case['eta']:.8f}, reference {eta:.8f} ({note})")
-        passed += ok
-        failed += not ok
-    print(f"{passed} passed, {failed} failed")
-    return 0 if failed == 0 else 1
+    parser.add_argument("--cases", required=True, type=argparse.FileType(encoding="utf-8"))
+    results = [check(case) for case in json.load(parser.parse_args().cases)]
+    for ok, line in results:
+        print(f"{'PASS' if ok else 'FAIL'}  {line}")
+    passed = sum(ok for ok, _ in results)
+    print(f"{passed} passed, {len(results) - passed} failed")
+    return 0 if passed == len(results) else 1
 
 
 if __name__ == "__main__":
