@@ -15,6 +15,8 @@ mod example_data;
 mod historian;
 mod mode_rule;
 mod reference_python;
+mod regulation_corpus;
+mod regulation_reference;
 mod retune_corpus;
 mod scenarios;
 mod trust;

@@ -59,7 +59,7 @@ fn step_metrics_match_python_control_step_info() {
 
 /// Runs a reference script with `args`, requires a zero exit with an `N passed, 0 failed`
 /// summary line, and returns N with the script's output.
-fn run_check(script: &str, args: &[&std::ffi::OsStr]) -> (u32, String) {
+pub(crate) fn run_check(script: &str, args: &[&std::ffi::OsStr]) -> (u32, String) {
     let python = python();
     let script = crate_root().join(script);
     let output = Command::new(&python)

@@ -17,13 +17,15 @@
 //!   Practice* 3(11), 1995): the control error's half-cycles between zero crossings are
 //!   compared by their IAE with a sine of the acceptable amplitude a (here the hold band) over
 //!   the same half-period, whose IAE is 2a/ω; larger ones are counted with exponential
-//!   forgetting over 50 periods, and more than 10 make an oscillation. Period: the mean of the
-//!   counted cycles; amplitude: the median half peak-to-peak PV swing per cycle.
-//! - **Likely cause**, always with its evidence: `valve` when the cross-correlation of OP and PV
-//!   over the oscillation is odd (a zero crossing at lag 0; Horch, "A simple method for detection
-//!   of stiction in control valves", *Control Eng. Practice* 7, 1999 — details from memory),
-//!   otherwise `tuning` when the period lies where a loop with the identified dead time cycles by
-//!   itself (2 to 10 dead times, this product's rule), otherwise `load`; none without a model.
+//!   forgetting over 50 periods, afresh after a quiet stretch, and more than 10 regular ones
+//!   make an oscillation. Period: the mean of the counted cycles; amplitude: the median half
+//!   peak-to-peak PV swing per cycle. Details in `oscillation`.
+//! - **Likely cause**, always with its evidence: `valve` when the PV's cycle has the shape a
+//!   jumping valve gives it (flat-topped on a self-regulating process, triangular on an
+//!   integrating one) with the OP off its limits, otherwise `tuning` when the period lies where
+//!   a loop with the identified dead time cycles by itself (2 to 10 dead times, this product's
+//!   rule), otherwise `load`; `tuning` and `load` need a model. Horch's OP–PV
+//!   cross-correlation is stated beside it (why it does not decide: `oscillation`).
 //! - Routine figures: time at an OP limit, OP travel per hour, OP reversals per hour (by more
 //!   than 0.1 % of span, so noise does not count) and the minimum-variance index
 //!   η = σ²_mv / σ²_y (Harris 1989, normalised as Huang & Shah 1999, 1 = minimum variance): an
@@ -31,9 +33,11 @@
 //!   d = ⌊θ/Ts⌋ + 1 samples of dead time.
 
 mod holds;
+mod oscillation;
 pub mod words;
 
 pub use holds::{Busy, holds};
+use oscillation::OscillationFit;
 
 use super::Series;
 use super::linalg::solve;
@@ -203,15 +207,9 @@ const RECOVERED_AFTER_S: f64 = 60.0;
 const AT_LIMIT_SHARE: f64 = 0.3;
 /// A reversal of the OP counts when it moves back by more than this share of its span.
 const REVERSAL_SHARE: f64 = 0.001;
-/// Hägglund's alarm count, and the supervision time in periods.
-const N_LIM: f64 = 10.0;
-const SUPERVISION_PERIODS: f64 = 50.0;
-/// The cross-correlation behind an oscillation's cause is taken over at most this many of its
-/// last periods.
-const CAUSE_PERIODS: f64 = 20.0;
-/// AR order of the minimum-variance estimate (10–30 typical — from memory), and the largest
-/// order [`harris_index`] takes.
-const AR_ORDER: usize = 15;
+/// The AR order of the minimum-variance estimate (10–30 is typical — from memory).
+pub const AR_ORDER: usize = 15;
+/// The largest order [`harris_index`] takes.
 const MAX_AR_ORDER: usize = 30;
 
 /// Analyses the holds of a series.
@@ -234,18 +232,19 @@ pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings
     };
     let mut disturbances = Vec::new();
     if let Some(band) = band.filter(|b| *b > 0.0) {
-        let mut found: Vec<(OscillationFit, Hold)> = Vec::new();
+        let mut found: Vec<OscillationFit> = Vec::new();
         for h in &holds {
-            match oscillation_in(series, h, band) {
-                Some(fit) => found.push((fit, *h)),
+            match oscillation::oscillation_in(series, h, band) {
+                Some(fit) => found.push(fit),
                 None => disturbances.extend(disturbances_in(series, h, band, settings.op)),
             }
         }
-        if let Some((fit, hold)) = found
+        if let Some(fit) = found
             .into_iter()
-            .max_by(|a, b| a.0.counted.total_cmp(&b.0.counted))
+            .max_by(|a, b| a.counted.total_cmp(&b.counted))
         {
-            let (cause, evidence) = cause_of(series, &hold, &fit, settings.dead_time_s);
+            let (cause, evidence) =
+                oscillation::cause_of(series, &fit, settings.dead_time_s, settings.op);
             oscillation = Oscillation {
                 detected: true,
                 period_s: Some(fit.period_s),
@@ -372,230 +371,6 @@ fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Dis
         i = stop.max(start + 1);
     }
     list
-}
-
-/// A detected oscillation in one hold.
-#[derive(Debug, Clone, Copy, PartialEq)]
-struct OscillationFit {
-    period_s: f64,
-    amplitude: f64,
-    /// The forgetting count at its largest.
-    counted: f64,
-    /// Samples `[from, to)` of the counted half-cycles.
-    from: usize,
-    to: usize,
-}
-
-/// One half-cycle of the control error between two zero crossings.
-#[derive(Debug, Clone, Copy, PartialEq)]
-struct HalfCycle {
-    start: usize,
-    end: usize,
-    duration: f64,
-    /// Largest |error| in it.
-    peak: f64,
-    /// Whether its IAE exceeds that of a sine of the acceptable amplitude.
-    large: bool,
-}
-
-/// The half-cycles of the control error in a hold. A half-cycle is large when its IAE exceeds
-/// that of a sine of amplitude `band` over the same half-period: the IAE of a·sin over one
-/// half-period T/2 is 2a/ω = a·T/π.
-fn half_cycles(series: &Series, h: &Hold, band: f64) -> Vec<HalfCycle> {
-    let (t, sp, pv) = (series.time_s(), series.sp(), series.pv());
-    let e = |i: usize| sp[i] - pv[i];
-    let crossings: Vec<usize> = (h.start + 1..h.end)
-        .filter(|&i| (e(i) > 0.0) != (e(i - 1) > 0.0))
-        .collect();
-    crossings
-        .windows(2)
-        .map(|w| {
-            let (a, b) = (w[0], w[1]);
-            let iae: f64 = (a..b).map(|i| e(i).abs() * (t[i + 1] - t[i])).sum();
-            let duration = t[b] - t[a];
-            HalfCycle {
-                start: a,
-                end: b,
-                duration,
-                peak: (a..b).map(|i| e(i).abs()).fold(0.0, f64::max),
-                large: iae > 2.0 * band * duration / std::f64::consts::PI,
-            }
-        })
-        .collect()
-}
-
-/// Counts large half-cycles with exponential forgetting over `t_sup`: the largest count and the
-/// samples `[from, to)` of the run that reached it.
-fn forgetting_count(t: &[f64], large: &[HalfCycle], t_sup: f64) -> (f64, usize, usize) {
-    let (mut count, mut best, mut last_t) = (0.0f64, 0.0f64, t[large[0].start]);
-    let (mut from, mut to) = (large[0].start, large[0].end);
-    let mut run_start = large[0].start;
-    for hc in large {
-        let now = t[hc.end];
-        count = count * (-(now - last_t) / t_sup).exp() + 1.0;
-        last_t = now;
-        if count > best {
-            best = count;
-            from = run_start;
-            to = hc.end;
-        }
-        if count < 1.5 {
-            run_start = hc.start;
-        }
-    }
-    (best, from, to)
-}
-
-/// Hägglund's test on one hold: large half-cycles counted with exponential forgetting over 50
-/// periods; more than 10 make an oscillation.
-fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<OscillationFit> {
-    let large: Vec<HalfCycle> = half_cycles(series, h, band)
-        .into_iter()
-        .filter(|hc| hc.large)
-        .collect();
-    if large.len() < 2 {
-        return None;
-    }
-    let mut durations: Vec<f64> = large.iter().map(|h| h.duration).collect();
-    let half_period = median_in_place(&mut durations);
-    let t_sup = SUPERVISION_PERIODS * 2.0 * half_period;
-    let (best, from, to) = forgetting_count(series.time_s(), &large, t_sup);
-    if best <= N_LIM {
-        return None;
-    }
-    let counted: Vec<&HalfCycle> = large
-        .iter()
-        .filter(|hc| hc.start >= from && hc.end <= to)
-        .collect();
-    let period_s = 2.0 * counted.iter().map(|hc| hc.duration).sum::<f64>() / counted.len() as f64;
-    // One cycle is two successive half-cycles: its half peak-to-peak swing is the mean of their
-    // peaks.
-    let mut swings: Vec<f64> = counted
-        .windows(2)
-        .step_by(2)
-        .map(|w| 0.5 * (w[0].peak + w[1].peak))
-        .collect();
-    let amplitude = if swings.is_empty() {
-        counted[0].peak
-    } else {
-        median_in_place(&mut swings)
-    };
-    Some(OscillationFit {
-        period_s,
-        amplitude,
-        counted: best,
-        from,
-        to,
-    })
-}
-
-/// The likely cause of an oscillation, and the evidence in words.
-fn cause_of(
-    series: &Series,
-    h: &Hold,
-    fit: &OscillationFit,
-    dead_time_s: Option<f64>,
-) -> (Option<Cause>, String) {
-    let (from, to) = (fit.from.max(h.start), fit.to.min(h.end));
-    let t = series.time_s();
-    let dt = (t[to - 1] - t[from]) / (to - from - 1).max(1) as f64;
-    // The last CAUSE_PERIODS cycles are enough for the shape and keep the cost bounded.
-    let from = from.max(to.saturating_sub((CAUSE_PERIODS * fit.period_s / dt) as usize));
-    let u = &series.op()[from..to];
-    let y = &series.pv()[from..to];
-    let max_lag = ((fit.period_s / dt) as usize).clamp(1, u.len() / 2);
-    let xc = CrossCorrelation::new(u, y);
-    let ccf = |lag: isize| xc.at(lag);
-    let r0 = ccf(0);
-    let (mut best_pos, mut best_neg) = (0.0f64, 0.0f64);
-    for l in 1..=max_lag as isize {
-        let (p, n) = (ccf(l), ccf(-l));
-        if p.abs() > best_pos.abs() {
-            best_pos = p;
-        }
-        if n.abs() > best_neg.abs() {
-            best_neg = n;
-        }
-    }
-    let peak = best_pos.abs().max(best_neg.abs()).max(r0.abs());
-    // Odd: near zero at lag 0, extremes of opposite sign either side. Even: an extremum at 0.
-    let odd = r0.abs() < 0.3 * peak && best_pos * best_neg < 0.0;
-    if odd {
-        return (
-            Some(Cause::Valve),
-            format!(
-                "the OP–PV cross-correlation is odd (r(0) = {r0:.2}, extremes {best_neg:.2} and \
-                 {best_pos:.2} either side), the signature of a sticking valve"
-            ),
-        );
-    }
-    let shape = format!("the OP–PV cross-correlation has its extremum at lag 0 (r(0) = {r0:.2})");
-    match dead_time_s {
-        Some(theta) if theta > 0.0 => {
-            let ratio = fit.period_s / theta;
-            if (2.0..=10.0).contains(&ratio) {
-                (
-                    Some(Cause::Tuning),
-                    format!(
-                        "{shape}, and the period is {ratio:.1} dead times, where a loop this \
-                         aggressive cycles by itself"
-                    ),
-                )
-            } else {
-                (
-                    Some(Cause::Load),
-                    format!(
-                        "{shape}, and the period is {ratio:.1} dead times, far from the loop's \
-                         own cycle: it enters from outside"
-                    ),
-                )
-            }
-        }
-        _ => (
-            None,
-            format!("{shape}; without a process model the cause is not judged"),
-        ),
-    }
-}
-
-/// Normalised cross-correlation of two equally long signals, centred and scaled once.
-struct CrossCorrelation {
-    u: Vec<f64>,
-    y: Vec<f64>,
-    /// The product of the two signals' norms about their means.
-    norm: f64,
-}
-
-impl CrossCorrelation {
-    fn new(u: &[f64], y: &[f64]) -> CrossCorrelation {
-        let n = u.len().min(y.len());
-        let centred = |v: &[f64]| {
-            let mean = v.iter().sum::<f64>() / v.len().max(1) as f64;
-            v.iter().map(|x| x - mean).collect::<Vec<f64>>()
-        };
-        let (u, y) = (centred(&u[..n]), centred(&y[..n]));
-        let norm = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>().sqrt();
-        let norm = norm(&u) * norm(&y);
-        CrossCorrelation { u, y, norm }
-    }
-
-    /// The correlation of `u` with `y` shifted by `lag` samples (0 for a constant signal).
-    fn at(&self, lag: isize) -> f64 {
-        if self.norm == 0.0 {
-            return 0.0;
-        }
-        let n = self.u.len();
-        let s: f64 = self
-            .u
-            .iter()
-            .enumerate()
-            .filter_map(|(k, uk)| {
-                let j = k as isize + lag;
-                (j >= 0 && (j as usize) < n).then(|| uk * self.y[j as usize])
-            })
-            .sum();
-        s / self.norm
-    }
 }
 
 /// Share of hold samples at an OP limit, total OP travel, and OP reversals by more than 0.1 % of

@@ -338,3 +338,115 @@ fn the_fast_ar_fit_equals_the_direct_least_squares_sums() {
     let fast = harris_index(&pooled, p, d).unwrap();
     assert!((fast - direct).abs() < 1e-9, "{fast} vs {direct}");
 }
+
+/// Six hours at 1 s of a 200 s cycle of amplitude 1 with the given shape (a function of the
+/// phase in cycles, 0..1, returning −1..1), noise of 0.02; the OP follows `op_of(pv deviation)`.
+fn shaped(wave: impl Fn(f64) -> f64, op_of: impl Fn(f64) -> f64) -> Series {
+    let n = 21_600;
+    let e = noise(n, 0.02, 21);
+    let dev: Vec<f64> = (0..n).map(|i| wave((i as f64 / 200.0).fract())).collect();
+    let pv = dev.iter().zip(&e).map(|(d, x)| 50.0 + d + x).collect();
+    let op = dev.iter().map(|d| op_of(*d)).collect();
+    series(1.0, pv, op)
+}
+
+fn sine(phase: f64) -> f64 {
+    (2.0 * std::f64::consts::PI * phase).sin()
+}
+
+fn triangle(phase: f64) -> f64 {
+    if phase < 0.5 {
+        4.0 * phase - 1.0
+    } else {
+        3.0 - 4.0 * phase
+    }
+}
+
+#[test]
+fn a_triangular_cycle_with_the_op_off_its_limits_is_called_a_valve() {
+    // A level behind a sticking valve ramps between the valve's jumps: a triangle, whose third
+    // harmonic is 1/9 of its fundamental (Fourier series); a sine has none.
+    let s = shaped(triangle, |d| 40.0 - 5.0 * d);
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    let o = &r.oscillation;
+    assert!(o.detected);
+    assert!((o.period_s.unwrap() - 200.0).abs() < 2.0, "{o:?}");
+    assert!((o.amplitude.unwrap() - 1.0).abs() < 0.1, "{o:?}");
+    assert_eq!(o.likely_cause, Some(Cause::Valve), "{o:?}");
+    assert!(o.evidence.as_ref().unwrap().contains("0.11"), "{o:?}");
+    // The same cycle as a sine is not.
+    let s = shaped(sine, |d| 40.0 - 5.0 * d);
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    assert_ne!(r.oscillation.likely_cause, Some(Cause::Valve));
+}
+
+#[test]
+fn a_cycle_the_clamp_shapes_is_never_a_valve_and_limit_to_limit_is_the_tuning() {
+    // A square PV cycle with the OP swinging into both its limits: the loop drives itself
+    // across the actuator's range, whatever the model says (here none).
+    let square = |phase: f64| if phase < 0.5 { 1.0 } else { -1.0 };
+    let s = shaped(square, |d| (50.0 - 80.0 * d).clamp(0.0, 100.0));
+    let none = RegulationSettings {
+        dead_time_s: None,
+        ..SETTINGS
+    };
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &none);
+    assert_eq!(r.oscillation.likely_cause, Some(Cause::Tuning), "{r:?}");
+    assert!(r.oscillation.evidence.unwrap().contains("both its limits"));
+    // Clipped at one limit only: not a valve, and without a model no cause.
+    let s = shaped(square, |d| (70.0 - 40.0 * d).min(100.0));
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &none);
+    assert!(r.oscillation.detected);
+    assert_eq!(r.oscillation.likely_cause, None, "{:?}", r.oscillation);
+}
+
+#[test]
+fn random_loads_through_a_resonant_loop_are_not_an_oscillation() {
+    // The PV of a well-damped loop under random loads: second-order filtered noise with a
+    // resonance of damping ζ = 0.3 at 100 s, far above the hold band. Its autocorrelation one
+    // period on is about e^(−2πζ) ≈ 0.15 (derived), so it does not repeat itself.
+    for seed in 0..10 {
+        let n = 21_600;
+        let (w, zeta) = (2.0 * std::f64::consts::PI / 100.0, 0.3);
+        let a = noise(n, 1.0, 300 + seed);
+        let e = noise(n, 0.02, 400 + seed);
+        // x'' + 2ζω x' + ω² x = ω² a, Euler at 1 s (ω = 0.063, stable and accurate enough).
+        let (mut x, mut v) = (0.0, 0.0);
+        let pv: Vec<f64> = (0..n)
+            .map(|i| {
+                let acc = w * w * (a[i] - x) - 2.0 * zeta * w * v;
+                v += acc;
+                x += v;
+                50.0 + x + e[i]
+            })
+            .collect();
+        let op = pv.iter().map(|p| 40.0 - 5.0 * (p - 50.0)).collect();
+        let s = series(1.0, pv, op);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        assert!(!r.oscillation.detected, "seed {seed}: {:?}", r.oscillation);
+    }
+}
+
+#[test]
+fn a_lopsided_cycle_keeps_its_period() {
+    // Swings of 3 to one side of SP and 0.6 to the other (an OP clipped on one side, say): each
+    // side's hysteresis follows its own peaks, so no cycle is missed, whichever side is larger.
+    for side in [1.0, -1.0] {
+        let lopsided = |phase: f64| {
+            let s = side * sine(phase);
+            side * if s > 0.0 { 3.0 * s } else { 0.6 * s }
+        };
+        let s = shaped(lopsided, |d| 40.0 - 5.0 * d);
+        let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+        let o = &r.oscillation;
+        assert!(o.detected, "side {side}");
+        assert!(
+            (o.period_s.unwrap() - 200.0).abs() < 2.0,
+            "side {side}: {o:?}"
+        );
+        assert!(
+            (o.amplitude.unwrap() - 1.8).abs() < 0.1,
+            "side {side}: {o:?}"
+        );
+    }
+}

@@ -259,6 +259,49 @@ mod tests {
         assert!(v.position() > 55.0, "{pos:?}");
     }
 
+    /// The noise-free PV's largest distance from SP over the last 5000 s of 20 000, the loop
+    /// started at rest 2 above its setpoint, behind a valve with a pure deadband of `s_pct`.
+    fn swing_after(dynamics: super::super::Dynamics, kc: f64, ti: f64, s_pct: f64) -> f64 {
+        use super::super::{LoopSim, PiController, PlantSimConfig};
+        let cfg = PlantSimConfig {
+            dynamics,
+            controller: PiController::on_percent(kc, ti),
+            step_s: 1.0,
+            noise_sd: 0.0,
+            seed: 1,
+            initial_sp: 52.0,
+        };
+        let mut sim = LoopSim::of_plant(cfg).with_sticky_valve(Stiction { s_pct, j_pct: 0.0 });
+        let samples = sim.run(&[(0.0, 50.0)], 20_000.0, 1.0);
+        samples[samples.len() - 5_000..]
+            .iter()
+            .map(|x| (x.pv - x.sp).abs())
+            .fold(0.0, f64::max)
+    }
+
+    #[test]
+    fn a_pure_deadband_keeps_a_level_cycling_but_lets_a_first_order_loop_settle() {
+        // Choudhury, Thornhill & Shah (2005) — from memory: under PI control a deadband alone
+        // (J = 0) makes an integrating process cycle, while a self-regulating one comes to rest
+        // (it needs the slip jump to cycle).
+        use super::super::{Dynamics, IntegratingProcess, Process};
+        let level = Dynamics::Integrating(IntegratingProcess {
+            gain_per_s: 0.01,
+            lag_s: 0.0,
+            dead_time_s: 5.0,
+            balance_op: 50.0,
+        });
+        assert!(swing_after(level, 2.0, 200.0, 4.0) > 0.2);
+        let flow = Dynamics::Lags(Process {
+            gain: 1.0,
+            time_constant_s: 10.0,
+            second_time_constant_s: 0.0,
+            dead_time_s: 2.0,
+            bias: 0.0,
+        });
+        assert!(swing_after(flow, 1.0, 10.0, 4.0) < 0.01);
+    }
+
     #[test]
     fn the_valve_stays_inside_its_range() {
         let mut v = valve(4.0, 6.0);
