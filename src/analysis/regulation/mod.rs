@@ -22,10 +22,12 @@
 //!   peak-to-peak PV swing per cycle. Details in `oscillation`.
 //! - **Likely cause**, always with its evidence: `valve` when the PV's cycle has the shape a
 //!   jumping valve gives it (flat-topped on a self-regulating process, triangular on an
-//!   integrating one) with the OP off its limits, otherwise `tuning` when the period lies where
-//!   a loop with the identified dead time cycles by itself (2 to 10 dead times, this product's
-//!   rule), otherwise `load`; `tuning` and `load` need a model. Horch's OP–PV
-//!   cross-correlation is stated beside it (why it does not decide: `oscillation`).
+//!   integrating one) with the OP off its limits; `tuning` when the OP swings into both its
+//!   limits; `load` when the cycle kept its phase across setpoint changes (its clock is outside
+//!   the loop); otherwise `tuning` when the period lies where a loop with the identified dead
+//!   time cycles by itself (2 to 10 dead times, this product's rule), else `load`, and no cause
+//!   without a model. Horch's OP–PV cross-correlation is stated beside it (why it does not
+//!   decide: `oscillation`).
 //! - Routine figures: time at an OP limit, OP travel per hour, OP reversals per hour (by more
 //!   than 0.1 % of span, so noise does not count) and the minimum-variance index
 //!   η = σ²_mv / σ²_y (Harris 1989, normalised as Huang & Shah 1999, 1 = minimum variance): an
@@ -239,12 +241,9 @@ pub fn regulation(series: &Series, holds: &[Hold], settings: &RegulationSettings
                 None => disturbances.extend(disturbances_in(series, h, band, settings.op)),
             }
         }
-        if let Some(fit) = found
-            .into_iter()
-            .max_by(|a, b| a.counted.total_cmp(&b.counted))
-        {
+        if let Some(fit) = found.iter().max_by(|a, b| a.counted.total_cmp(&b.counted)) {
             let (cause, evidence) =
-                oscillation::cause_of(series, &fit, settings.dead_time_s, settings.op);
+                oscillation::cause_of(series, fit, &found, settings.dead_time_s, settings.op);
             oscillation = Oscillation {
                 detected: true,
                 period_s: Some(fit.period_s),

@@ -22,7 +22,8 @@
 //! per cycle, read on the error smoothed over a twentieth of the cycle (a sine loses under 1 %
 //! to that, the noise most of its spread).
 //!
-//! **The cause**, from the last 20 periods:
+//! **The cause**, from the last 20 periods of the hold with the most counted cycles (and the
+//! phase from every hold the oscillation was found in):
 //! - `valve` when the PV's cycle has a shape no linear loop gives it. In each cycle the error is
 //!   projected on e^(−ikφ) (k = 1, 3; φ from 0 to 2π over the cycle); the size of the pooled
 //!   third harmonic against the fundamental, |c₃|/|c₁|, is 1/3 for a square wave, 1/9 for a
@@ -40,6 +41,12 @@
 //!   across the actuator's whole range, as a loop beyond its stability limit does, and a load
 //!   would have to exceed the actuator both ways (this product's rule; it needs no model, which
 //!   such a loop seldom lets the identification find).
+//! - `load` when the cycle kept its phase across at least two setpoint changes (within 30°,
+//!   each side read over five cycles): a cycle entering from outside runs on its own clock, and
+//!   a setpoint change only adds a transient that dies out (superposition in a linear loop),
+//!   while a loop's own cycle — a sticky valve's, a clamp-bounded one, a lightly damped loop's
+//!   ringing — starts afresh from wherever the change leaves it (this product's rule; it needs
+//!   no model, so a dead time the identification got wrong cannot mislead it).
 //! - Otherwise `tuning` when the period is 2 to 10 dead times of the identified model, where a
 //!   loop too aggressive for its process cycles by itself (this product's rule), else `load`;
 //!   without a model (or one without dead time), no cause.
@@ -52,7 +59,7 @@
 //! 90° (odd) when ω·τI ≪ 1, whatever drives the cycle (derived). A slow external load reads odd
 //! and a sticky valve on a loop with a short integral time reads even.
 
-use super::{Cause, Hold};
+use super::{Cause, Hold, HoldEnd};
 use crate::analysis::Series;
 use crate::analysis::setup::OpRange;
 use crate::analysis::stats::median_in_place;
@@ -74,6 +81,11 @@ const SHAPE_MIN: f64 = 0.05;
 const SHAPE_SIGNIFICANCE: f64 = 3.0;
 /// A cycle with the OP at a limit on more than this share of its samples is shaped by the clamp.
 const CYCLE_AT_LIMIT_SHARE: f64 = 0.01;
+/// A cycle keeps its phase across a setpoint change when it moved by at most this much (rad),
+/// read over this many cycles either side; it takes this many changes to show it.
+const KEPT_PHASE: f64 = std::f64::consts::PI / 6.0;
+const PHASE_CYCLES: usize = 5;
+const KEPT_CHANGES: usize = 2;
 
 /// A detected oscillation in one hold.
 #[derive(Debug, Clone, PartialEq)]
@@ -84,6 +96,8 @@ pub(super) struct OscillationFit {
     pub(super) counted: f64,
     /// Its cycles, in order.
     cycles: Vec<Cycle>,
+    /// The hold it was found in.
+    hold: Hold,
 }
 
 /// One half-cycle of the control error between two zero crossings: Hägglund's unit.
@@ -288,6 +302,7 @@ pub(super) fn oscillation_in(series: &Series, h: &Hold, band: f64) -> Option<Osc
         amplitude: median_in_place(&mut swings),
         counted: best,
         cycles,
+        hold: *h,
     })
 }
 
@@ -362,10 +377,52 @@ fn cross_correlation(series: &Series, from: usize, to: usize, quarter: usize) ->
     [at(-q), at(0), at(q)]
 }
 
+/// The phase (rad) of the error's component at `w` (rad/s) over the given cycles, against the
+/// series' own clock.
+fn phase(series: &Series, cycles: &[Cycle], w: f64) -> f64 {
+    let (t, sp, pv) = (series.time_s(), series.sp(), series.pv());
+    let (from, to) = (cycles[0].start, cycles[cycles.len() - 1].end);
+    let mean = (from..to).map(|j| sp[j] - pv[j]).sum::<f64>() / (to - from).max(1) as f64;
+    let (re, im) = (from..to).fold((0.0, 0.0), |(re, im), j| {
+        let x = sp[j] - pv[j] - mean;
+        let (s, c) = (w * t[j]).sin_cos();
+        (re + x * c, im - x * s)
+    });
+    im.atan2(re)
+}
+
+/// When the cycle kept its phase across the setpoint changes (or other breaks) between the holds
+/// it was found in: the number of such changes and the largest phase move (rad). `None` when it
+/// moved by more than [`KEPT_PHASE`] across any of them, when fewer than [`KEPT_CHANGES`] show
+/// it, or when the holds' cycles differ in period by more than 5 % (not the same cycle).
+fn phase_kept(series: &Series, all: &[OscillationFit]) -> Option<(usize, f64)> {
+    let span: f64 = all.iter().map(|f| f.period_s * f.cycles.len() as f64).sum();
+    let count: usize = all.iter().map(|f| f.cycles.len()).sum();
+    let w = 2.0 * std::f64::consts::PI * count as f64 / span;
+    let mut moves = Vec::new();
+    for pair in all.windows(2) {
+        let (a, b) = (&pair[0], &pair[1]);
+        if a.hold.end_reason == HoldEnd::EndOfData {
+            continue;
+        }
+        if (a.period_s / b.period_s - 1.0).abs() > 0.05 {
+            return None;
+        }
+        let before = &a.cycles[a.cycles.len().saturating_sub(PHASE_CYCLES)..];
+        let after = &b.cycles[..b.cycles.len().min(PHASE_CYCLES)];
+        let moved = (phase(series, after, w) - phase(series, before, w))
+            .rem_euclid(2.0 * std::f64::consts::PI);
+        moves.push(moved.min(2.0 * std::f64::consts::PI - moved));
+    }
+    let largest = moves.iter().copied().fold(0.0, f64::max);
+    (moves.len() >= KEPT_CHANGES && largest <= KEPT_PHASE).then_some((moves.len(), largest))
+}
+
 /// The likely cause of an oscillation, and the evidence in words.
 pub(super) fn cause_of(
     series: &Series,
     fit: &OscillationFit,
+    all: &[OscillationFit],
     dead_time_s: Option<f64>,
     op: OpRange,
 ) -> (Option<Cause>, String) {
@@ -415,6 +472,17 @@ pub(super) fn cause_of(
                  actuator both ways; {ccf}",
                 100.0 * at_low,
                 100.0 * at_high
+            ),
+        );
+    }
+    if let Some((changes, moved)) = phase_kept(series, all) {
+        return (
+            Some(Cause::Load),
+            format!(
+                "the cycle kept its phase across {changes} setpoint changes (it moved {:.0}° at \
+                 most): it runs on a clock outside the loop, as a load entering from outside \
+                 does, while a loop's own cycle starts afresh with each change; {ccf}",
+                moved.to_degrees()
             ),
         );
     }

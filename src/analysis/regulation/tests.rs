@@ -450,3 +450,59 @@ fn a_lopsided_cycle_keeps_its_period() {
         );
     }
 }
+
+/// Three holds of two hours at 1 s, SP 50, 55 and 50, with 10 min of response between them
+/// (not holds), and a 120 s cycle of amplitude 1 about SP: on one clock throughout when
+/// `one_clock`, else restarted at each change with a third of a cycle more.
+fn cycle_across_changes(one_clock: bool) -> (Series, Vec<Hold>) {
+    let (hold, gap) = (7200usize, 600usize);
+    let n = 3 * hold + 2 * gap;
+    let e = noise(n, 0.02, 31);
+    let w = 2.0 * std::f64::consts::PI / 120.0;
+    let mut sp = Vec::with_capacity(n);
+    let mut pv = Vec::with_capacity(n);
+    for (i, noise) in e.iter().enumerate() {
+        let k = i / (hold + gap);
+        let s = if k == 1 { 55.0 } else { 50.0 };
+        let since = (i - k * (hold + gap)) as f64;
+        let phase = if one_clock {
+            w * i as f64
+        } else {
+            w * since + 2.0 * std::f64::consts::PI * k as f64 / 3.0
+        };
+        sp.push(s);
+        pv.push(s + phase.sin() + noise);
+    }
+    let op = pv
+        .iter()
+        .zip(&sp)
+        .map(|(p, s)| 40.0 - 5.0 * (p - s))
+        .collect();
+    let s = Series::new((0..n).map(|i| i as f64).collect(), sp, pv, op, None).unwrap();
+    let holds = (0..3)
+        .map(|k| Hold {
+            start: k * (hold + gap),
+            end: k * (hold + gap) + hold,
+            end_reason: if k < 2 {
+                HoldEnd::SetpointChange
+            } else {
+                HoldEnd::EndOfData
+            },
+        })
+        .collect();
+    (s, holds)
+}
+
+#[test]
+fn a_cycle_that_keeps_its_phase_across_setpoint_changes_is_a_load() {
+    // 120 s is 6 dead times of 20 s, where the loop could cycle by itself; but a cycle that runs
+    // on through two setpoint changes on the same clock comes from outside the loop.
+    let (s, holds) = cycle_across_changes(true);
+    let r = regulation(&s, &holds, &SETTINGS);
+    assert_eq!(r.oscillation.likely_cause, Some(Cause::Load), "{r:?}");
+    assert!(r.oscillation.evidence.unwrap().contains("kept its phase"));
+    // Restarted by each change: the loop's own, judged by its period.
+    let (s, holds) = cycle_across_changes(false);
+    let r = regulation(&s, &holds, &SETTINGS);
+    assert_eq!(r.oscillation.likely_cause, Some(Cause::Tuning), "{r:?}");
+}
