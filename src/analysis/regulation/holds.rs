@@ -60,6 +60,7 @@ pub fn holds(series: &Series, busy: &[Busy], max_gap_s: f64, deadband: f64) -> V
             start,
             end: i,
             end_reason,
+            after_change: start > 0 && !free[start - 1],
         });
     }
     out
@@ -107,6 +108,12 @@ mod tests {
                 (360, 500, HoldEnd::EndOfData),
             ]
         );
+        // The first starts with the data; the others where a response settled.
+        let after: Vec<bool> = holds(&s, &busy, 10.0, 0.01)
+            .iter()
+            .map(|h| h.after_change)
+            .collect();
+        assert_eq!(after, [false, true, true]);
     }
 
     #[test]

@@ -8,7 +8,8 @@
 //!   from second differences with the median absolute deviation (for white noise the second
 //!   difference has variance 6σ²), so slow movements do not inflate it.
 //! - A **disturbance** starts at the first sample of a run of at least 3 samples outside the
-//!   band; it recovers at the first sample from which the PV stays inside for at least 60 s or
+//!   band, once the PV has been inside it (before that, a hold's PV is still the tail of the
+//!   response to the last change, settled in the spec's band, which may be wider); it recovers at the first sample from which the PV stays inside for at least 60 s or
 //!   until the hold ends. Its verdict: `actuator_limited` when the OP was within 0.5 % of span of
 //!   a limit on at least 30 % of its out-of-band samples (the load exceeded what the actuator
 //!   can counter), else `recovered`, else `not_recovered` when the hold ended by a setpoint
@@ -63,6 +64,9 @@ pub struct Hold {
     pub start: usize,
     pub end: usize,
     pub end_reason: HoldEnd,
+    /// Whether it starts where a setpoint change's response settled (or its window ended), so
+    /// that its PV may still be the response's tail.
+    pub after_change: bool,
 }
 
 /// A disturbance's outcome.
@@ -308,12 +312,40 @@ fn evenly(holds: &[Hold]) -> usize {
     n.div_ceil(ROBUST_SAMPLES).max(1)
 }
 
+/// The first sample at or after `from` from which the PV stays inside the band for
+/// [`RECOVERED_AFTER_S`], or until the hold ends.
+fn back_inside(t: &[f64], h: &Hold, from: usize, out: &impl Fn(usize) -> bool) -> Option<usize> {
+    let mut j = from;
+    while j < h.end {
+        if out(j) {
+            j += 1;
+            continue;
+        }
+        let mut k = j;
+        while k < h.end && !out(k) && t[k] - t[j] < RECOVERED_AFTER_S {
+            k += 1;
+        }
+        if k == h.end || !out(k) {
+            return Some(j);
+        }
+        j = k;
+    }
+    None
+}
+
 /// The disturbances of one hold.
 fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Disturbance> {
     let (t, sp, pv, u) = (series.time_s(), series.sp(), series.pv(), series.op());
     let out = |i: usize| (pv[i] - sp[i]).abs() > band;
     let mut list = Vec::new();
-    let mut i = h.start;
+    // In a hold after a change, until the PV has come inside the hold band for good (as a
+    // disturbance recovers), it is still the tail of the response (settled in the spec's band,
+    // which may be wider): no load has started.
+    let mut i = if h.after_change {
+        back_inside(t, h, h.start, &out).unwrap_or(h.end)
+    } else {
+        h.start
+    };
     while i < h.end {
         // The start: the first sample of a run of at least MIN_OUT_RUN outside.
         if !(i + MIN_OUT_RUN <= h.end && (i..i + MIN_OUT_RUN).all(out)) {
@@ -323,23 +355,7 @@ fn disturbances_in(series: &Series, h: &Hold, band: f64, op: OpRange) -> Vec<Dis
         let start = i;
         // The recovery: the first sample from which the PV stays inside for RECOVERED_AFTER_S,
         // or until the hold ends.
-        let mut recovered = None;
-        let mut j = start + 1;
-        while j < h.end {
-            if out(j) {
-                j += 1;
-                continue;
-            }
-            let mut k = j;
-            while k < h.end && !out(k) && t[k] - t[j] < RECOVERED_AFTER_S {
-                k += 1;
-            }
-            if k == h.end || !out(k) {
-                recovered = Some(j);
-                break;
-            }
-            j = k;
-        }
+        let recovered = back_inside(t, h, start + 1, &out);
         let stop = recovered.unwrap_or(h.end);
         let outside: Vec<usize> = (start..stop).filter(|&k| out(k)).collect();
         let limited = outside.iter().filter(|&&k| op.is_saturated(u[k])).count();

@@ -19,6 +19,7 @@ fn whole(s: &Series, end_reason: HoldEnd) -> Vec<Hold> {
         start: 0,
         end: s.len(),
         end_reason,
+        after_change: false,
     }]
 }
 
@@ -488,6 +489,7 @@ fn cycle_across_changes(one_clock: bool) -> (Series, Vec<Hold>) {
             } else {
                 HoldEnd::EndOfData
             },
+            after_change: false,
         })
         .collect();
     (s, holds)
@@ -505,4 +507,36 @@ fn a_cycle_that_keeps_its_phase_across_setpoint_changes_is_a_load() {
     let (s, holds) = cycle_across_changes(false);
     let r = regulation(&s, &holds, &SETTINGS);
     assert_eq!(r.oscillation.likely_cause, Some(Cause::Tuning), "{r:?}");
+}
+
+#[test]
+fn a_hold_that_starts_outside_the_band_is_the_tail_of_a_response_not_a_load() {
+    // The PV comes in from 0.5 above SP with a 60 s time constant (a response settled in a
+    // wide spec band, not yet in the narrow hold band), then a real load at 2000 s.
+    let n = 4000;
+    let e = noise(n, 0.02, 8);
+    let pv: Vec<f64> = (0..n)
+        .map(|i| {
+            let t = i as f64;
+            let tail = 0.5 * (-t / 60.0).exp();
+            let load = if t >= 2000.0 {
+                -1.0 * (-(t - 2000.0) / 60.0).exp()
+            } else {
+                0.0
+            };
+            50.0 + tail + load + e[i]
+        })
+        .collect();
+    let s = series(1.0, pv, vec![40.0; n]);
+    let after = vec![Hold {
+        after_change: true,
+        ..whole(&s, HoldEnd::EndOfData)[0]
+    }];
+    let r = regulation(&s, &after, &SETTINGS);
+    assert_eq!(r.disturbances.len(), 1, "{:?}", r.disturbances);
+    assert!((r.disturbances[0].start_s - 2000.0).abs() <= 2.0);
+    // A hold that starts with the data (or a live buffer) has no response before it: what is
+    // out at its start is a disturbance.
+    let r = regulation(&s, &whole(&s, HoldEnd::EndOfData), &SETTINGS);
+    assert_eq!(r.disturbances.len(), 2, "{:?}", r.disturbances);
 }
