@@ -98,6 +98,10 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         &a.holds,
         &regulation_settings(setup, a.model.as_ref().ok()),
     );
+    let mut recommendation = recommendation;
+    recommendation
+        .cautions
+        .extend(regulation::words::caution(&regulation.oscillation));
     LoopReport {
         tag: setup.tag.clone(),
         model: a.model.as_ref().ok().copied(),

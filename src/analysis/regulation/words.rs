@@ -1,7 +1,7 @@
 //! The regulation findings in words, with units, for every place people read them (`analyze`,
 //! the weekly summary, the demo, alerts): one wording, written here.
 
-use super::{Disturbance, DisturbanceVerdict, Oscillation, Regulation};
+use super::{Cause, Disturbance, DisturbanceVerdict, Oscillation, Regulation};
 use crate::units::{Units, count, fraction_to_pct, human_duration, quantity, signed_quantity};
 
 /// Lines describing a loop's regulation: how long it was held, the band and the PV's spread,
@@ -129,4 +129,80 @@ pub fn disturbance(d: &Disturbance, units: &Units) -> String {
 pub fn worst(list: &[Disturbance]) -> Option<&Disturbance> {
     list.iter()
         .max_by(|a, b| a.peak_deviation.abs().total_cmp(&b.peak_deviation.abs()))
+}
+
+/// What an oscillation between changes means for the loop's advice, when its cause is judged:
+/// a caution beside the recommendation, so that no one retunes a sticking valve.
+pub fn caution(o: &Oscillation) -> Option<String> {
+    if !o.detected {
+        return None;
+    }
+    Some(match o.likely_cause? {
+        Cause::Valve => "Between setpoint changes the loop cycles, and the OP–PV shape points at \
+             the valve (stiction or deadband): have the valve checked before retuning; retuning \
+             does not cure a sticking valve."
+            .to_owned(),
+        Cause::Tuning => "Between setpoint changes the loop cycles by itself, at a period of a \
+             few dead times: the controller is too aggressive for the process, and gentler \
+             settings should stop it."
+            .to_owned(),
+        Cause::Load => "Between setpoint changes the loop cycles at a period far from its own: \
+             the cycle enters from outside (an upstream loop, a periodic load); find its source \
+             before retuning."
+            .to_owned(),
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController};
+    use crate::analysis::{LoopSetup, OpRange, Spec, analyze_loop, sim};
+
+    #[test]
+    fn a_loop_cycling_by_its_tuning_gets_a_caution_beside_its_advice() {
+        // The jacketed vessel (K 0.8 °C/%, τ 300 s, θ 30 s) under Kc 20 %/°C, about its
+        // ultimate gain (ω_u ≈ 0.055 rad/s, period ≈ 115 s, about 4 dead times): it cycles
+        // between its setpoint changes, bounded by the valve.
+        let mut cfg = LoopSimConfig::jacketed_vessel(100.0, 4);
+        cfg.controller = PiController::on_percent(20.0, 240.0);
+        let schedule = [
+            (3000.0, 53.0),
+            (6000.0, 50.0),
+            (9000.0, 54.0),
+            (12000.0, 51.0),
+        ];
+        let samples = LoopSim::new(cfg).run(&schedule, 15_000.0, 1.0);
+        let mut setup = LoopSetup::new("TIC-1", Spec::within(120.0));
+        setup.op = OpRange::DEFAULT;
+        let report = analyze_loop(&sim::series(&samples, 0.0), &setup);
+        let o = &report.regulation.oscillation;
+        assert!(o.detected, "{:?}", report.regulation);
+        assert_eq!(o.likely_cause, Some(Cause::Tuning), "{o:?}");
+        assert!(
+            report
+                .recommendation
+                .cautions
+                .iter()
+                .any(|c| c.contains("too aggressive")),
+            "{:?}",
+            report.recommendation.cautions
+        );
+    }
+
+    #[test]
+    fn no_caution_without_an_oscillation_or_a_judged_cause() {
+        let mut o = Oscillation {
+            detected: false,
+            period_s: None,
+            amplitude: None,
+            likely_cause: Some(Cause::Valve),
+            evidence: None,
+        };
+        assert_eq!(caution(&o), None);
+        o.detected = true;
+        assert!(caution(&o).unwrap().contains("valve checked"));
+        o.likely_cause = None;
+        assert_eq!(caution(&o), None);
+    }
 }

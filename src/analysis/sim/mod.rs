@@ -11,8 +11,10 @@ use super::Series;
 use std::collections::VecDeque;
 
 mod dynamics;
+mod stiction;
 
 pub use dynamics::{Dynamics, IntegratingProcess, TwoDirectionProcess, ValveProcess};
+pub use stiction::{StickyValve, Stiction};
 
 /// A process: `PV = bias + x`, where `x` follows `K·u(t − θ)` through one or two first-order lags.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -141,7 +143,7 @@ pub struct LoopSim {
     delay_line: VecDeque<f64>,
     /// How many OP values in a row, up to the latest, equal the latest.
     op_held_steps: usize,
-    /// The latest OP value put into the dead time.
+    /// The latest OP value put into the dead time (the valve's position when one is fitted).
     last_op: f64,
     op: f64,
     prev_error: f64,
@@ -155,6 +157,8 @@ pub struct LoopSim {
     pub sensor_ok: bool,
     /// The integral part of the positional law (OP units, with the bias), when it is in use.
     integral: Option<f64>,
+    /// A sticky valve between the OP and the process, when one is fitted.
+    valve: Option<StickyValve>,
 }
 
 /// One recorded sample.
@@ -201,7 +205,17 @@ impl LoopSim {
             disturbance: 0.0,
             sensor_ok: true,
             integral: None,
+            valve: None,
         }
+    }
+
+    /// The same loop with a sticky valve between the controller's output and the process (see
+    /// [`StickyValve`]), resting where the OP is now; its span is the controller's OP range. The
+    /// OP the loop records stays the controller's output.
+    pub fn with_sticky_valve(mut self, stiction: Stiction) -> LoopSim {
+        let c = self.cfg.controller;
+        self.valve = Some(StickyValve::new(stiction, c.op_min, c.op_max, self.op));
+        self
     }
 
     /// The same loop with the controller in positional form and clamping anti-windup: the
@@ -293,21 +307,26 @@ impl LoopSim {
             && self
                 .cfg
                 .dynamics
-                .stays_within(self.x1, self.x2, self.op, lo, hi)
+                .stays_within(self.x1, self.x2, self.last_op, lo, hi)
     }
 
-    /// The OP goes into the dead time, the process integrates exactly over the step (zero-order
-    /// hold on the delayed OP), and the PV is measured.
+    /// The OP (through the valve, if one is fitted) goes into the dead time, the process
+    /// integrates exactly over the step (zero-order hold on the delayed OP), and the PV is
+    /// measured.
     fn step_plant(&mut self) {
         let h = self.cfg.step_s;
-        self.op_held_steps = if self.op == self.last_op {
+        let input = match self.valve.as_mut() {
+            Some(v) => v.drive(self.op),
+            None => self.op,
+        };
+        self.op_held_steps = if input == self.last_op {
             self.op_held_steps + 1
         } else {
             1
         };
-        self.last_op = self.op;
-        self.delay_line.push_back(self.op);
-        let u = self.delay_line.pop_front().unwrap_or(self.op);
+        self.last_op = input;
+        self.delay_line.push_back(input);
+        let u = self.delay_line.pop_front().unwrap_or(input);
         (self.x1, self.x2) = self.cfg.dynamics.step(self.x1, self.x2, u, h);
         self.steps += 1;
         if self.sensor_ok {
