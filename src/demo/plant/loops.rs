@@ -3,7 +3,7 @@
 
 use super::schedule::DOSED_RECIPE_C;
 use super::{Intent, Link, Load, LoopDef};
-use crate::analysis::sim::{LoopSimConfig, PiController, Process};
+use crate::analysis::sim::{LoopSimConfig, PiController, Process, Stiction};
 
 /// Specific heat of liquid water near 20–80 °C: 4.18 kJ/(kg·K) (CRC Handbook of Chemistry and
 /// Physics, properties of water; value from memory). The syrup base is mostly water; its
@@ -55,6 +55,17 @@ pub(super) fn feed_flow() -> LoopDef {
         },
         trial: None,
         load: None,
+        // While its instrument air runs low (see `schedule::LOW_AIR`) the actuator's thrust
+        // barely beats the packing's static friction: the valve holds until the positioner's
+        // input has moved 3 % of travel past where it stuck, then breaks free and jumps the
+        // whole 3 % (pure stick-slip, J = S, in the two-parameter model; design choices of this
+        // invented plant, a few per cent of travel being what sticking valves in service show,
+        // common practice). Each jump moves the flow by 0.12 · 3 = 0.36 L/min: the integral
+        // ramps the OP across the band, the valve jumps, the flow overshoots, and round again.
+        stiction: Some(Stiction {
+            s_pct: 3.0,
+            j_pct: 3.0,
+        }),
     }
 }
 
@@ -106,6 +117,7 @@ pub(super) fn pre_heater() -> LoopDef {
         // hold the swing.
         trial: Some(PiController::on_percent(11.0, 50.0)),
         load: None,
+        stiction: None,
     }
 }
 
@@ -152,6 +164,7 @@ pub(super) fn cook_kettle() -> LoopDef {
         },
         trial: None,
         load: Some(dilution_water(capacity_kj_k, removed_kw_k)),
+        stiction: None,
     }
 }
 
@@ -213,6 +226,7 @@ pub(super) fn hot_water_tank() -> LoopDef {
         },
         trial: None,
         load: None,
+        stiction: None,
     }
 }
 
@@ -250,6 +264,7 @@ pub(super) fn product_cooler() -> LoopDef {
         },
         trial: None,
         load: None,
+        stiction: None,
     }
 }
 
@@ -299,5 +314,6 @@ pub(super) fn buffer_tank_level() -> LoopDef {
         },
         trial: None,
         load: None,
+        stiction: None,
     }
 }

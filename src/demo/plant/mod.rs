@@ -19,7 +19,9 @@
 //!
 //! | loop    | what                                 | meant to show                               |
 //! |---------|--------------------------------------|---------------------------------------------|
-//! | FIC-101 | feed flow, valve FV-101              | a fast process, well tuned                  |
+//! | FIC-101 | feed flow, valve FV-101              | a fast process, well tuned; held: low       |
+//! |         |                                      | instrument air makes FV-101 stick for 1.8 h |
+//! |         |                                      | on the first day (the valve's cycle)        |
 //! | TIC-110 | pre-heater outlet, hot-water valve   | a well-tuned loop that meets its spec;      |
 //! |         |                                      | held: a retune trial on the first day makes |
 //! |         |                                      | it cycle for 1.7 h (the tuning's cycle)     |
@@ -33,8 +35,8 @@
 //!
 //! The loops with no event between changes hold their setpoint against measurement noise alone:
 //! neither an oscillation nor a disturbance beyond their actuator. The events (a trial step, a
-//! lost transmitter, a retune trial, a dose) are scheduled in `schedule`; each loop's physics and
-//! settings are in `loops`.
+//! lost transmitter, a retune trial, a dose, a spell of low instrument air) are scheduled in
+//! `schedule`; each loop's physics and settings are in `loops`.
 //!
 //! Physical values are for a pilot line of about 6 L/min (a third of a tonne an hour). Where a
 //! value comes from a handbook the comment names it; design choices of this invented plant are
@@ -43,9 +45,9 @@
 mod loops;
 mod schedule;
 
-pub use schedule::{load_spells, pv_dropouts, retune_trials, schedule};
+pub use schedule::{load_spells, pv_dropouts, retune_trials, schedule, sticky_spells};
 
-use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController};
+use crate::analysis::sim::{LoopSim, LoopSimConfig, PiController, Stiction};
 
 /// One day in seconds.
 pub const DAY_S: f64 = 86_400.0;
@@ -102,6 +104,8 @@ pub struct LoopDef {
     pub trial: Option<PiController>,
     /// A load the process meets now and then ([`load_spells`] says when).
     pub load: Option<Load>,
+    /// How the loop's valve sticks when it does ([`sticky_spells`] says when).
+    pub stiction: Option<Stiction>,
 }
 
 /// A load on a loop's process: how far it moves the PV once it has fully arrived with the OP
@@ -137,6 +141,13 @@ pub fn loops() -> Vec<LoopDef> {
     ]
 }
 
+/// A valve without stiction: S = J = 0 passes the OP straight through (see
+/// [`crate::analysis::sim::StickyValve`]).
+const FREE_VALVE: Stiction = Stiction {
+    s_pct: 0.0,
+    j_pct: 0.0,
+};
+
 /// Whether `t_s` lies in one of the windows `[start, end)`.
 fn within(windows: &[(f64, f64)], t_s: f64) -> bool {
     windows.iter().any(|&(a, b)| t_s >= a && t_s < b)
@@ -166,6 +177,9 @@ struct Running {
     load: Option<(Load, Vec<(f64, f64)>)>,
     /// How much of the load has reached the PV so far (PV units).
     load_now: f64,
+    /// The valve's stiction and the windows it sticks, and whether it sticks now.
+    stiction: Option<(Stiction, Vec<(f64, f64)>)>,
+    sticking: bool,
     /// Simulation steps per reported sample.
     every: u64,
     steps: u64,
@@ -184,6 +198,8 @@ impl Running {
             trial: d.trial.map(|c| (c, retune_trials(d, duration_s))),
             load: d.load.map(|l| (l, load_spells(d, duration_s))),
             load_now: 0.0,
+            stiction: d.stiction.map(|s| (s, sticky_spells(d, duration_s))),
+            sticking: false,
             every: (d.sample_period_s / d.sim.step_s).round().max(1.0) as u64,
             steps: 0,
             step_s: d.sim.step_s,
@@ -218,6 +234,15 @@ impl Running {
             let target = if within(spells, t) { load.size } else { 0.0 };
             self.load_now += (target - self.load_now) * (1.0 - (-self.step_s / load.lag_s).exp());
             self.sim.disturbance = self.load_now;
+        }
+        if let Some((stiction, spells)) = &self.stiction {
+            let sticks = within(spells, t);
+            if sticks != self.sticking {
+                // A valve that sticks from now on, or one freed: it goes where the OP is.
+                let valve = if sticks { *stiction } else { FREE_VALVE };
+                self.sim = self.sim.clone().with_sticky_valve(valve);
+                self.sticking = sticks;
+            }
         }
     }
 

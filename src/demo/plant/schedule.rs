@@ -1,5 +1,6 @@
 //! What happens to the plant over time: each loop's setpoint changes, and the events of the
-//! demo's story (a trial step, a lost transmitter, a retune trial, a dose of cold water).
+//! demo's story (a trial step, a lost transmitter, a retune trial, a dose of cold water, a valve
+//! that sticks).
 
 use super::{DAY_S, HOUR_S, Intent, LoopDef};
 use crate::analysis::sim::Rng;
@@ -92,6 +93,14 @@ pub(super) const DROPOUT: (f64, f64) = (19.5 * HOUR_S, 27.5 * HOUR_S);
 /// change's window, so it shows in the holds only and leaves every change's verdict as it was.
 pub(super) const RETUNE_TRIAL: (f64, f64) = (5.0 * HOUR_S, 6.7 * HOUR_S);
 
+/// On the first day, from 12.9 h to 14.7 h after the start, the instrument air to FV-101's
+/// actuator runs low (a compressor trips and the standby one does not start; design choices of
+/// this invented plant): with less thrust to overcome the packing's friction, the valve sticks
+/// until the air supply is restored. The spell lies between the 12.5 h change's window (at most
+/// 12.75 h + 5 min) and the 15 h change (at least 14.75 h): like the retune trial, it shows in
+/// the holds only.
+pub(super) const LOW_AIR: (f64, f64) = (12.9 * HOUR_S, 14.7 * HOUR_S);
+
 /// The kettle's long recipe at this setpoint (°C) is brought to its sugar content with dilution
 /// water dosed straight into the kettle, `DOSE_AFTER_S` after the setpoint change for
 /// `DOSE_FOR_S`, every day it runs (design choices of this invented plant). The dose comes
@@ -133,6 +142,11 @@ pub fn pv_dropouts(def: &LoopDef, duration_s: f64) -> Vec<(f64, f64)> {
 /// The windows (start s, end s) in which a loop runs on its trial settings.
 pub fn retune_trials(def: &LoopDef, duration_s: f64) -> Vec<(f64, f64)> {
     once(def.trial.is_some(), RETUNE_TRIAL, duration_s)
+}
+
+/// The windows (start s, end s) in which a loop's valve sticks.
+pub fn sticky_spells(def: &LoopDef, duration_s: f64) -> Vec<(f64, f64)> {
+    once(def.stiction.is_some(), LOW_AIR, duration_s)
 }
 
 /// The windows (start s, end s) in which a loop's load is on: for the kettle, the dilution

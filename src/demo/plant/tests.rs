@@ -278,8 +278,9 @@ fn the_dose_is_more_than_the_heater_can_counter() {
 
 /// Between its setpoint changes, the offline analysis finds each loop's case and nothing else:
 /// the kettle's doses as load disturbances with the heater at its limit, the pre-heater's retune
-/// trial as an oscillation of the tuning with the period the loop's model predicts, and neither
-/// an oscillation nor an actuator-limited disturbance anywhere else.
+/// trial as an oscillation of the tuning with the period the loop's model predicts, the feed
+/// valve's sticking as an oscillation with the swing of its jumps, and neither an oscillation
+/// nor an actuator-limited disturbance anywhere else.
 #[test]
 fn between_changes_the_analysis_finds_each_loops_case() {
     let span = 2.0 * DAY_S;
@@ -313,8 +314,8 @@ fn between_changes_the_analysis_finds_each_loops_case() {
             }
             None => assert!(limited.is_empty(), "{}: {limited:?}", d.tag),
         }
-        match d.trial {
-            Some(trial) => {
+        match (d.trial, d.stiction) {
+            (Some(trial), _) => {
                 assert!(osc.detected, "{}: {osc:?}", d.tag);
                 assert_eq!(osc.likely_cause, Some(Cause::Tuning), "{}: {osc:?}", d.tag);
                 let (_, period) = stability_limit(&d.sim.process, &trial, d.sim.step_s);
@@ -325,13 +326,33 @@ fn between_changes_the_analysis_finds_each_loops_case() {
                     d.tag
                 );
             }
-            None => assert!(!osc.detected, "{}: {osc:?}", d.tag),
+            (None, Some(stiction)) => {
+                assert!(osc.detected, "{}: {osc:?}", d.tag);
+                // Each slip moves the valve J one way and the next J back: the flow swings
+                // K·J peak to peak, an amplitude of K·J/2.
+                let swing = 0.5 * d.sim.process.gain * stiction.j_pct;
+                let found = osc.amplitude.unwrap_or_default();
+                assert!(
+                    (found / swing - 1.0).abs() < 0.3,
+                    "{}: amplitude {found}, the valve's jumps give {swing}",
+                    d.tag
+                );
+                // Never blamed on the tuning or on a load: retuning does not cure a sticking
+                // valve. (Today's core leaves the cause unjudged here: the flow loop's identified
+                // dead time is 0 s, and its cross-correlation test does not call this cycle odd.)
+                assert!(
+                    matches!(osc.likely_cause, None | Some(Cause::Valve)),
+                    "{}: {osc:?}",
+                    d.tag
+                );
+            }
+            (None, None) => assert!(!osc.detected, "{}: {osc:?}", d.tag),
         }
     }
 }
 
-/// The cases between changes stay between changes: without the retune trial and the doses,
-/// every loop's setpoint changes get the same verdicts.
+/// The cases between changes stay between changes: without the retune trial, the doses and the
+/// sticking valve, every loop's setpoint changes get the same verdicts.
 #[test]
 fn the_events_between_changes_leave_every_change_verdict_as_it_was() {
     let span = 2.0 * DAY_S;
@@ -340,6 +361,7 @@ fn the_events_between_changes_leave_every_change_verdict_as_it_was() {
         .map(|d| LoopDef {
             trial: None,
             load: None,
+            stiction: None,
             ..d
         })
         .collect();
@@ -356,7 +378,8 @@ fn the_events_between_changes_leave_every_change_verdict_as_it_was() {
 /// Over a week, each event between changes falls where the analysis looks for it: after the
 /// window of the change before it has closed (ten spec times, the analysis's default horizon),
 /// and before the next change by the time the loop takes to calm: an hour for the kettle's PV
-/// to recover from a dose, three minutes (three of its cycles) for the pre-heater.
+/// to recover from a dose, three minutes for the pre-heater back on its own settings and for the
+/// feed valve freed (their cycles last a minute or less).
 #[test]
 fn the_events_between_changes_stay_clear_of_every_changes_window() {
     let week = 7.0 * DAY_S;
@@ -366,6 +389,7 @@ fn the_events_between_changes_stay_clear_of_every_changes_window() {
         let events: Vec<(f64, f64)> = retune_trials(&d, week)
             .into_iter()
             .chain(load_spells(&d, week))
+            .chain(sticky_spells(&d, week))
             .collect();
         for (from, to) in events {
             let before = changes
