@@ -215,8 +215,8 @@ impl Running {
     }
 
     /// Puts in force, for the next step, what the plant's events say: the transmitter's state,
-    /// the controller's settings, and the load as far as it has reached the PV through its lag
-    /// (exactly, for a load held over the step).
+    /// the controller's settings, the load as far as it has reached the PV through its lag
+    /// (exactly, for a load held over the step), and whether the valve sticks.
     fn apply_events(&mut self) {
         let t = self.time_s();
         self.sim.sensor_ok = !self.silent();
@@ -238,7 +238,8 @@ impl Running {
         if let Some((stiction, spells)) = &self.stiction {
             let sticks = within(spells, t);
             if sticks != self.sticking {
-                // A valve that sticks from now on, or one freed: it goes where the OP is.
+                // A valve that starts sticking rests where it stands (on the OP, so far); a freed
+                // one goes to the OP at once, as a valve does when its air comes back.
                 let valve = if sticks { *stiction } else { FREE_VALVE };
                 self.sim = self.sim.clone().with_sticky_valve(valve);
                 self.sticking = sticks;
