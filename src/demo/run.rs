@@ -650,9 +650,11 @@ async fn summarise(
     let reader = Store::open_read_only(&files.store)
         .await
         .context("cannot open the demo's store for reading")?;
-    let summaries = summary::gather(&reader, config, &files.config, defs).await?;
-    facts.files.reports =
+    let mut summaries = summary::gather(&reader, config, &files.config, defs).await?;
+    let (reports, report) =
         write_report(&reader, config, files, start_ms, plant_end_ms(shared)).await?;
+    facts.files.reports = reports;
+    summary::add_regulation(&mut summaries, &report);
     summary::render(&summaries, &facts, out)?;
     reader.close().await;
     Ok(())
@@ -700,14 +702,14 @@ fn plant_end_ms(shared: &Shared) -> i64 {
 }
 
 /// The loop-health summary of the whole run (the weekly report over the simulated span), in
-/// every format, beside the store.
+/// every format, beside the store: the files written, and the report.
 async fn write_report(
     store: &Store,
     config: &crate::config::Config,
     files: &Files,
     from_ms: i64,
     to_ms: i64,
-) -> anyhow::Result<Vec<PathBuf>> {
+) -> anyhow::Result<(Vec<PathBuf>, crate::report::WeeklyReport)> {
     use crate::report::{Format, Period};
     let tz = jiff::tz::TimeZone::UTC;
     let at = |ms: i64| {
@@ -726,7 +728,7 @@ async fn write_report(
     .await?;
     let dir = files.store.parent().unwrap_or(Path::new("."));
     let written = crate::report::write_files(&report, &period, &Format::ALL, dir)?;
-    Ok(written.into_iter().map(|(p, _)| p).collect())
+    Ok((written.into_iter().map(|(p, _)| p).collect(), report))
 }
 
 fn daemon_ended(res: Result<anyhow::Result<()>, tokio::task::JoinError>) -> anyhow::Error {

@@ -1,16 +1,19 @@
 //! The demo's closing summary, per loop, from the store the daemon wrote: the setpoint changes it
 //! scored, its latest process model, and the recommendation the analysis core derives from them
-//! ([`crate::analysis::advice::recommend`], the same function `analyze` uses). Nothing here is
-//! computed from the simulator's own knowledge of the plant.
+//! ([`crate::analysis::advice::recommend`], the same function `analyze` uses); and how it held its
+//! setpoint between changes, as the run's loop-health report found it from the stored samples.
+//! Nothing here is computed from the simulator's own knowledge of the plant.
 
 use super::plant::{Link, LoopDef};
 use crate::alerts::AlertKind;
 use crate::analysis::advice::{Recommendation, recommend};
+use crate::analysis::regulation::{DisturbanceVerdict, Regulation, words};
 use crate::analysis::verdict::VerdictCounts;
 use crate::analysis::{CAUTION, EpisodeResult, Model, Verdict};
 use crate::config::Config;
+use crate::report::WeeklyReport;
 use crate::store::Store;
-use crate::units::{DISPLAY_DIGITS, count, human_duration, sig};
+use crate::units::{DISPLAY_DIGITS, Units, count, human_duration, sig};
 use anyhow::Context;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -33,6 +36,8 @@ pub struct LoopSummary {
     pub units: crate::analysis::Units,
     /// Alerts raised for the loop: (kind, times raised).
     pub alerts: Vec<(String, u64)>,
+    /// How the loop held its setpoint between changes over the run (see [`add_regulation`]).
+    pub regulation: Option<Regulation>,
 }
 
 impl LoopSummary {
@@ -100,9 +105,61 @@ pub async fn gather(
             recommendation,
             units: setup.units.clone(),
             alerts: alerts_by_kind(&alerts, d.tag),
+            regulation: None,
         });
     }
     Ok(out)
+}
+
+/// Gives each loop the regulation findings of the run's loop-health report, which re-analysed
+/// the run's stored samples between setpoint changes.
+pub fn add_regulation(loops: &mut [LoopSummary], report: &WeeklyReport) {
+    for l in loops {
+        l.regulation = report
+            .loops
+            .iter()
+            .find(|s| s.tag == l.tag)
+            .and_then(|s| s.regulation.as_ref())
+            .map(|r| r.run.regulation.clone());
+    }
+}
+
+/// What a loop showed between its setpoint changes that a person should look at, in the words
+/// `analyze` uses: an oscillation with its cause and evidence, and the load disturbances when
+/// the actuator could not counter one of them; `None` when it held its setpoint well.
+fn regulation_finding(r: &Regulation, units: &Units) -> Option<String> {
+    let mut found = Vec::new();
+    if r.oscillation.detected {
+        found.push(words::oscillation(&r.oscillation, units));
+    }
+    let beyond_actuator = r
+        .disturbances
+        .iter()
+        .any(|d| d.verdict == DisturbanceVerdict::ActuatorLimited);
+    if let Some(worst) = words::worst(&r.disturbances).filter(|_| beyond_actuator) {
+        found.push(words::disturbances(&r.disturbances));
+        found.push(format!("Largest: {}.", words::disturbance(worst, units)));
+    }
+    (!found.is_empty()).then(|| found.join(" "))
+}
+
+/// One paragraph per loop with a finding between its setpoint changes; nothing when none has.
+fn regulation_findings(loops: &[LoopSummary], out: &mut dyn Write) -> std::io::Result<()> {
+    let found: Vec<(&str, String)> = loops
+        .iter()
+        .filter_map(|l| {
+            let finding = regulation_finding(l.regulation.as_ref()?, &l.units)?;
+            Some((l.tag.as_str(), finding))
+        })
+        .collect();
+    if found.is_empty() {
+        return Ok(());
+    }
+    writeln!(out, "\nBetween setpoint changes")?;
+    for (tag, finding) in found {
+        wrapped(out, &format!("  {tag:<8} "), &finding, 11, 100)?;
+    }
+    Ok(())
 }
 
 /// A loop's alerts by kind, in the order first met: (kind, occurrences). Alerts are kept one
@@ -282,6 +339,7 @@ pub fn render(loops: &[LoopSummary], facts: &RunFacts, out: &mut dyn Write) -> s
     }
     // Every recommendation above carries the same caution; it is shown once, right below them.
     wrapped(out, "  ", CAUTION, 2, 100)?;
+    regulation_findings(loops, out)?;
 
     let raised: Vec<String> = loops
         .iter()
@@ -374,5 +432,64 @@ mod tests {
         assert_eq!(met_of_judged(&VerdictCounts::default()), "—");
         assert_eq!(settling(Some(f64::INFINITY)), "never");
         assert_eq!(settling(Some(14_400.0)), "4.0 h");
+    }
+
+    #[test]
+    fn a_regulation_finding_is_an_oscillation_or_a_load_beyond_the_actuator() {
+        use crate::analysis::regulation::{Cause, Disturbance, Oscillation};
+        let units = Units {
+            pv: "°C".into(),
+            op: Units::DEFAULT_OP.into(),
+        };
+        let disturbance = |peak: f64, verdict| Disturbance {
+            start_s: 1_000.0,
+            end_s: 4_000.0,
+            peak_deviation: peak,
+            recovery_time_s: Some(3_000.0),
+            op_at_limit_frac: 0.5,
+            verdict,
+            missed_spec: None,
+        };
+        let mut r = Regulation {
+            oscillation: Oscillation {
+                detected: false,
+                period_s: None,
+                amplitude: None,
+                likely_cause: None,
+                evidence: None,
+            },
+            disturbances: vec![disturbance(0.3, DisturbanceVerdict::Recovered)],
+            time_at_limit_frac: Some(0.0),
+            op_travel_per_h: Some(10.0),
+            op_reversals_per_h: Some(5.0),
+            min_variance_index: Some(0.5),
+            pv_sd: Some(0.05),
+            hold_band: Some(0.1),
+            pv_noise_sd: Some(0.025),
+            hold_hours: 20.0,
+        };
+        assert_eq!(regulation_finding(&r, &units), None, "held well");
+        r.disturbances
+            .push(disturbance(-3.5, DisturbanceVerdict::ActuatorLimited));
+        let load = regulation_finding(&r, &units).expect("a finding");
+        assert!(
+            load.starts_with("Load disturbances: 2 (1 recovered, 1 actuator-limited).")
+                && load.contains("Largest: -3.50 °C from SP")
+                && load.ends_with("actuator-limited."),
+            "{load}"
+        );
+        r.disturbances.clear();
+        r.oscillation = Oscillation {
+            detected: true,
+            period_s: Some(61.0),
+            amplitude: Some(3.4),
+            likely_cause: Some(Cause::Tuning),
+            evidence: Some("the period is 5.2 dead times".into()),
+        };
+        let cycling = regulation_finding(&r, &units).expect("a finding");
+        assert!(
+            cycling.starts_with("Oscillation: period") && cycling.contains("the tuning"),
+            "{cycling}"
+        );
     }
 }

@@ -251,6 +251,16 @@ impl LoopSim {
         &self.cfg
     }
 
+    /// New controller settings from the next step on, as when someone retunes a loop in
+    /// service. Bumpless: the velocity form only ever adds increments to the OP, and the
+    /// positional form's integral is set so the OP stays where it is.
+    pub fn retune(&mut self, controller: PiController) {
+        self.cfg.controller = controller;
+        if let Some(integral) = self.integral.as_mut() {
+            *integral = self.op - controller.gain * self.prev_error;
+        }
+    }
+
     /// Advances one step with the given setpoint: the controller acts on the current measurement,
     /// then the process integrates exactly over the step (zero-order hold on the delayed OP).
     pub fn advance(&mut self, sp: f64) {

@@ -372,3 +372,38 @@ fn clamping_anti_windup_freezes_the_integral_while_the_error_drives_into_the_cla
     );
     assert!((sim.pv_true() - 1.5).abs() < 1e-3, "{}", sim.pv_true());
 }
+
+#[test]
+fn a_retune_in_service_moves_the_op_only_as_the_new_settings_act() {
+    // Mid-response (the SP just raised, an error standing), either form of the controller
+    // switched to new settings takes its next step from where the OP stands: the velocity law's
+    // increment with the new settings, and no jump (a positional integral left as it was would
+    // jump by the gain's change times the last error).
+    for positional in [false, true] {
+        let mut sim = LoopSim::new(LoopSimConfig::jacketed_vessel(100.0, 3));
+        if positional {
+            sim = sim.with_clamping_anti_windup();
+        }
+        for _ in 0..50 {
+            sim.advance(52.0);
+        }
+        let (before, last_error, error) = (sim.op(), sim.prev_error, 52.0 - sim.pv());
+        assert!(last_error.abs() > 0.5, "an error standing: {last_error}");
+        let tighter = PiController {
+            gain: 12.5,
+            ..sim.config().controller
+        };
+        sim.retune(tighter);
+        assert_eq!(sim.config().controller, tighter);
+        sim.advance(52.0);
+        let h = sim.config().step_s;
+        let expected = before
+            + tighter.gain * (error - last_error)
+            + tighter.gain * h / tighter.integral_time_s * error;
+        assert!(
+            (sim.op() - expected).abs() < 1e-9,
+            "positional {positional}: {} instead of {expected}",
+            sim.op()
+        );
+    }
+}
