@@ -520,7 +520,7 @@ fn a_hold_that_starts_outside_the_band_is_the_tail_of_a_response_not_a_load() {
             let t = i as f64;
             let tail = 0.5 * (-t / 60.0).exp();
             let load = if t >= 2000.0 {
-                -1.0 * (-(t - 2000.0) / 60.0).exp()
+                -(-(t - 2000.0) / 60.0).exp()
             } else {
                 0.0
             };

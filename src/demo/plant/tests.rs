@@ -337,14 +337,9 @@ fn between_changes_the_analysis_finds_each_loops_case() {
                     "{}: amplitude {found}, the valve's jumps give {swing}",
                     d.tag
                 );
-                // Never blamed on the tuning or on a load: retuning does not cure a sticking
-                // valve. (Today's core leaves the cause unjudged here: the flow loop's identified
-                // dead time is 0 s, and its cross-correlation test does not call this cycle odd.)
-                assert!(
-                    matches!(osc.likely_cause, None | Some(Cause::Valve)),
-                    "{}: {osc:?}",
-                    d.tag
-                );
+                // Called the valve, from the cycle's shape: retuning does not cure a sticking
+                // valve.
+                assert_eq!(osc.likely_cause, Some(Cause::Valve), "{}: {osc:?}", d.tag);
             }
             (None, None) => assert!(!osc.detected, "{}: {osc:?}", d.tag),
         }
