@@ -596,10 +596,10 @@ async fn the_html_parses_its_svgs_are_xml_and_a_headless_browser_draws_it() {
     let path = out.join("loop-health-2026-W48.html");
     let html = std::fs::read_to_string(&path).unwrap();
     // Two loops with a telling change and a trend each (TIC-101, TIC-102); FIC-201 judged
-    // nothing, so it has no trend to draw. TIC-102's largest load disturbance makes a fifth:
-    // the tail of its last response, settled in the spec band but still outside the narrower
-    // hold band.
-    assert_eq!(check_html(&html), 5);
+    // nothing, so it has no trend to draw. No loop has a load disturbance to plot: the tail of
+    // TIC-102's last response (settled in the spec band, still outside the narrower hold band)
+    // is not a load.
+    assert_eq!(check_html(&html), 4);
 
     let browser = find_browser().unwrap_or_else(|| {
         panic!(

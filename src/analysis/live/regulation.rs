@@ -42,7 +42,7 @@ pub struct RegulationWatch {
     /// it looked last.
     open: Option<(f64, Disturbance)>,
     /// The end of the newest actuator-limited disturbance reported as over.
-    done_to: f64,
+    done_to: Option<f64>,
 }
 
 /// A disturbance counts as over once the PV has been back inside this long (s), matching the
@@ -105,7 +105,11 @@ impl RegulationWatch {
         };
         let mut refreshed = false;
         for d in &found.disturbances {
-            if d.verdict != DisturbanceVerdict::ActuatorLimited || d.end_s <= self.done_to {
+            // One that started before the last reported one ended is that one seen again (the
+            // buffer has dropped its beginning): it was reported.
+            if d.verdict != DisturbanceVerdict::ActuatorLimited
+                || self.done_to.is_some_and(|e| d.start_s <= e)
+            {
                 continue;
             }
             // The first one not yet over is the one reported as open, if there is one.
@@ -116,7 +120,7 @@ impl RegulationWatch {
                 refreshed = true;
             } else {
                 self.open = None;
-                self.done_to = d.end_s;
+                self.done_to = Some(d.end_s);
             }
             events.push(RegulationEvent::ActuatorLimited {
                 disturbance: d.clone(),
@@ -128,11 +132,9 @@ impl RegulationWatch {
         // and what is left of it (if anything) no longer has the OP at its limit. It is over
         // where that rest ends.
         if !refreshed && let Some((id_start_s, mut last)) = self.open.take() {
-            if let Some(rest) = found
-                .disturbances
-                .iter()
-                .find(|d| d.start_s <= last.end_s && d.end_s >= last.end_s)
-            {
+            // What is left of it: the first disturbance still out at or after its last known end
+            // (the buffer may have cut it where the PV briefly touched the band).
+            if let Some(rest) = found.disturbances.iter().find(|d| d.end_s >= last.end_s) {
                 if ongoing(rest) {
                     self.open = Some((id_start_s, last));
                     return events;
@@ -141,7 +143,7 @@ impl RegulationWatch {
                 last.recovery_time_s = rest.recovery_time_s.map(|_| rest.end_s - id_start_s);
                 last.verdict = DisturbanceVerdict::ActuatorLimited;
             }
-            self.done_to = last.end_s;
+            self.done_to = Some(last.end_s);
             events.push(RegulationEvent::ActuatorLimited {
                 disturbance: last,
                 ongoing: false,
