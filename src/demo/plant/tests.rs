@@ -405,3 +405,57 @@ fn the_events_between_changes_stay_clear_of_every_changes_window() {
         }
     }
 }
+
+/// Over a week, the live watch names each of the kettle's cold-water doses once: a disturbance
+/// as long as the tracker's buffer, seen again after the buffer dropped its beginning, is the
+/// one already reported, not a new one.
+#[test]
+fn the_live_watch_raises_one_disturbance_per_dose_over_a_week() {
+    use crate::analysis::live::{LiveEvent, LoopTracker, RegulationEvent, Row};
+    let week = 7.0 * DAY_S;
+    let mut plant = Plant::new(week);
+    let k = plant
+        .defs()
+        .iter()
+        .position(|d| d.load.is_some())
+        .expect("the dosed kettle");
+    let def = plant.defs()[k].clone();
+    let doses = load_spells(&def, week);
+    let mut tracker = LoopTracker::new(setup(&def));
+    let mut ids = std::collections::BTreeSet::new();
+    let mut rows = Vec::new();
+    let mut t = 0.0;
+    while t < week {
+        t += 600.0;
+        rows.clear();
+        plant.advance_to(t, &mut |i, r| {
+            if let (true, Some(pv)) = (i == k, r.pv) {
+                rows.push(Row {
+                    time_s: r.time_s,
+                    sp: r.sp,
+                    pv,
+                    op: r.op,
+                    auto: true,
+                });
+            }
+        });
+        tracker.extend(&rows);
+        for e in tracker.evaluate() {
+            if let LiveEvent::Regulation(RegulationEvent::ActuatorLimited { id_start_s, .. }) = e {
+                ids.insert(id_start_s as i64);
+            }
+        }
+    }
+    let ids: Vec<i64> = ids.into_iter().collect();
+    // Each dose is named once, by a start inside it or just after it begins.
+    for &(from, to) in &doses {
+        let named = ids
+            .iter()
+            .filter(|&&s| (s as f64) >= from && (s as f64) <= to + 600.0)
+            .count();
+        assert_eq!(named, 1, "dose {from}–{to} s: {ids:?}");
+    }
+    // At most one more: the trial step above the heater's reach on the first day, which the
+    // live buffer sees as a load the heater cannot counter.
+    assert!(ids.len() <= doses.len() + 1, "{ids:?} for {doses:?}");
+}
