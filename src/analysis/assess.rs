@@ -87,7 +87,7 @@ pub struct Assessment {
 /// Analyses one loop's data end to end: [`assess`] then [`recommend`].
 pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
     let a = assess(series, setup);
-    let recommendation = recommend(
+    let mut recommendation = recommend(
         &a.episodes,
         a.model.as_ref().ok(),
         setup,
@@ -98,7 +98,6 @@ pub fn analyze_loop(series: &Series, setup: &LoopSetup) -> LoopReport {
         &a.holds,
         &regulation_settings(setup, a.model.as_ref().ok()),
     );
-    let mut recommendation = recommendation;
     recommendation
         .cautions
         .extend(regulation::words::caution(&regulation.oscillation));

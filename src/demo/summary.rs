@@ -136,9 +136,9 @@ fn regulation_finding(r: &Regulation, units: &Units) -> Option<String> {
         .disturbances
         .iter()
         .any(|d| d.verdict == DisturbanceVerdict::ActuatorLimited);
-    if let Some(worst) = words::worst(&r.disturbances).filter(|_| beyond_actuator) {
+    if beyond_actuator {
         found.push(words::disturbances(&r.disturbances));
-        found.push(format!("Largest: {}.", words::disturbance(worst, units)));
+        found.extend(words::largest(&r.disturbances, units));
     }
     (!found.is_empty()).then(|| found.join(" "))
 }

@@ -12,7 +12,7 @@ use super::plot::EpisodeSamples;
 use super::regulation::RegulationRun;
 use super::trend::model_at;
 use crate::analysis::assess::{assess, regulation_settings};
-use crate::analysis::live::Row;
+use crate::analysis::live::{self, Row};
 use crate::analysis::regulation::{Disturbance, regulation, words};
 use crate::analysis::{LoopSetup, Series};
 use crate::store::{ModelRow, Store};
@@ -88,16 +88,7 @@ fn series_of(rows: Vec<Row>) -> Option<Series> {
     if rows.len() < 3 {
         return None;
     }
-    let column = |f: fn(&Row) -> f64| rows.iter().map(f).collect::<Vec<f64>>();
-    let (t, sp, pv, op) = (
-        column(|r| r.time_s),
-        column(|r| r.sp),
-        column(|r| r.pv),
-        column(|r| r.op),
-    );
-    let auto = rows.iter().map(|r| r.auto).collect();
-    drop(rows);
-    match Series::new(t, sp, pv, op, Some(auto)) {
+    match live::series_of(&rows) {
         Ok(s) => Some(s),
         Err(e) => {
             // The store keeps finite values with unique times, so this is a bug upstream.

@@ -8,7 +8,7 @@
 
 use super::period::{Period, local};
 use super::trend::{WeekRow, collapse};
-use crate::analysis::regulation::{Disturbance, DisturbanceVerdict, Regulation, words};
+use crate::analysis::regulation::{Disturbance, DisturbanceCounts, Regulation, words};
 use crate::units::{Units, s_to_ms};
 use jiff::tz::TimeZone;
 use serde::Serialize;
@@ -46,31 +46,6 @@ pub struct RegulationSection {
     pub trend: Vec<RegulationWeek>,
     /// The same for people: weeks without samples run together into one line.
     pub trend_rows: Vec<RegulationRow>,
-}
-
-/// Disturbances by verdict, and how many were slower than the spec's recovery time.
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize)]
-pub struct DisturbanceCounts {
-    pub total: usize,
-    pub recovered: usize,
-    pub actuator_limited: usize,
-    pub not_recovered: usize,
-    pub inconclusive: usize,
-    pub missed_spec: usize,
-}
-
-impl DisturbanceCounts {
-    pub fn of(list: &[Disturbance]) -> DisturbanceCounts {
-        let of = |v: DisturbanceVerdict| list.iter().filter(|d| d.verdict == v).count();
-        DisturbanceCounts {
-            total: list.len(),
-            recovered: of(DisturbanceVerdict::Recovered),
-            actuator_limited: of(DisturbanceVerdict::ActuatorLimited),
-            not_recovered: of(DisturbanceVerdict::NotRecovered),
-            inconclusive: of(DisturbanceVerdict::Inconclusive),
-            missed_spec: list.iter().filter(|d| d.missed_spec.is_some()).count(),
-        }
-    }
 }
 
 /// One listed disturbance: the core's numbers, its local time and its words.
@@ -211,7 +186,7 @@ fn week(p: &Period, run: Option<&RegulationRun>) -> RegulationWeek {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::analysis::regulation::{Cause, Oscillation, RecoveryLimit};
+    use crate::analysis::regulation::{Cause, DisturbanceVerdict, Oscillation, RecoveryLimit};
 
     fn disturbance(start_s: f64, peak: f64, verdict: DisturbanceVerdict) -> Disturbance {
         Disturbance {

@@ -19,7 +19,7 @@ use super::identify::Model;
 use super::quality::{self, Survey};
 use super::segment::{self, WindowEnd};
 use super::verdict::{EpisodeResult, Verdict};
-use super::{LoopSetup, Series};
+use super::{LoopSetup, Series, SeriesError};
 use crate::sample::Signal;
 use std::collections::VecDeque;
 
@@ -167,6 +167,18 @@ impl Aligner {
     }
 }
 
+/// Aligned rows as a series for the analysis, with their mode (live, and stored rows read back).
+pub fn series_of(rows: &[Row]) -> Result<Series, SeriesError> {
+    let column = |f: fn(&Row) -> f64| rows.iter().map(f).collect::<Vec<f64>>();
+    Series::new(
+        column(|r| r.time_s),
+        column(|r| r.sp),
+        column(|r| r.pv),
+        column(|r| r.op),
+        Some(rows.iter().map(|r| r.auto).collect()),
+    )
+}
+
 /// What the tracker found after a batch.
 #[derive(Debug, Clone, PartialEq)]
 pub enum LiveEvent {
@@ -294,15 +306,8 @@ impl LoopTracker {
         }
         self.evaluated_to = newest;
         self.sp_moved = false;
-        let series = match Series::new(
-            self.rows.iter().map(|r| r.time_s).collect(),
-            self.rows.iter().map(|r| r.sp).collect(),
-            self.rows.iter().map(|r| r.pv).collect(),
-            self.rows.iter().map(|r| r.op).collect(),
-            Some(self.rows.iter().map(|r| r.auto).collect()),
-        ) {
-            Ok(s) => s,
-            Err(_) => return events,
+        let Ok(series) = series_of(&self.rows) else {
+            return events;
         };
         let period = self
             .setup

@@ -103,6 +103,42 @@ pub enum RecoveryLimit {
     ActuatorLimited,
 }
 
+/// Disturbances by verdict, and how many were slower than the spec's recovery time.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize)]
+pub struct DisturbanceCounts {
+    pub total: usize,
+    pub recovered: usize,
+    pub actuator_limited: usize,
+    pub not_recovered: usize,
+    pub inconclusive: usize,
+    pub missed_spec: usize,
+}
+
+impl DisturbanceCounts {
+    /// The counts of `list`.
+    pub fn of(list: &[Disturbance]) -> DisturbanceCounts {
+        let of = |v: DisturbanceVerdict| list.iter().filter(|d| d.verdict == v).count();
+        DisturbanceCounts {
+            total: list.len(),
+            recovered: of(DisturbanceVerdict::Recovered),
+            actuator_limited: of(DisturbanceVerdict::ActuatorLimited),
+            not_recovered: of(DisturbanceVerdict::NotRecovered),
+            inconclusive: of(DisturbanceVerdict::Inconclusive),
+            missed_spec: list.iter().filter(|d| d.missed_spec.is_some()).count(),
+        }
+    }
+
+    /// How many have `verdict`.
+    pub fn with(&self, verdict: DisturbanceVerdict) -> usize {
+        match verdict {
+            DisturbanceVerdict::Recovered => self.recovered,
+            DisturbanceVerdict::ActuatorLimited => self.actuator_limited,
+            DisturbanceVerdict::NotRecovered => self.not_recovered,
+            DisturbanceVerdict::Inconclusive => self.inconclusive,
+        }
+    }
+}
+
 impl DisturbanceVerdict {
     /// The verdict as people read it (DESIGN.md, "Words and units").
     pub fn label(self) -> &'static str {

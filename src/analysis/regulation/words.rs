@@ -1,7 +1,7 @@
 //! The regulation findings in words, with units, for every place people read them (`analyze`,
 //! the weekly summary, the demo, alerts): one wording, written here.
 
-use super::{Cause, Disturbance, DisturbanceVerdict, Oscillation, Regulation};
+use super::{Cause, Disturbance, DisturbanceCounts, DisturbanceVerdict, Oscillation, Regulation};
 use crate::units::{Units, count, fraction_to_pct, human_duration, quantity, signed_quantity};
 
 /// Lines describing a loop's regulation: how long it was held, the band and the PV's spread,
@@ -52,9 +52,7 @@ pub fn lines(r: &Regulation, units: &Units, dead_time_s: Option<f64>) -> Vec<Str
     });
     out.push(oscillation(&r.oscillation, units));
     out.push(disturbances(&r.disturbances));
-    if let Some(worst) = worst(&r.disturbances) {
-        out.push(format!("Largest: {}.", disturbance(worst, units)));
-    }
+    out.extend(largest(&r.disturbances, units));
     out
 }
 
@@ -80,7 +78,7 @@ pub fn disturbances(list: &[Disturbance]) -> String {
     if list.is_empty() {
         return "Load disturbances: none left the hold band.".to_owned();
     }
-    let of = |v: DisturbanceVerdict| list.iter().filter(|d| d.verdict == v).count();
+    let counts = DisturbanceCounts::of(list);
     let parts: Vec<String> = [
         DisturbanceVerdict::Recovered,
         DisturbanceVerdict::ActuatorLimited,
@@ -88,14 +86,13 @@ pub fn disturbances(list: &[Disturbance]) -> String {
         DisturbanceVerdict::Inconclusive,
     ]
     .into_iter()
-    .filter(|v| of(*v) > 0)
-    .map(|v| format!("{} {}", of(v), v.label()))
+    .filter(|v| counts.with(*v) > 0)
+    .map(|v| format!("{} {}", counts.with(v), v.label()))
     .collect();
-    let missed = list.iter().filter(|d| d.missed_spec.is_some()).count();
-    let spec = if missed > 0 {
+    let spec = if counts.missed_spec > 0 {
         format!(
             "; {} slower than the spec's recovery time",
-            count(missed, "was", "were")
+            count(counts.missed_spec, "was", "were")
         )
     } else {
         String::new()
@@ -123,6 +120,11 @@ pub fn disturbance(d: &Disturbance, units: &Units) -> String {
         quantity(fraction_to_pct(d.op_at_limit_frac), "%"),
         d.verdict.label()
     )
+}
+
+/// The sentence on the largest disturbance, if there is one.
+pub fn largest(list: &[Disturbance], units: &Units) -> Option<String> {
+    worst(list).map(|d| format!("Largest: {}.", disturbance(d, units)))
 }
 
 /// The disturbance with the largest peak deviation.
