@@ -135,24 +135,26 @@ pub(crate) fn holds_between(
     scored: &[Scored],
     settings: &SegmentSettings,
 ) -> Vec<Hold> {
-    let t = series.time_s();
     let mut next = scored.iter().peekable();
     let busy: Vec<Busy> = windows
         .iter()
-        .map(|w| {
-            let from_s = t[w.start];
-            let settled = next
-                .next_if(|s| s.w.start == w.start)
-                .and_then(|s| s.m.settling_time_s);
-            // The window's last sample is still busy when it never settled.
-            let window_end = t.get(w.end).copied().unwrap_or(f64::INFINITY);
-            Busy {
-                from_s,
-                until_s: settled.map_or(window_end, |ts| from_s + ts),
-            }
-        })
+        .map(|w| busy_of(series, w, next.next_if(|s| s.w.start == w.start)))
         .collect();
     regulation::holds(series, &busy, settings.max_gap_s, settings.deadband)
+}
+
+/// How long a change keeps the loop busy: until its response settled (`scored`, when it was
+/// scored and settled), else to the end of its window.
+pub(crate) fn busy_of(series: &Series, w: &EpisodeWindow, scored: Option<&Scored>) -> Busy {
+    let t = series.time_s();
+    let from_s = t[w.start];
+    // The window's last sample is still busy when it never settled.
+    let window_end = t.get(w.end).copied().unwrap_or(f64::INFINITY);
+    let settled = scored.and_then(|s| s.m.settling_time_s);
+    Busy {
+        from_s,
+        until_s: settled.map_or(window_end, |ts| from_s + ts),
+    }
 }
 
 /// Scores every setpoint change, identifies the process and gives each change its verdict.

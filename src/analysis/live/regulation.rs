@@ -8,11 +8,15 @@
 //! test needs more than ten large half-cycles); `analyze` and the weekly summary see all of the
 //! data.
 
-use crate::analysis::assess::{self, Scored};
+use crate::analysis::assess;
 use crate::analysis::identify::Model;
-use crate::analysis::regulation::{self, Disturbance, DisturbanceVerdict, HoldEnd, Oscillation};
+use crate::analysis::regulation::{
+    self, Busy, Disturbance, DisturbanceVerdict, Hold, HoldEnd, Oscillation,
+};
 use crate::analysis::segment::Segmentation;
+use crate::analysis::segment::WindowEnd;
 use crate::analysis::{LoopSetup, Series, segment::SegmentSettings};
+use std::collections::VecDeque;
 
 /// What the regulation watch found.
 #[derive(Debug, Clone, PartialEq)]
@@ -41,6 +45,8 @@ pub struct RegulationWatch {
     /// The actuator-limited disturbance reported as ongoing: its first reported start, and how
     /// it looked last.
     open: Option<(f64, Disturbance)>,
+    /// How long each closed setpoint change in the buffer kept the loop busy.
+    closed: VecDeque<Busy>,
     /// The end of the newest actuator-limited disturbance reported as over.
     done_to: Option<f64>,
 }
@@ -54,6 +60,36 @@ impl RegulationWatch {
     /// minute (the core's recovery rule needs a minute inside to call a disturbance over).
     fn interval(setup: &LoopSetup) -> f64 {
         (0.1 * setup.spec.settle_within_s).max(SETTLED_INSIDE_S)
+    }
+
+    /// The holds of the buffered `series`. A closed window keeps the loop busy as long as it
+    /// did when first scored, so its change is scored once, not at every evaluation.
+    fn holds(
+        &mut self,
+        series: &Series,
+        seg: &Segmentation,
+        settings: &SegmentSettings,
+        setup: &LoopSetup,
+    ) -> Vec<Hold> {
+        let t = series.time_s();
+        let busy: Vec<Busy> = seg
+            .windows
+            .iter()
+            .map(|w| {
+                if let Some(b) = self.closed.iter().find(|b| b.from_s == t[w.start]) {
+                    return *b;
+                }
+                let scored = assess::score_window(series, w, setup);
+                let b = assess::busy_of(series, w, scored.as_ref());
+                if w.end_reason != WindowEnd::EndOfData {
+                    self.closed.push_back(b);
+                }
+                b
+            })
+            .collect();
+        // Changes whose response ended before the buffer starts are needed no more.
+        self.closed.retain(|b| b.until_s >= t[0]);
+        regulation::holds(series, &busy, settings.max_gap_s, settings.deadband)
     }
 
     /// Runs the regulation core on the holds of the buffered `series` and reports what changed.
@@ -77,12 +113,7 @@ impl RegulationWatch {
             return events;
         }
         self.evaluated_to = Some(newest);
-        let scored: Vec<Scored> = seg
-            .windows
-            .iter()
-            .filter_map(|w| assess::score_window(series, w, setup))
-            .collect();
-        let holds = assess::holds_between(series, &seg.windows, &scored, settings);
+        let holds = self.holds(series, seg, settings, setup);
         let found =
             regulation::regulation(series, &holds, &assess::regulation_settings(setup, model));
         let held_s = found.hold_hours * 3600.0;
